@@ -1,0 +1,53 @@
+"""hashaudit: audit hash functions and bucketing rules on real key sets against simple uniform hashing.
+
+Public names are loaded on first use, so ``import hashaudit`` (and ``hashaudit hashes``) stays cheap and
+compiles no kernel.
+"""
+
+from __future__ import annotations
+
+import importlib
+from importlib.metadata import PackageNotFoundError, version
+
+try:
+    __version__ = version("hashaudit")
+except PackageNotFoundError:  # pragma: no cover - running from a source tree without installing
+    __version__ = "0+unknown"
+
+_EXPORTS = {
+    "REGISTRY": "hashaudit.hashes.registry",
+    "AuditPlan": "hashaudit.engine.local",
+    "AuditResult": "hashaudit.verdict.result",
+    "BucketCounts": "hashaudit.stats.buckets",
+    "Finding": "hashaudit.verdict.findings",
+    "HashAuditError": "hashaudit.errors",
+    "HashRegistry": "hashaudit.hashes.registry",
+    "HashSpec": "hashaudit.hashes.registry",
+    "InputError": "hashaudit.errors",
+    "KeyBatch": "hashaudit.keys.batch",
+    "MergeError": "hashaudit.errors",
+    "SourceOptions": "hashaudit.keys.options",
+    "Thresholds": "hashaudit.verdict.findings",
+    "UsageError": "hashaudit.errors",
+    "audit": "hashaudit.engine.sources",
+    "audit_batches": "hashaudit.engine.local",
+    "bucket_index": "hashaudit.tables.schemes",
+    "from_callable": "hashaudit.hashes.registry",
+    "get_hash": "hashaudit.hashes.registry",
+    "open_keys": "hashaudit.keys",
+    "plan_capacity": "hashaudit.stats.theory",
+}
+
+__all__ = sorted([*_EXPORTS, "__version__"])
+
+
+def __getattr__(name: str):  # type: ignore[no-untyped-def]
+    if name in _EXPORTS:
+        value = getattr(importlib.import_module(_EXPORTS[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'hashaudit' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return __all__

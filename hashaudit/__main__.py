@@ -1,0 +1,3 @@
+from hashaudit.cli import main
+
+main()

@@ -1,0 +1,249 @@
+"""The ``hashaudit`` command: parses options, calls the library, renders, picks the exit code.
+
+Exit codes: 0 every check passed; 1 at least one check failed; 2 usage, input or environment error (one line
+on stderr; ``--debug`` shows the traceback).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import sys
+import traceback
+
+import click
+
+from hashaudit.errors import HashAuditError, UsageError
+
+EXIT_OK, EXIT_FAIL, EXIT_ERROR = 0, 1, 2
+
+
+class TableSize(click.ParamType):
+    """A table size: ``65536``, ``2^16``, ``1<<16`` or ``64k``/``1m`` (binary multiples)."""
+
+    name = "M"
+
+    def convert(self, value, param, ctx):  # type: ignore[no-untyped-def]
+        if isinstance(value, int):
+            return value
+        text = str(value).strip().lower().replace("_", "")
+        try:
+            if m := re.fullmatch(r"2\^(\d+)", text):
+                return 1 << int(m.group(1))
+            if m := re.fullmatch(r"1<<(\d+)", text):
+                return 1 << int(m.group(1))
+            if m := re.fullmatch(r"(\d+)([kmg])", text):
+                return int(m.group(1)) << {"k": 10, "m": 20, "g": 30}[m.group(2)]
+            return int(text)
+        except ValueError:
+            pass
+        self.fail(f"{value!r} is not a table size (examples: 65536, 2^16, 64k)", param, ctx)
+
+
+def _debug_requested() -> bool:
+    return "--debug" in sys.argv or os.environ.get("HASHAUDIT_DEBUG") == "1"
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(package_name="hashaudit")
+@click.option("--debug", is_flag=True, help="Show the traceback of an error.")
+def cli(debug: bool) -> None:
+    """Audit hash functions and bucketing rules on real key sets."""
+
+
+def _source_options(kw: dict):  # type: ignore[no-untyped-def]
+    from hashaudit.keys.options import SourceOptions
+
+    return SourceOptions(
+        format=kw["input_format"],
+        columns=tuple(kw["column"]),
+        join=kw["join"],
+        field=kw["field"],
+        delimiter=kw["delimiter"],
+        header=not kw["no_header"],
+        key_format=kw["key_format"],
+        keep_cr=kw["keep_cr"],
+        skip_empty=kw["skip_empty"],
+        raw_bytes=kw["raw_bytes"],
+        strip=kw["strip"],
+        lowercase=kw["lowercase"],
+        pattern=kw["pattern"],
+    )
+
+
+def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ...]) -> None:
+    for out in outputs:
+        if not out:
+            continue
+        for src in sources:
+            if src != "-" and os.path.exists(out) and os.path.exists(src) and os.path.samefile(out, src):
+                raise UsageError(f"refusing to write the report over the input {src!r}")
+
+
+@cli.command()
+@click.argument("sources", nargs=-1, required=True, metavar="SOURCE...")
+@click.option("--hash", "-H", "hashes", multiple=True, metavar="NAME",
+              help="Hash function (repeatable): a registry name or module:function. Default: a common set.")
+@click.option("--buckets", "-m", multiple=True, type=TableSize(),
+              help="Table size (repeatable): 65536, 2^16, 64k. Default: derived from the key count.")
+@click.option("--scheme", "-s", "schemes", multiple=True, metavar="S",
+              help="Bucketing scheme (repeatable): mod, mask, high, range. Default: mask for powers of two, else mod.")
+@click.option("--seed", type=int, default=0, show_default=True, help="Seed of seeded hashes and simulations.")
+@click.option("--json", "json_path", metavar="FILE", help="Write the JSON report to FILE.")
+@click.option("--format", "input_format", default="auto", show_default=True,
+              type=click.Choice(["auto", "lines", "csv", "tsv", "jsonl"]), help="Input format (auto: by suffix).")
+@click.option("--column", "-c", multiple=True, metavar="NAME|INDEX",
+              help="CSV/TSV column by name or 0-based index (repeatable: composite key).")
+@click.option("--join", default="|", show_default=True, metavar="SEP", help="Separator of composite keys.")
+@click.option("--field", "-f", metavar="PATH", help="JSON Lines field, dotted path (user.id).")
+@click.option("--delimiter", metavar="CHAR", help="CSV delimiter (default , for csv, tab for tsv).")
+@click.option("--no-header", is_flag=True, help="CSV/TSV files have no header row (columns by index).")
+@click.option("--key-format", default="bytes", show_default=True,
+              type=click.Choice(["bytes", "hex", "base64", "int"]),
+              help="How a key's text becomes bytes; int = decimal, hashed as 8-byte little-endian.")
+@click.option("--keep-cr", is_flag=True, help="Keep a CR before the LF as part of the key.")
+@click.option("--skip-empty", is_flag=True, help="Skip empty keys instead of hashing them.")
+@click.option("--raw-bytes", is_flag=True, help="Accept keys that are not UTF-8 text (binary dumps).")
+@click.option("--strip", is_flag=True, help="Strip leading and trailing ASCII whitespace from keys.")
+@click.option("--lowercase", is_flag=True, help="ASCII-lowercase keys.")
+@click.option("--pattern", metavar="REGEX", help="Hash only the first group of REGEX's match in each key.")
+@click.option("--alpha", type=float, default=0.01, show_default=True, help="Family-wise error rate (Holm).")
+@click.option("--max-cost-excess", type=float, default=0.05, show_default=True,
+              help="Fail above this relative excess of probes per chained lookup.")
+@click.option("--max-empty-excess", type=float, default=0.02, show_default=True,
+              help="Fail above this excess of empty buckets (fraction of the table).")
+@click.option("--max-load-ratio", type=float, default=1.25, show_default=True,
+              help="Fail above this ratio of hottest bucket to its expected maximum.")
+@click.option("--all", "show_all", is_flag=True, help="List passing checks too.")
+@click.option("--quiet", "-q", is_flag=True, help="Print nothing but errors; the exit code tells the verdict.")
+@click.option("--color/--no-color", default=None, help="Colour the verdicts (default: when on a terminal).")
+@click.option("--debug", is_flag=True, help="Show the traceback of an error.")
+def audit(sources, hashes, buckets, schemes, seed, json_path, alpha, max_cost_excess, max_empty_excess,
+          max_load_ratio, show_all, quiet, color, debug, **source_kw):  # type: ignore[no-untyped-def]
+    """Audit how SOURCE's keys land in hash tables under each hash function and bucketing scheme.
+
+    SOURCE is a key file (one key per line, CSV/TSV, JSON Lines; .gz .bz2 .xz .zst by suffix) or - for
+    standard input. Exit code 0: every check passed; 1: a check failed; 2: bad usage or input.
+    """
+    from hashaudit.engine.local import AuditPlan
+    from hashaudit.engine.sources import audit as run_audit
+    from hashaudit.hashes.registry import DEFAULT_HASHES
+    from hashaudit.report.json_report import write_json
+    from hashaudit.report.terminal import render
+    from hashaudit.verdict.findings import Thresholds
+
+    _refuse_overwriting_inputs([json_path], sources)
+    thresholds = Thresholds(alpha, max_cost_excess, max_empty_excess, max_load_ratio)
+    plan = AuditPlan(tuple(hashes) or DEFAULT_HASHES, tuple(buckets), tuple(schemes), seed, thresholds)
+    result = run_audit(list(sources), plan, _source_options(source_kw))
+    if json_path:
+        write_json(result, json_path)
+    if not quiet:
+        use_colour = sys.stdout.isatty() if color is None else color
+        click.echo(render(result, show_all=show_all, colour=use_colour), color=use_colour)
+    sys.exit(result.exit_code)
+
+
+@cli.command()
+@click.option("--keys", "-n", "n_keys", required=True, type=TableSize(), help="Number of keys.")
+@click.option("--buckets", "-m", type=TableSize(), help="Table size.")
+@click.option("--load", "load_factor", type=float, help="Target load factor n/m (instead of --buckets).")
+@click.option("--json", "json_path", metavar="FILE", help="Write the plan as JSON to FILE ('-' for stdout).")
+@click.option("--debug", is_flag=True, help="Show the traceback of an error.")
+def plan(n_keys, buckets, load_factor, json_path, debug):  # type: ignore[no-untyped-def]
+    """What simple uniform hashing predicts for N keys in a table: collisions, empty buckets, probes."""
+    from hashaudit.stats.theory import plan_capacity
+
+    if n_keys < 1:
+        raise UsageError(f"--keys must be at least 1, not {n_keys}")
+    if buckets is not None and buckets < 1:
+        raise UsageError(f"--buckets must be a positive integer, not {buckets}")
+    capacity = plan_capacity(n_keys, buckets=buckets, load_factor=load_factor)
+    data = capacity.to_dict()
+    if json_path:
+        text = json.dumps(data, indent=2, allow_nan=False) + "\n"
+        if json_path == "-":
+            click.echo(text, nl=False)
+            return
+        with open(json_path, "w", encoding="utf-8") as f:
+            f.write(text)
+    click.echo(_plan_text(data))
+
+
+def _plan_text(d: dict) -> str:
+    probes = d["expected_probes"]
+
+    def cell(v: float | None) -> str:
+        return "∞" if v is None else f"{v:.3f}"
+
+    rows = [
+        f"keys {d['keys']:,} in {d['buckets']:,} buckets: load factor {d['load_factor']:.4g}",
+        f"  probability of no collision       {d['p_no_collision']:.6g}",
+        f"  keys for even odds of a collision {d['keys_for_even_odds']:,}",
+        f"  expected empty buckets            {d['expected_empty_buckets']:,.1f}",
+        f"  expected colliding pairs          {d['expected_colliding_pairs']:,.1f}",
+        f"  expected fullest bucket           {d['expected_max_load']:.2f} keys",
+        "  expected probes per lookup         hit      miss",
+    ]
+    for kind in ("chaining", "linear", "quadratic", "double"):
+        rows.append(f"    {kind:<31}{cell(probes[kind]['hit']):>8}  {cell(probes[kind]['miss']):>8}")
+    return "\n".join(rows)
+
+
+@cli.command()
+@click.option("--json", "as_json", is_flag=True, help="Print the registry as JSON.")
+@click.option("--debug", is_flag=True, help="Show the traceback of an error.")
+def hashes(as_json, debug):  # type: ignore[no-untyped-def]
+    """List the registered hash functions (compiles nothing)."""
+    from hashaudit.hashes.registry import REGISTRY
+
+    specs = REGISTRY.specs()
+    if as_json:
+        click.echo(json.dumps([
+            {"name": s.name, "width": s.width, "seeded": s.seeded, "path": s.path, "integer_keys": s.integer_keys,
+             "description": s.description} for s in specs
+        ], indent=2))
+        return
+    click.echo(f"{'name':<14} {'bits':>4}  {'seed':<4}  {'path':<7}  description")
+    for s in specs:
+        click.echo(f"{s.name:<14} {s.width:>4}  {'yes' if s.seeded else 'no':<4}  {s.path:<7}  {s.description}")
+
+
+def main(argv: list[str] | None = None) -> None:
+    """Entry point: run the command, turning expected errors into one line on stderr and exit code 2."""
+    try:
+        code = cli.main(args=argv, prog_name="hashaudit", standalone_mode=False)
+    except click.exceptions.Exit as exc:
+        code = exc.exit_code
+    except click.ClickException as exc:
+        exc.show()
+        code = EXIT_ERROR
+    except click.exceptions.Abort:
+        click.echo("hashaudit: interrupted", err=True)
+        code = 130
+    except HashAuditError as exc:
+        if _debug_requested():
+            traceback.print_exc()
+        click.echo(f"hashaudit: error: {exc}", err=True)
+        code = EXIT_ERROR
+    except KeyboardInterrupt:
+        click.echo("hashaudit: interrupted", err=True)
+        code = 130
+    except MemoryError:
+        click.echo("hashaudit: error: out of memory (try smaller --buckets)", err=True)
+        code = EXIT_ERROR
+    except OSError as exc:
+        if _debug_requested():
+            traceback.print_exc()
+        where = f" {exc.filename!r}" if getattr(exc, "filename", None) else ""
+        click.echo(f"hashaudit: error:{where} {exc.strerror or exc}", err=True)
+        code = EXIT_ERROR
+    except SystemExit as exc:
+        code = exc.code if isinstance(exc.code, int) else EXIT_ERROR
+    except Exception as exc:  # a bug: still one line, and the way to see more
+        if _debug_requested():
+            traceback.print_exc()
+        click.echo(f"hashaudit: internal error: {type(exc).__name__}: {exc} (rerun with --debug)", err=True)
+        code = EXIT_ERROR
+    sys.exit(code if isinstance(code, int) else EXIT_OK)

@@ -1,0 +1,1 @@
+"""Engines: drive key batches through hash kernels into accumulators."""

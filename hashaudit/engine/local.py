@@ -1,0 +1,204 @@
+"""The local engine: one pass over the key batches, every requested hash computed once per batch, every
+(scheme, table size) of that hash fed from the same ``uint64`` array."""
+
+from __future__ import annotations
+
+import platform
+import sys
+import time
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+from hashaudit.errors import UsageError
+from hashaudit.hashes.registry import DEFAULT_HASHES, REGISTRY, HashRegistry, HashSpec
+from hashaudit.keys.batch import KeyBatch
+from hashaudit.stats.buckets import BucketCounts
+from hashaudit.stats.fit import bucket_tests, occupancy_table
+from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
+from hashaudit.tables.sizes import auto_sizes
+from hashaudit.verdict.findings import Thresholds, judge, worst_verdict
+from hashaudit.verdict.result import AuditResult, HashAudit, TableSummary
+
+HOTTEST_SHOWN = 5
+
+
+@dataclass(frozen=True)
+class AuditPlan:
+    """What to audit.
+
+    Parameters
+    ----------
+    hashes : tuple of str
+        Registry names (or ``module:function``).
+    buckets : tuple of int
+        Table sizes; empty = derived from the key count (see ``hashaudit.tables.sizes.auto_sizes``).
+    schemes : tuple of str
+        Bucketing schemes; empty = ``mask`` for power-of-two sizes and ``mod`` otherwise.
+    seed : int
+        Seed for seeded hash functions and simulated nulls.
+    thresholds : Thresholds
+    """
+
+    hashes: tuple[str, ...] = DEFAULT_HASHES
+    buckets: tuple[int, ...] = ()
+    schemes: tuple[str, ...] = ()
+    seed: int = 0
+    thresholds: Thresholds = field(default_factory=Thresholds)
+
+    def __post_init__(self) -> None:
+        if not self.hashes:
+            raise UsageError("no hash function to audit")
+        for scheme in self.schemes:
+            if scheme not in SCHEMES:
+                raise UsageError(f"unknown scheme {scheme!r}; choose one of {', '.join(SCHEMES)}")
+        for m in self.buckets:
+            if self.schemes:
+                for scheme in self.schemes:
+                    check_scheme(scheme, m)
+            else:
+                check_scheme("mod", m)
+        if not 0 <= self.seed < 1 << 128:
+            raise UsageError(f"--seed must be between 0 and 2^128 - 1, not {self.seed}")
+
+    def tables(self, keys: int | None) -> list[tuple[str, int]]:
+        """The (scheme, m) pairs to count; ``keys`` is needed when sizes are automatic."""
+        if self.buckets:
+            sizes, primes = list(self.buckets), []
+        else:
+            if keys is None:
+                raise UsageError("table sizes are derived from the key count; give --buckets when it is unknown")
+            sizes, primes = auto_sizes(keys)
+        pairs: list[tuple[str, int]] = []
+        for m in sizes + primes:
+            if self.schemes:
+                for scheme in self.schemes:
+                    if scheme in ("mask", "high") and not is_power_of_two(m):
+                        continue  # automatic prime sizes only go to mod and range
+                    pairs.append((scheme, m))
+            else:
+                pairs.append(("mask" if is_power_of_two(m) else "mod", m))
+        return list(dict.fromkeys(pairs))
+
+    def needs_key_count(self) -> bool:
+        """True when table sizes depend on the number of keys."""
+        return not self.buckets
+
+
+@dataclass
+class _HashState:
+    spec: HashSpec
+    tables: list[BucketCounts]
+
+
+def audit_batches(
+    batches: Iterable[KeyBatch],
+    plan: AuditPlan,
+    *,
+    keys: int | None = None,
+    sources: Sequence[dict] = (),
+    registry: HashRegistry = REGISTRY,
+    progress: Callable[[int], None] | None = None,
+) -> AuditResult:
+    """Audit a stream of key batches.
+
+    Parameters
+    ----------
+    batches : iterable of KeyBatch
+    plan : AuditPlan
+    keys : int, optional
+        Number of keys, required when the plan derives table sizes from it.
+    sources : sequence of dict
+        Source descriptions for the report.
+    registry : HashRegistry
+    progress : callable, optional
+        Called with the number of keys of each batch once it is counted.
+    """
+    started = time.perf_counter()
+    specs = [registry.get(name) for name in plan.hashes]
+    pairs = plan.tables(keys)
+    states = [
+        _HashState(spec, [BucketCounts(spec.name, plan.seed, scheme, m, spec.width) for scheme, m in pairs])
+        for spec in specs
+    ]
+    hash_seconds = {spec.name: 0.0 for spec in specs}
+    total = 0
+    for batch in batches:
+        if len(batch) == 0:
+            continue
+        for state in states:
+            t0 = time.perf_counter()
+            values = state.spec.hash_batch(batch, plan.seed if state.spec.seeded else 0)
+            for table in state.tables:
+                table.update(values)
+            hash_seconds[state.spec.name] += time.perf_counter() - t0
+        total += len(batch)
+        if progress is not None:
+            progress(len(batch))
+    if total == 0:
+        raise UsageError("no keys to audit")
+    return _conclude(states, plan, total, sources, started, hash_seconds)
+
+
+def _conclude(
+    states: list[_HashState],
+    plan: AuditPlan,
+    total: int,
+    sources: Sequence[dict],
+    started: float,
+    hash_seconds: dict[str, float],
+) -> AuditResult:
+    family = []
+    for state in states:
+        for table in state.tables:
+            result = table.result()
+            for test in bucket_tests(result, seed=plan.seed):
+                family.append((state.spec.name, result.scheme, result.buckets, result.keys, test))
+    findings = judge(family, plan.thresholds)
+    hash_audits = []
+    for state in states:
+        own = tuple(f for f in findings if f.hash_name == state.spec.name)
+        summaries = tuple(_summary(table) for table in state.tables)
+        hash_audits.append(
+            HashAudit(
+                state.spec.name, state.spec.width, state.spec.seeded, plan.seed, state.spec.path,
+                worst_verdict([f.verdict for f in own]), own, summaries,
+            )
+        )
+    overall = "fail" if any(h.verdict == "fail" for h in hash_audits) else "pass"
+    seconds = time.perf_counter() - started
+    settings = {
+        "hashes": [s.spec.name for s in states],
+        "tables": [{"scheme": t.scheme, "buckets": t.buckets} for t in states[0].tables],
+        "seed": plan.seed,
+        "thresholds": asdict(plan.thresholds),
+    }
+    run = {
+        "hashaudit_version": _version(),
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "seconds": round(seconds, 3),
+        "keys_per_second": round(total / seconds) if seconds > 0 else None,
+        "hash_seconds": {k: round(v, 3) for k, v in hash_seconds.items()},
+        "platform": sys.platform,
+    }
+    return AuditResult(overall, total, tuple(hash_audits), tuple(sources), settings, run)
+
+
+def _summary(table: BucketCounts) -> TableSummary:
+    result = table.result()
+    counts = result.counts
+    top = min(HOTTEST_SHOWN, len(counts))
+    hottest = np.argpartition(counts, -top)[-top:]
+    hottest = hottest[np.lexsort((hottest, -counts[hottest]))]
+    return TableSummary(
+        result.scheme, result.buckets, result.keys, result.load_factor, occupancy_table(result),
+        [(int(b), int(counts[b])) for b in hottest],
+    )
+
+
+def _version() -> str:
+    from hashaudit import __version__
+
+    return __version__

@@ -1,0 +1,69 @@
+"""Audit keys read from files or standard input: open the sources, count keys first when table sizes depend
+on the count, then stream every batch through the local engine."""
+
+from __future__ import annotations
+
+import itertools
+import os
+from collections.abc import Callable, Iterator, Sequence
+
+from hashaudit.engine.local import AuditPlan, audit_batches
+from hashaudit.errors import UsageError
+from hashaudit.keys import open_keys
+from hashaudit.keys.batch import KeyBatch
+from hashaudit.keys.options import SourceOptions
+from hashaudit.verdict.result import AuditResult
+
+
+def audit(
+    sources: Sequence[str | os.PathLike],
+    plan: AuditPlan | None = None,
+    options: SourceOptions | None = None,
+    *,
+    progress: Callable[[int], None] | None = None,
+) -> AuditResult:
+    """Audit the keys of one or more sources (files, or ``"-"`` for standard input).
+
+    Parameters
+    ----------
+    sources : sequence of path
+        Key files; ``"-"`` reads standard input. Several sources are audited as one key set.
+    plan : AuditPlan, optional
+        Hash functions, table sizes, schemes, seed and thresholds (defaults when omitted).
+    options : SourceOptions, optional
+        How records become keys.
+    progress : callable, optional
+        Called with the number of keys of each batch.
+
+    Returns
+    -------
+    AuditResult
+    """
+    plan = plan or AuditPlan()
+    options = options or SourceOptions()
+    if not sources:
+        raise UsageError("no source given")
+    keys = None
+    if plan.needs_key_count():
+        if any(str(s) == "-" for s in sources):
+            raise UsageError(
+                "reading standard input: give --buckets (table sizes are otherwise derived from the key count, "
+                "which needs a first pass over the input)"
+            )
+        keys = sum(len(b) for s in sources for b in open_keys(s, options))
+    streams = [open_keys(s, options) for s in sources]
+
+    def batches() -> Iterator[KeyBatch]:
+        yield from itertools.chain.from_iterable(streams)
+
+    result = audit_batches(batches(), plan, keys=keys, progress=progress)
+    described = tuple(
+        {**stream.description, "stats": _stats_dict(stream.stats)} for stream in streams
+    )
+    return AuditResult(result.verdict, result.keys, result.hashes, described, result.settings, result.run)
+
+
+def _stats_dict(stats: object) -> dict:
+    from dataclasses import asdict, is_dataclass
+
+    return asdict(stats) if is_dataclass(stats) and not isinstance(stats, type) else dict(vars(stats))

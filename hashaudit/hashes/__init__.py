@@ -1,0 +1,1 @@
+"""Hash functions: the registry and its batch kernels."""

@@ -1,0 +1,63 @@
+"""Options that say how a source's records become keys (shared by the CLI, the library and later the gate config)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+KEY_FORMATS = ("bytes", "hex", "base64", "int")
+SOURCE_FORMATS = ("auto", "lines", "csv", "tsv", "jsonl")
+
+
+@dataclass(frozen=True)
+class SourceOptions:
+    """How to read keys from a source.
+
+    Parameters
+    ----------
+    format : str
+        ``auto`` (by suffix: .csv, .tsv, .jsonl/.ndjson, anything else one key per line), ``lines``,
+        ``csv``, ``tsv`` or ``jsonl``.
+    columns : tuple of str
+        Delimited files: column names, or 0-based indices written as digits. Several columns are joined
+        with ``join`` into one composite key.
+    join : str
+        Separator between the parts of a composite key.
+    field : str or None
+        JSON Lines: dotted path of the field holding the key (``user.id``).
+    delimiter : str or None
+        Delimited files: the delimiter (default ``,`` for csv and tab for tsv).
+    header : bool
+        Delimited files: the first row names the columns.
+    key_format : str
+        ``bytes`` (as read), ``hex``, ``base64``, or ``int`` (decimal integer hashed as 8-byte little-endian).
+    keep_cr : bool
+        Text lines: keep a CR before the LF as part of the key.
+    skip_empty : bool
+        Drop empty keys instead of hashing them.
+    raw_bytes : bool
+        Text lines: accept any bytes (no UTF-8 or NUL check; for dumps whose keys are binary or not UTF-8).
+    strip : bool
+        Remove leading and trailing ASCII whitespace from each key.
+    lowercase : bool
+        ASCII-lowercase each key.
+    pattern : str or None
+        A regular expression; the key is the first group of its first match (keys that do not match are
+        counted and skipped).
+    batch_keys : int
+        Target number of keys per batch.
+    """
+
+    format: str = "auto"
+    columns: tuple[str, ...] = ()
+    join: str = "|"
+    field: str | None = None
+    delimiter: str | None = None
+    header: bool = True
+    key_format: str = "bytes"
+    keep_cr: bool = False
+    skip_empty: bool = False
+    raw_bytes: bool = False
+    strip: bool = False
+    lowercase: bool = False
+    pattern: str | None = None
+    batch_keys: int = 1 << 20

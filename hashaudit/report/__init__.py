@@ -1,0 +1,1 @@
+"""Renderers: turn an ``AuditResult`` into JSON or a terminal table. They compute nothing."""

@@ -1,0 +1,119 @@
+"""``BucketCounts``: the mergeable accumulator of keys per bucket for one (hash, seed, scheme, m)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from hashaudit.errors import MergeError
+from hashaudit.tables.schemes import add_counts, check_scheme
+
+
+@dataclass(frozen=True)
+class BucketCountsResult:
+    """What a ``BucketCounts`` accumulator learned.
+
+    Attributes
+    ----------
+    hash_name, seed, scheme, buckets, width : the settings the counts belong to.
+    keys : int
+        Keys counted.
+    counts : numpy.ndarray of int64
+        Keys per bucket (length ``buckets``).
+    """
+
+    hash_name: str
+    seed: int
+    scheme: str
+    buckets: int
+    width: int
+    keys: int
+    counts: np.ndarray
+
+    @property
+    def load_factor(self) -> float:
+        """Keys per bucket, n / m."""
+        return self.keys / self.buckets
+
+    def occupancy(self) -> np.ndarray:
+        """How many buckets hold exactly k keys, for k = 0 .. max load."""
+        return np.bincount(self.counts)
+
+
+class BucketCounts:
+    """Keys per bucket for one hash function, seed, bucketing scheme and table size.
+
+    Follows the accumulator contract of the project: ``update(hashes)`` adds a batch of hash values,
+    ``merge(other)`` adds another accumulator's counts (associative and commutative), ``result()`` returns a
+    frozen ``BucketCountsResult``. Results do not depend on how the keys were split into batches.
+
+    Parameters
+    ----------
+    hash_name : str
+    seed : int
+    scheme : {"mod", "mask", "high", "range"}
+    buckets : int
+    width : int
+        Output width of the hash in bits.
+    """
+
+    def __init__(self, hash_name: str, seed: int, scheme: str, buckets: int, width: int) -> None:
+        check_scheme(scheme, buckets)
+        self.hash_name = hash_name
+        self.seed = int(seed)
+        self.scheme = scheme
+        self.buckets = int(buckets)
+        self.width = int(width)
+        self.counts_ = np.zeros(self.buckets, dtype=np.int64)
+        self.keys_seen_ = 0
+
+    def settings(self) -> tuple[str, int, str, int, int]:
+        """The settings two accumulators must share to be merged."""
+        return (self.hash_name, self.seed, self.scheme, self.buckets, self.width)
+
+    def update(self, hashes: np.ndarray) -> BucketCounts:
+        """Count a batch of hash values (``uint64[n]``, or ``uint64[n, 2]`` for 128-bit functions)."""
+        add_counts(hashes, self.scheme, self.buckets, self.width, self.counts_)
+        self.keys_seen_ += int(hashes.shape[0])
+        return self
+
+    def merge(self, other: BucketCounts) -> BucketCounts:
+        """Add ``other``'s counts to this accumulator (in place); settings must match."""
+        if not isinstance(other, BucketCounts) or other.settings() != self.settings():
+            mine = self.settings()
+            theirs = other.settings() if isinstance(other, BucketCounts) else type(other).__name__
+            raise MergeError(f"cannot merge bucket counts {theirs} into {mine}: settings differ")
+        self.counts_ += other.counts_
+        self.keys_seen_ += other.keys_seen_
+        return self
+
+    def copy(self) -> BucketCounts:
+        """An independent copy."""
+        twin = BucketCounts(*self.settings())
+        twin.counts_ = self.counts_.copy()
+        twin.keys_seen_ = self.keys_seen_
+        return twin
+
+    def result(self) -> BucketCountsResult:
+        """The counts so far, frozen."""
+        counts = self.counts_.copy()
+        counts.setflags(write=False)
+        return BucketCountsResult(
+            self.hash_name, self.seed, self.scheme, self.buckets, self.width, self.keys_seen_, counts
+        )
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, BucketCounts):
+            return NotImplemented
+        return (
+            self.settings() == other.settings()
+            and self.keys_seen_ == other.keys_seen_
+            and bool(np.array_equal(self.counts_, other.counts_))
+        )
+
+    def __repr__(self) -> str:
+        return (
+            f"BucketCounts({self.hash_name!r}, seed={self.seed}, scheme={self.scheme!r}, "
+            f"buckets={self.buckets}, keys={self.keys_seen_})"
+        )

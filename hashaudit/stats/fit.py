@@ -1,0 +1,252 @@
+"""Tests of fit of bucket counts against simple uniform hashing.
+
+Each test returns a ``FitTest``: the statistic, its expected value under uniform hashing, the p-values of
+both tails (upper = more uneven than random, the direction that can fail; lower = more even than random,
+which is informational), the method used for the null distribution, and an effect size in operational units.
+
+Null distributions, chosen by table size m and load factor λ = n/m (see DESIGN.md "Statistical notes"):
+
+* small tables (m ≤ 256 with λ < 5, or m < 32): a simulated multinomial null with a fixed seed, shared by all
+  statistics of that (m, n);
+* Pearson's χ² and the G statistic with λ ≥ 5: χ²(m − 1);
+* sparse large tables: a normal law with the exact moments of Pearson's statistic, and the moments of
+  Morris (1975) for G (any statistic Σ f(c_i) of multinomial counts is asymptotically normal with
+  mean m·E f(C) and variance m·(Var f(X) − Cov(f(X), X)²/λ), X Poisson);
+* empty buckets and colliding pairs: their exact mean and variance with a normal law, or a Poisson law
+  when the expected count is small (Arratia, Goldstein & Gordon 1989);
+* maximum load: the multinomial distribution of the maximum (``hashaudit.stats.maxload``).
+
+References
+----------
+C. Morris, "Central limit theorems for multinomial sums", Ann. Statist. 3 (1975) 165-188.
+R. Arratia, L. Goldstein, L. Gordon, "Two moments suffice for Poisson approximations: the Chen-Stein
+method", Ann. Probab. 17 (1989) 9-25.
+W. Feller, An Introduction to Probability Theory and Its Applications, vol. 1, 3rd ed., ch. II & IV.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from functools import lru_cache
+
+import numpy as np
+from scipy import stats
+
+from hashaudit.stats import maxload, theory
+from hashaudit.stats.buckets import BucketCountsResult
+
+SIMULATION_DRAWS = 9999
+SPARSE_LOAD = 5.0
+
+
+@dataclass(frozen=True)
+class Effect:
+    """An effect size in operational units.
+
+    Attributes
+    ----------
+    name : str
+        ``lookup_cost_excess`` (relative extra probes per successful chained lookup), ``empty_excess``
+        (extra empty buckets as a fraction of the table) or ``max_load_ratio`` (hottest bucket over the
+        expected maximum).
+    value : float
+    observed, ideal : float
+        The operational quantity for these keys and for an ideal hash (e.g. probes per lookup).
+    unit : str
+    """
+
+    name: str
+    value: float
+    observed: float
+    ideal: float
+    unit: str
+
+
+@dataclass(frozen=True)
+class FitTest:
+    """One test of fit on the counts of one table."""
+
+    name: str
+    statistic: float
+    expected: float
+    observed: float
+    p_upper: float
+    p_lower: float
+    method: str
+    effect: Effect
+    details: dict = field(default_factory=dict)
+
+
+def _colliding_pairs(counts: np.ndarray) -> float:
+    c = counts.astype(np.float64)
+    return float(np.dot(c, c - 1.0) / 2.0)
+
+
+def _g_statistic(counts: np.ndarray, expected_per_bucket: float) -> float:
+    c = counts[counts > 0].astype(np.float64)
+    return float(2.0 * np.sum(c * np.log(c / expected_per_bucket)))
+
+
+def _chi_square(counts: np.ndarray, keys: int, buckets: int) -> float:
+    # X^2 = (m/n) Σ c^2 - n: exact in float for the ranges we meet, and one pass over the counts
+    c = counts.astype(np.float64)
+    return float(buckets / keys * np.dot(c, c) - keys)
+
+
+def _lookup_cost(keys: int, pairs: float) -> float:
+    """Mean probes of a successful search in a chained table: 1 + (colliding pairs) / n."""
+    return 1.0 + pairs / keys if keys else 1.0
+
+
+@lru_cache(maxsize=64)
+def _simulated_null(buckets: int, keys: int, seed: int) -> dict[str, np.ndarray]:
+    """Statistics of SIMULATION_DRAWS multinomial tables (uniform hashing), fixed seed."""
+    rng = np.random.default_rng([seed, buckets, keys])
+    draws = rng.multinomial(keys, np.full(buckets, 1.0 / buckets), size=SIMULATION_DRAWS).astype(np.float64)
+    lam = keys / buckets
+    with np.errstate(divide="ignore", invalid="ignore"):
+        g_terms = np.where(draws > 0, draws * np.log(draws / lam), 0.0)
+    return {
+        "chi_square": buckets / keys * np.einsum("ij,ij->i", draws, draws) - keys,
+        "g_test": 2.0 * g_terms.sum(axis=1),
+        "empty_buckets": (draws == 0).sum(axis=1).astype(np.float64),
+        "colliding_pairs": np.einsum("ij,ij->i", draws, draws - 1.0) / 2.0,
+        "max_load": draws.max(axis=1),
+    }
+
+
+def _simulated_p(null: np.ndarray, observed: float) -> tuple[float, float]:
+    # (1 + #as extreme) / (S + 1): a valid p-value for a Monte Carlo test (Davison & Hinkley 1997, §4.2)
+    tol = 1e-9 * max(1.0, abs(observed))
+    upper = (1 + int(np.count_nonzero(null >= observed - tol))) / (len(null) + 1)
+    lower = (1 + int(np.count_nonzero(null <= observed + tol))) / (len(null) + 1)
+    return upper, lower
+
+
+def _normal_p(observed: float, mean: float, variance: float) -> tuple[float, float]:
+    if variance <= 0:
+        return (1.0 if observed <= mean else 0.0), (1.0 if observed >= mean else 0.0)
+    z = (observed - mean) / math.sqrt(variance)
+    return float(stats.norm.sf(z)), float(stats.norm.cdf(z))
+
+
+def _poisson_p(observed: float, mean: float) -> tuple[float, float]:
+    k = math.floor(observed + 1e-9)
+    return float(stats.poisson.sf(k - 1, mean)), float(stats.poisson.cdf(k, mean))
+
+
+def _use_simulation(buckets: int, keys: int) -> bool:
+    return buckets < 32 or (buckets <= 256 and keys / buckets < SPARSE_LOAD)
+
+
+def _morris_g_moments(buckets: int, keys: int) -> tuple[float, float]:
+    """Null mean and variance of G for sparse tables (Morris 1975)."""
+    lam = keys / buckets
+    top = int(lam + 12.0 * math.sqrt(lam) + 40)
+    k = np.arange(top + 1, dtype=np.float64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        f = np.where(k > 0, 2.0 * k * np.log(k / lam), 0.0)
+    binom_pmf = stats.binom.pmf(k, keys, 1.0 / buckets)
+    pois_pmf = stats.poisson.pmf(k, lam)
+    mean = buckets * float(np.dot(binom_pmf, f))
+    ef = float(np.dot(pois_pmf, f))
+    var_f = float(np.dot(pois_pmf, (f - ef) ** 2))
+    cov_fx = float(np.dot(pois_pmf, (f - ef) * (k - lam)))
+    return mean, buckets * max(var_f - cov_fx**2 / lam, 0.0)
+
+
+def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
+    """Every bucket-count test of fit for one table: chi_square, g_test, empty_buckets, colliding_pairs,
+    max_load.
+
+    Parameters
+    ----------
+    result : BucketCountsResult
+        The counts of one (hash, scheme, m).
+    seed : int
+        Seed of the simulated null for small tables (recorded in each test's ``method``).
+    """
+    n, m, counts = result.keys, result.buckets, result.counts
+    if n == 0:
+        return []
+    lam = n / m
+    pairs = _colliding_pairs(counts)
+    ideal_cost = 1.0 + (n - 1) / (2.0 * m)
+    cost_effect = Effect("lookup_cost_excess", _lookup_cost(n, pairs) / ideal_cost - 1.0,
+                         _lookup_cost(n, pairs), ideal_cost, "probes per successful chained lookup")
+    chi2 = _chi_square(counts, n, m)
+    g = _g_statistic(counts, lam)
+    empty = float(np.count_nonzero(counts == 0))
+    max_load_observed = float(counts.max())
+    expected_empty = theory.expected_empty_buckets(m, n)
+    expected_pairs = theory.expected_colliding_pairs(m, n)
+    expected_max = maxload.expected_max_load(m, n)
+    empty_effect = Effect("empty_excess", (empty - expected_empty) / m, empty / m, expected_empty / m,
+                          "fraction of buckets left empty")
+    max_effect = Effect("max_load_ratio", max_load_observed / expected_max if expected_max > 0 else 1.0,
+                        max_load_observed, expected_max, "keys in the hottest bucket")
+
+    simulate = _use_simulation(m, n)
+    if simulate:
+        null = _simulated_null(m, n, seed)
+        method = f"simulated multinomial null ({SIMULATION_DRAWS} draws, seed {seed})"
+        chi_p = _simulated_p(null["chi_square"], chi2)
+        g_p = _simulated_p(null["g_test"], g)
+        g_mean = float(null["g_test"].mean())
+        empty_p = _simulated_p(null["empty_buckets"], empty)
+        pairs_p = _simulated_p(null["colliding_pairs"], pairs)
+        chi_method = g_method = empty_method = pairs_method = method
+    else:
+        chi_mean, chi_var = theory.chi_square_moments(m, n)
+        if lam >= SPARSE_LOAD:
+            chi_p = (float(stats.chi2.sf(chi2, m - 1)), float(stats.chi2.cdf(chi2, m - 1)))
+            g_p = (float(stats.chi2.sf(g, m - 1)), float(stats.chi2.cdf(g, m - 1)))
+            g_mean = float(m - 1)
+            chi_method = g_method = f"chi-square with {m - 1} degrees of freedom"
+        else:
+            chi_p = _normal_p(chi2, chi_mean, chi_var)
+            chi_method = "normal with the exact moments of Pearson's statistic (sparse table)"
+            g_mean, g_var = _morris_g_moments(m, n)
+            g_p = _normal_p(g, g_mean, g_var)
+            g_method = "normal with Morris (1975) moments (sparse table)"
+        if expected_empty < 50:
+            empty_p, empty_method = _poisson_p(empty, expected_empty), "Poisson approximation"
+        else:
+            empty_p = _normal_p(empty, expected_empty, theory.var_empty_buckets(m, n))
+            empty_method = "normal with exact mean and variance"
+        # More empty buckets than random is the skewed direction, so the tails stay as computed.
+        if expected_pairs < 50:
+            pairs_p, pairs_method = _poisson_p(pairs, expected_pairs), "Poisson approximation"
+        else:
+            pairs_p = _normal_p(pairs, expected_pairs, theory.var_colliding_pairs(m, n))
+            pairs_method = "normal with exact mean and variance"
+    k = int(max_load_observed)
+    max_p = (float(maxload.max_load_sf(m, n, k)), float(maxload.max_load_cdf(m, n, k)))
+
+    return [
+        FitTest("chi_square", chi2, float(m - 1), chi2, *chi_p, chi_method, cost_effect,
+                {"degrees_of_freedom": m - 1}),
+        FitTest("g_test", g, g_mean, g, *g_p, g_method, cost_effect),
+        FitTest("empty_buckets", empty, expected_empty, empty, *empty_p, empty_method, empty_effect),
+        FitTest("colliding_pairs", pairs, expected_pairs, pairs, *pairs_p, pairs_method, cost_effect),
+        FitTest("max_load", max_load_observed, expected_max, max_load_observed, *max_p,
+                "multinomial maximum (hashaudit.stats.maxload)", max_effect),
+    ]
+
+
+def occupancy_table(result: BucketCountsResult, max_rows: int = 64) -> dict[str, list[float]]:
+    """Buckets holding exactly k keys, observed and expected under uniform hashing (binomial)."""
+    observed = np.bincount(result.counts)
+    top = min(len(observed) - 1, max_rows)
+    expected = theory.expected_occupancy(result.buckets, result.keys, top)
+    tail_observed = float(observed[top + 1 :].sum())
+    expected_tail = float(result.buckets * stats.binom.sf(top, result.keys, 1.0 / result.buckets))
+    return {
+        "k": list(range(top + 1)),
+        "observed": [float(x) for x in observed[: top + 1]],
+        "expected": [float(x) for x in expected[: top + 1]],
+        "observed_above": tail_observed,
+        "expected_above": expected_tail,
+    }
+

@@ -1,0 +1,1 @@
+"""Bucketing schemes: how a hash value becomes a bucket index."""

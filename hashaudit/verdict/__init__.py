@@ -1,0 +1,1 @@
+"""Verdicts: multiple-testing control across an audit and the pass / warn / fail / info decision."""

@@ -1,0 +1,210 @@
+"""Findings and the verdict rules.
+
+A check fails only when it is both statistically significant after Holm's correction across the whole
+audit (upper tail: worse than random) and its effect, in operational units, exceeds a threshold. Significant
+but small departures are ``warn``; counts significantly *more even* than random are ``info`` (the keys are
+structured and the function preserves the structure, which does a table no harm).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+
+from hashaudit.errors import UsageError
+from hashaudit.stats.fit import Effect, FitTest
+from hashaudit.verdict.holm import holm_adjust
+
+VERDICT_ORDER = {"fail": 0, "warn": 1, "info": 2, "pass": 3}
+
+
+@dataclass(frozen=True)
+class Thresholds:
+    """Family-wise alpha and the effect sizes above which a significant departure fails.
+
+    Attributes
+    ----------
+    alpha : float
+        Family-wise error rate of one audit (Holm).
+    lookup_cost_excess : float
+        Relative extra probes per successful chained lookup (0.05 = 5 % more than an ideal hash).
+    empty_excess : float
+        Extra empty buckets as a fraction of the table (0.02 = two percentage points).
+    max_load_ratio : float
+        Hottest bucket over the expected maximum under uniform hashing.
+    """
+
+    alpha: float = 0.01
+    lookup_cost_excess: float = 0.05
+    empty_excess: float = 0.02
+    max_load_ratio: float = 1.25
+
+    def __post_init__(self) -> None:
+        if not 0 < self.alpha < 1:
+            raise UsageError(f"--alpha must be between 0 and 1, not {self.alpha}")
+        for name in ("lookup_cost_excess", "empty_excess", "max_load_ratio"):
+            value = getattr(self, name)
+            if not (isinstance(value, (int, float)) and math.isfinite(value) and value >= 0):
+                raise UsageError(f"threshold {name} must be a non-negative number, not {value!r}")
+
+    def for_effect(self, effect_name: str) -> float:
+        """The threshold that applies to an effect of this name."""
+        return float(getattr(self, effect_name))
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One check on one table of one hash function, with its verdict."""
+
+    hash_name: str
+    check: str
+    scheme: str
+    buckets: int
+    keys: int
+    statistic: float
+    expected: float
+    observed: float
+    p_value: float
+    p_value_lower: float
+    p_adjusted: float
+    method: str
+    effect: Effect
+    threshold: float
+    verdict: str
+    direction: str
+    message: str
+    details: dict = field(default_factory=dict)
+
+    @property
+    def table(self) -> str:
+        """Short label of the table, e.g. ``mask 2^16`` or ``mod 65521``."""
+        return table_label(self.scheme, self.buckets)
+
+    def to_dict(self) -> dict:
+        """JSON-able form (the check entry of the report)."""
+        return {
+            "name": self.check,
+            "scheme": self.scheme,
+            "buckets": self.buckets,
+            "keys": self.keys,
+            "verdict": self.verdict,
+            "direction": self.direction,
+            "statistic": _finite(self.statistic),
+            "expected": _finite(self.expected),
+            "observed": _finite(self.observed),
+            "p_value": _probability(self.p_value),
+            "p_value_lower": _probability(self.p_value_lower),
+            "p_adjusted": _probability(self.p_adjusted),
+            "method": self.method,
+            "effect": {k: _finite(v) if isinstance(v, float) else v for k, v in asdict(self.effect).items()},
+            "threshold": _finite(self.threshold),
+            "message": self.message,
+            **({"details": self.details} if self.details else {}),
+        }
+
+
+def _finite(x: float) -> float | None:
+    return float(x) if math.isfinite(x) else None
+
+
+def _probability(p: float) -> float:
+    return min(1.0, max(0.0, float(p)))
+
+
+def table_label(scheme: str, buckets: int) -> str:
+    """``mask 2^16`` for powers of two, ``mod 65521`` otherwise."""
+    if buckets > 1 and buckets & (buckets - 1) == 0:
+        return f"{scheme} 2^{buckets.bit_length() - 1}"
+    return f"{scheme} {buckets}"
+
+
+def _num(x: float) -> str:
+    """A number for a sentence: 3 significant digits, thousands separators for large values."""
+    if not math.isfinite(x):
+        return "∞"
+    if abs(x) >= 1e6:
+        return f"{x:.3g}"
+    if abs(x) >= 100 or float(x).is_integer():
+        return f"{x:,.0f}"
+    return f"{x:.3g}"
+
+
+def _p(p: float) -> str:
+    return "p < 1e-300" if p < 1e-300 else f"p = {p:.2g}"
+
+
+def _skew_sentence(test: FitTest) -> str:
+    e = test.effect
+    if e.name == "lookup_cost_excess":
+        core = (
+            f"a successful chained lookup costs {e.observed:.3g} probes against {e.ideal:.3g} for an ideal hash "
+            f"({e.value:+.1%})"
+        )
+        if test.name == "colliding_pairs":
+            return f"{_num(test.observed)} colliding pairs against {_num(test.expected)} expected; {core}"
+        if test.name == "chi_square":
+            return f"bucket counts more uneven than random (χ² = {_num(test.statistic)} vs {_num(test.expected)}); {core}"
+        return f"bucket counts more uneven than random (G = {_num(test.statistic)} vs {_num(test.expected)}); {core}"
+    if e.name == "empty_excess":
+        return (
+            f"{e.observed:.1%} of buckets stay empty against {e.ideal:.1%} for an ideal hash "
+            f"({100 * e.value:+.1f} points)"
+        )
+    return (
+        f"the hottest bucket holds {_num(e.observed)} keys against an expected maximum of {_num(e.ideal)} "
+        f"({e.value:.2f}×)"
+    )
+
+
+def judge(tests: list[tuple[str, str, int, int, FitTest]], thresholds: Thresholds) -> list[Finding]:
+    """Turn the tests of one audit into findings.
+
+    Parameters
+    ----------
+    tests : list of (hash_name, scheme, buckets, keys, FitTest)
+        Every test of the audit: the Holm family.
+    thresholds : Thresholds
+
+    Returns
+    -------
+    list of Finding, in the input order.
+    """
+    upper = holm_adjust([t.p_upper for *_, t in tests])
+    lower = holm_adjust([t.p_lower for *_, t in tests])
+    findings = []
+    for (hash_name, scheme, buckets, keys, test), p_up_adj, p_low_adj in zip(tests, upper, lower, strict=True):
+        threshold = thresholds.for_effect(test.effect.name)
+        big = test.effect.value > threshold
+        if p_up_adj <= thresholds.alpha:
+            verdict, direction, p_adjusted = ("fail" if big else "warn"), "skewed", p_up_adj
+            sentence = _skew_sentence(test)
+            if not big:
+                sentence = f"significant but small ({_p(test.p_upper)}): {sentence}"
+            else:
+                sentence = f"{sentence}; {_p(test.p_upper)}"
+        elif p_low_adj <= thresholds.alpha:
+            verdict, direction, p_adjusted = "info", "too_regular", p_low_adj
+            sentence = (
+                f"more even than random ({_p(test.p_lower)}): the keys are structured and the function keeps "
+                "the structure — harmless for a table"
+            )
+        else:
+            verdict, direction, p_adjusted = "pass", "none", p_up_adj
+            sentence = f"consistent with uniform hashing ({_p(test.p_upper)})"
+        findings.append(
+            Finding(
+                hash_name, test.name, scheme, buckets, keys, test.statistic, test.expected, test.observed,
+                test.p_upper, test.p_lower, float(p_adjusted), test.method, test.effect, threshold, verdict,
+                direction, sentence, dict(test.details),
+            )
+        )
+    return findings
+
+
+def worst_verdict(verdicts: list[str]) -> str:
+    """``fail`` over ``warn`` over ``pass``; ``info`` alone counts as ``pass``."""
+    if "fail" in verdicts:
+        return "fail"
+    if "warn" in verdicts:
+        return "warn"
+    return "pass"

@@ -1,0 +1,123 @@
+"""The result of an audit: per hash function its findings and table summaries, and the overall verdict."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+from hashaudit.verdict.findings import VERDICT_ORDER, Finding
+
+SCHEMA = "hashaudit.audit/1"
+
+
+@dataclass(frozen=True)
+class TableSummary:
+    """One table of one hash function: occupancy histogram and hottest buckets (indices, never keys)."""
+
+    scheme: str
+    buckets: int
+    keys: int
+    load_factor: float
+    occupancy: dict[str, Any]
+    hottest_buckets: list[tuple[int, int]]
+
+    def to_dict(self) -> dict:
+        """JSON-able form."""
+        return {
+            "scheme": self.scheme,
+            "buckets": self.buckets,
+            "keys": self.keys,
+            "load_factor": self.load_factor,
+            "occupancy": self.occupancy,
+            "hottest_buckets": [{"bucket": b, "keys": c} for b, c in self.hottest_buckets],
+        }
+
+
+@dataclass(frozen=True)
+class HashAudit:
+    """The audit of one hash function."""
+
+    name: str
+    width: int
+    seeded: bool
+    seed: int
+    path: str
+    verdict: str
+    findings: tuple[Finding, ...]
+    tables: tuple[TableSummary, ...]
+
+    def to_dict(self) -> dict:
+        """JSON-able form (one entry of the report's ``hashes``)."""
+        return {
+            "name": self.name,
+            "width": self.width,
+            "seeded": self.seeded,
+            "seed": self.seed if self.seeded else None,
+            "path": self.path,
+            "verdict": self.verdict,
+            "checks": [f.to_dict() for f in self.findings],
+            "tables": [t.to_dict() for t in self.tables],
+        }
+
+
+@dataclass(frozen=True)
+class AuditResult:
+    """Everything an audit found; ``to_dict`` gives the JSON report (schema ``hashaudit.audit/1``)."""
+
+    verdict: str
+    keys: int
+    hashes: tuple[HashAudit, ...]
+    sources: tuple[dict, ...]
+    settings: dict
+    run: dict = field(default_factory=dict, compare=False)
+
+    @property
+    def findings(self) -> list[Finding]:
+        """Every finding, worst first (fail, warn, info, pass; then by adjusted p-value)."""
+        every = [f for h in self.hashes for f in h.findings]
+        return sorted(every, key=lambda f: (VERDICT_ORDER[f.verdict], f.p_adjusted, -f.effect.value))
+
+    @property
+    def exit_code(self) -> int:
+        """0 when every check passed, 1 when at least one failed."""
+        return 1 if self.verdict == "fail" else 0
+
+    def to_dict(self) -> dict:
+        """The JSON report as a dict: deterministic apart from ``run``."""
+        counts = {v: 0 for v in ("fail", "warn", "info", "pass")}
+        for f in self.findings:
+            counts[f.verdict] += 1
+        return {
+            "schema": SCHEMA,
+            "verdict": self.verdict,
+            "summary": {
+                "keys": self.keys,
+                "checks": counts,
+                "worst": [
+                    {"hash": f.hash_name, "check": f.check, "table": f.table, "verdict": f.verdict,
+                     "message": f.message}
+                    for f in self.findings[:3]
+                ],
+            },
+            "settings": self.settings,
+            "sources": list(self.sources),
+            "hashes": [h.to_dict() for h in self.hashes],
+            "run": self.run,
+        }
+
+    def to_dataframe(self):  # type: ignore[no-untyped-def]
+        """One row per finding, as a pandas DataFrame (for notebooks)."""
+        import pandas as pd
+
+        rows = []
+        for f in self.findings:
+            rows.append(
+                {
+                    "hash": f.hash_name, "check": f.check, "scheme": f.scheme, "buckets": f.buckets,
+                    "keys": f.keys, "verdict": f.verdict, "direction": f.direction, "statistic": f.statistic,
+                    "expected": f.expected, "observed": f.observed, "p_value": f.p_value,
+                    "p_adjusted": f.p_adjusted, "effect": f.effect.name, "effect_value": f.effect.value,
+                    "threshold": f.threshold, "message": f.message,
+                }
+            )
+        return pd.DataFrame(rows)

@@ -1,0 +1,89 @@
+"""Generate the bundled sample keys (invented data, fixed seed).
+
+The scenario is fictional: *Marrowby Ferry & Freight*, an island ferry and freight cooperative, with
+identifiers of the kinds its systems hash into tables and shards:
+
+``orders.txt``            order numbers from a counter with small gaps (``MF-26-0400000``), one per line
+``crate_ids.txt``         crate ids as decimal integers; crates are addressed by 4 KiB page, so every id is a
+                          multiple of 4096 (the planted skew: ``identity`` + ``mask`` piles them into one bucket)
+``dock_codes.txt``        short dock-slot codes, two letters and two digits (``KD07``)
+``manifests.csv``         manifests: id, depot, handheld serial, route path, weight (composite keys)
+``scanner_events.jsonl.gz``  scanner events as gzipped JSON Lines with a nested serial and an API path
+
+Run ``python sample_keys/generate.py``; the output is byte-identical on every run.
+"""
+
+from __future__ import annotations
+
+import gzip
+import json
+import string
+from pathlib import Path
+
+import numpy as np
+
+SEED = 20261202
+HERE = Path(__file__).parent
+DEPOTS = ("ANVIL-PIER", "GULLS-REACH", "NORTH-SLIP", "KELP-YARD", "OLD-CUSTOMS", "MARROW-HEAD", "TERN-BAY")
+ROUTE_WORDS = ("anvil", "gulls", "north", "kelp", "customs", "marrow", "tern", "ferry", "barge", "pier")
+
+
+def orders(rng: np.random.Generator) -> list[str]:
+    gaps = rng.choice([1, 1, 1, 1, 2, 3], size=120_000)
+    numbers = 400_000 + np.cumsum(gaps)
+    return [f"MF-26-{n:07d}" for n in numbers]
+
+
+def crate_ids(rng: np.random.Generator) -> list[str]:
+    pages = rng.choice(np.arange(1, 1 << 24, dtype=np.int64), size=40_000, replace=False)
+    return [str(int(p) * 4096) for p in np.sort(pages)]
+
+
+def dock_codes() -> list[str]:
+    letters = string.ascii_uppercase
+    return [f"{a}{b}{n:02d}" for a in letters for b in letters for n in range(100)]
+
+
+def manifests(rng: np.random.Generator) -> str:
+    lines = ["manifest_id,depot,handheld_serial,route,weight_kg"]
+    serials = [f"MFX{int(x):010X}" for x in rng.integers(0, 1 << 40, size=900)]
+    for i in range(40_000):
+        depot = DEPOTS[int(rng.integers(len(DEPOTS)))]
+        serial = serials[int(rng.integers(len(serials)))]
+        a, b = rng.choice(ROUTE_WORDS, size=2, replace=False)
+        route = f"/routes/{a}/{b}/pier-{int(rng.integers(1, 9))}"
+        weight = f"{rng.gamma(2.0, 180.0):.1f}"
+        note_quote = '"' if i % 997 == 0 else ""
+        manifest = f"M{260000 + i:07d}"
+        if note_quote:  # a few ids carry a comma inside quotes, as real exports do
+            manifest = f'"{manifest},R"'
+        lines.append(f"{manifest},{depot},{serial},{route},{weight}")
+    return "\n".join(lines) + "\n"
+
+
+def scanner_events(rng: np.random.Generator) -> bytes:
+    serials = [f"SC-{int(x):08x}" for x in rng.integers(0, 1 << 32, size=400)]
+    out = []
+    for i in range(30_000):
+        event = {
+            "event": i,
+            "scanner": {"serial": serials[int(rng.integers(len(serials)))], "firmware": "4.2.1"},
+            "path": f"/api/v2/parcels/{int(rng.integers(1_000_000, 9_999_999))}/scan",
+            "ok": bool(rng.random() > 0.02),
+        }
+        out.append(json.dumps(event, separators=(",", ":")))
+    text = ("\n".join(out) + "\n").encode()
+    return gzip.compress(text, compresslevel=9, mtime=0)
+
+
+def main() -> None:
+    rng = np.random.default_rng(SEED)
+    (HERE / "orders.txt").write_text("\n".join(orders(rng)) + "\n", encoding="ascii")
+    (HERE / "crate_ids.txt").write_text("\n".join(crate_ids(rng)) + "\n", encoding="ascii")
+    (HERE / "dock_codes.txt").write_text("\n".join(dock_codes()) + "\n", encoding="ascii")
+    (HERE / "manifests.csv").write_text(manifests(rng), encoding="ascii")
+    (HERE / "scanner_events.jsonl.gz").write_bytes(scanner_events(rng))
+
+
+if __name__ == "__main__":
+    main()
