@@ -1,0 +1,89 @@
+"""The bucket-count accumulator: merge, copy, equality, pickling and chunking invariance."""
+
+from __future__ import annotations
+
+import pickle
+
+import numpy as np
+import pytest
+
+from hashaudit.errors import MergeError
+from hashaudit.stats.buckets import BucketCounts
+
+RNG = np.random.default_rng(11)
+HASHES = RNG.integers(0, 2**64, size=10_000, dtype=np.uint64)
+
+
+class TestBucketCounts:
+    scheme = "mask"
+    buckets = 1024
+    width = 64
+
+    def make(self) -> BucketCounts:
+        return BucketCounts("h", 0, self.scheme, self.buckets, self.width)
+
+    def whole(self) -> BucketCounts:
+        return self.make().update(HASHES)
+
+    @pytest.mark.parametrize("chunk", [1, 2, 50, len(HASHES), len(HASHES) + 42])
+    def test_chunking_does_not_change_the_result(self, chunk):
+        acc = self.make()
+        for start in range(0, len(HASHES), chunk):
+            acc.update(HASHES[start : start + chunk])
+        assert acc == self.whole()
+        assert acc.result().keys == len(HASHES)
+
+    def test_merge_of_partitions_equals_one_pass(self):
+        parts = np.array_split(HASHES, 7)
+        accs = [self.make().update(p) for p in parts]
+        left = accs[0].copy()
+        for a in accs[1:]:
+            left.merge(a)
+        right = accs[-1].copy()
+        for a in reversed(accs[:-1]):
+            right.merge(a)
+        assert left == right == self.whole()
+
+    def test_counts_match_bincount_and_sum_to_n(self):
+        result = self.whole().result()
+        assert result.counts.sum() == len(HASHES)
+        assert result.load_factor == len(HASHES) / self.buckets
+        assert result.occupancy().sum() == self.buckets
+
+    def test_merge_refuses_other_settings(self):
+        other = BucketCounts("h", 1, self.scheme, self.buckets, self.width)
+        with pytest.raises(MergeError, match="settings differ"):
+            self.make().merge(other)
+        with pytest.raises(MergeError):
+            self.make().merge(BucketCounts("g", 0, self.scheme, self.buckets, self.width))
+
+    def test_copy_is_independent_and_pickles(self):
+        acc = self.whole()
+        twin = acc.copy()
+        twin.update(HASHES[:5])
+        assert twin != acc
+        assert pickle.loads(pickle.dumps(acc)) == acc
+
+    def test_result_is_frozen(self):
+        result = self.whole().result()
+        with pytest.raises(ValueError):
+            result.counts[0] = 5
+
+
+class TestBucketCountsMod(TestBucketCounts):
+    scheme = "mod"
+    buckets = 1021
+
+
+class TestBucketCountsRange32(TestBucketCounts):
+    scheme = "range"
+    buckets = 1000
+    width = 32
+
+    def whole(self) -> BucketCounts:
+        return self.make().update(HASHES)
+
+
+class TestBucketCountsHigh(TestBucketCounts):
+    scheme = "high"
+    buckets = 4096
