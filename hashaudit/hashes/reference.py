@@ -10,6 +10,7 @@ from hashaudit.keys.batch import KeyBatch
 
 
 def _blake2b_key(seed: int) -> bytes:
+    seed %= 1 << 128  # like every other seeded entry: the seed is taken modulo the key size
     return seed.to_bytes(16, "little") if seed else b""
 
 

@@ -156,7 +156,17 @@ class HashRegistry:
         for entry in entry_points(group=ENTRY_POINT_GROUP):
             if entry.name in self._specs:
                 continue
-            self.register(_spec_from_object(entry.name, entry.load()))
+            try:
+                spec = _spec_from_object(entry.name, entry.load())
+            except Exception as exc:  # a broken plugin must not break the registry: report it in one line
+                raise UnknownHashError(
+                    f"hash plugin {entry.name!r} ({getattr(entry, 'value', '?')}) cannot be loaded: {exc}"
+                ) from None
+            if spec.name != entry.name:
+                spec = HashSpec(
+                    entry.name, spec.width, spec.seeded, spec.path, spec.loader, spec.description, spec.integer_keys
+                )
+            self.register(spec)
 
     def names(self) -> list[str]:
         """Every registered name, built-ins first in registry order."""
@@ -200,9 +210,11 @@ def _spec_from_object(name: str, obj: Any) -> HashSpec:
     if not callable(obj):
         raise UnknownHashError(f"hash {name!r}: {obj!r} is not callable")
     width = int(getattr(obj, "hash_width", 64))
+    seeded = bool(getattr(obj, "seeded", False))
     if getattr(obj, "batch", False):
-        return HashSpec(name, width, bool(getattr(obj, "seeded", False)), "kernel", obj, "user batch function")
-    return from_callable(name, obj, width=width)
+        path = str(getattr(obj, "hash_path", "per-key"))
+        return HashSpec(name, width, seeded, path, obj, "user batch function")
+    return from_callable(name, obj, width=width, seeded=seeded)
 
 
 def from_callable(name: str, function: Callable[..., int], *, width: int = 64, seeded: bool = False) -> HashSpec:
