@@ -41,8 +41,9 @@ class TableSize(click.ParamType):
         self.fail(f"{value!r} is not a table size (examples: 65536, 2^16, 64k)", param, ctx)
 
 
-def _debug_requested() -> bool:
-    return "--debug" in sys.argv or os.environ.get("HASHAUDIT_DEBUG") == "1"
+def _debug_requested(argv: list[str] | None = None) -> bool:
+    args = sys.argv[1:] if argv is None else argv
+    return "--debug" in args or os.environ.get("HASHAUDIT_DEBUG") == "1"
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -223,7 +224,7 @@ def main(argv: list[str] | None = None) -> None:
         click.echo("hashaudit: interrupted", err=True)
         code = 130
     except HashAuditError as exc:
-        if _debug_requested():
+        if _debug_requested(argv):
             traceback.print_exc()
         click.echo(f"hashaudit: error: {exc}", err=True)
         code = EXIT_ERROR
@@ -234,7 +235,7 @@ def main(argv: list[str] | None = None) -> None:
         click.echo("hashaudit: error: out of memory (try smaller --buckets)", err=True)
         code = EXIT_ERROR
     except OSError as exc:
-        if _debug_requested():
+        if _debug_requested(argv):
             traceback.print_exc()
         where = f" {exc.filename!r}" if getattr(exc, "filename", None) else ""
         click.echo(f"hashaudit: error:{where} {exc.strerror or exc}", err=True)
@@ -242,7 +243,7 @@ def main(argv: list[str] | None = None) -> None:
     except SystemExit as exc:
         code = exc.code if isinstance(exc.code, int) else EXIT_ERROR
     except Exception as exc:  # a bug: still one line, and the way to see more
-        if _debug_requested():
+        if _debug_requested(argv):
             traceback.print_exc()
         click.echo(f"hashaudit: internal error: {type(exc).__name__}: {exc} (rerun with --debug)", err=True)
         code = EXIT_ERROR

@@ -54,17 +54,17 @@ class AuditPlan:
             if scheme not in SCHEMES:
                 raise UsageError(f"unknown scheme {scheme!r}; choose one of {', '.join(SCHEMES)}")
         for m in self.buckets:
-            if self.schemes:
-                for scheme in self.schemes:
-                    check_scheme(scheme, m)
-            else:
-                check_scheme("mod", m)
+            check_scheme("mod", m)
+            usable = [s for s in self.schemes if s not in ("mask", "high") or is_power_of_two(m)]
+            if self.schemes and not usable:
+                check_scheme(self.schemes[0], m)  # raises the one-line explanation
         if not 0 <= self.seed < 1 << 128:
             raise UsageError(f"--seed must be between 0 and 2^128 - 1, not {self.seed}")
 
     def tables(self, keys: int | None) -> list[tuple[str, int]]:
         """The (scheme, m) pairs to count; ``keys`` is needed when sizes are automatic."""
         if self.buckets:
+            # a power-of-two-only scheme skips sizes another requested scheme can use (checked in __post_init__)
             sizes, primes = list(self.buckets), []
         else:
             if keys is None:

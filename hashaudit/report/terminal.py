@@ -1,12 +1,17 @@
-"""The terminal report: a ranked table, worst findings first, each with its plain-language sentence."""
+"""The terminal report: a ranked table, worst first, one line per table with its plain-language sentence."""
 
 from __future__ import annotations
 
+from collections import OrderedDict
+
 import click
 
+from hashaudit.verdict.findings import VERDICT_ORDER, Finding
 from hashaudit.verdict.result import AuditResult
 
 _COLOURS = {"fail": "red", "warn": "yellow", "info": "cyan", "pass": "green"}
+# Which finding speaks for a table: the one whose sentence is in the most operational units.
+_SPOKESMAN = ("colliding_pairs", "max_load", "empty_buckets", "chi_square", "g_test")
 HASH_FLOODING_NOTE = (
     "Note: these are statistics on these keys, not a security property. A non-cryptographic hash that passes\n"
     "every check can still be attacked with crafted keys (hash flooding); for keys an adversary controls, use\n"
@@ -19,8 +24,30 @@ def _tag(verdict: str, colour: bool) -> str:
     return click.style(text, fg=_COLOURS[verdict], bold=verdict == "fail") if colour else text
 
 
+def _grouped(findings: list[Finding]) -> list[tuple[str, list[Finding]]]:
+    """Findings per (hash, table), each group led by its worst verdict, groups ranked worst first."""
+    groups: OrderedDict[tuple[str, str], list[Finding]] = OrderedDict()
+    for f in findings:
+        groups.setdefault((f.hash_name, f.table), []).append(f)
+    ranked = []
+    for members in groups.values():
+        worst = min(VERDICT_ORDER[f.verdict] for f in members)
+        verdict = next(v for v, rank in VERDICT_ORDER.items() if rank == worst)
+        ranked.append((verdict, members))
+    ranked.sort(key=lambda item: (VERDICT_ORDER[item[0]], min(f.p_adjusted for f in item[1])))
+    return ranked
+
+
+def _line(verdict: str, members: list[Finding]) -> str:
+    same = [f for f in members if f.verdict == verdict]
+    speaker = min(same, key=lambda f: _SPOKESMAN.index(f.check) if f.check in _SPOKESMAN else 99)
+    others = [f.check for f in same if f is not speaker]
+    tail = f" [also {', '.join(others)}]" if others else ""
+    return f"{speaker.message}{tail}"
+
+
 def render(result: AuditResult, *, show_all: bool = False, colour: bool = False) -> str:
-    """The report as text. Passing findings are summarised per hash unless ``show_all``."""
+    """The report as text: one line per (hash, table) that did not pass (every check with ``show_all``)."""
     lines = []
     counts = {v: 0 for v in ("fail", "warn", "info", "pass")}
     for f in result.findings:
@@ -36,16 +63,21 @@ def render(result: AuditResult, *, show_all: bool = False, colour: bool = False)
         f"family-wise alpha {result.settings['thresholds']['alpha']})"
     )
     lines.append("")
-    shown = [f for f in result.findings if show_all or f.verdict != "pass"]
-    if shown:
-        width_hash = max(len(f.hash_name) for f in shown)
-        width_table = max(len(f.table) for f in shown)
-        width_check = max(len(f.check) for f in shown)
-        for f in shown:
-            lines.append(
-                f"{_tag(f.verdict, colour)}  {f.hash_name:<{width_hash}}  {f.table:<{width_table}}  "
-                f"{f.check:<{width_check}}  {f.message}"
-            )
+    rows: list[tuple[str, str, str, str, str]] = []
+    if show_all:
+        for f in result.findings:
+            rows.append((f.verdict, f.hash_name, f.table, f.check, f.message))
+    else:
+        for verdict, members in _grouped(result.findings):
+            if verdict != "pass":
+                rows.append((verdict, members[0].hash_name, members[0].table, "", _line(verdict, members)))
+    if rows:
+        w_hash = max(len(r[1]) for r in rows)
+        w_table = max(len(r[2]) for r in rows)
+        w_check = max(len(r[3]) for r in rows)
+        for verdict, hash_name, table, check, message in rows:
+            check_cell = f"{check:<{w_check}}  " if w_check else ""
+            lines.append(f"{_tag(verdict, colour)}  {hash_name:<{w_hash}}  {table:<{w_table}}  {check_cell}{message}")
         lines.append("")
     for h in result.hashes:
         passed = sum(1 for f in h.findings if f.verdict == "pass")

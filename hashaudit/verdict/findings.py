@@ -119,14 +119,25 @@ def table_label(scheme: str, buckets: int) -> str:
 
 
 def _num(x: float) -> str:
-    """A number for a sentence: 3 significant digits, thousands separators for large values."""
+    """A number for a sentence: thousands separators, or M/G suffixes for large values."""
     if not math.isfinite(x):
         return "∞"
+    if abs(x) >= 1e9:
+        return f"{x / 1e9:.3g} G"
     if abs(x) >= 1e6:
-        return f"{x:.3g}"
+        return f"{x / 1e6:.3g} M"
     if abs(x) >= 100 or float(x).is_integer():
         return f"{x:,.0f}"
     return f"{x:.3g}"
+
+
+def _pct(fraction: float) -> str:
+    return f"{100 * fraction:.2f} %" if 0 < abs(fraction) < 0.1 or abs(fraction) > 0.999 else f"{100 * fraction:.1f} %"
+
+
+def _excess(relative: float) -> str:
+    """+12.3 % for moderate excesses, 3.4× for large ones."""
+    return f"{_num(relative + 1)}× the ideal" if relative >= 1 else f"{100 * relative:+.1f} %"
 
 
 def _p(p: float) -> str:
@@ -137,22 +148,21 @@ def _skew_sentence(test: FitTest) -> str:
     e = test.effect
     if e.name == "lookup_cost_excess":
         core = (
-            f"a successful chained lookup costs {e.observed:.3g} probes against {e.ideal:.3g} for an ideal hash "
-            f"({e.value:+.1%})"
+            f"a successful chained lookup costs {_num(e.observed)} probes against {_num(e.ideal)} for an ideal hash "
+            f"({_excess(e.value)})"
         )
         if test.name == "colliding_pairs":
             return f"{_num(test.observed)} colliding pairs against {_num(test.expected)} expected; {core}"
-        if test.name == "chi_square":
-            return f"bucket counts more uneven than random (χ² = {_num(test.statistic)} vs {_num(test.expected)}); {core}"
-        return f"bucket counts more uneven than random (G = {_num(test.statistic)} vs {_num(test.expected)}); {core}"
+        symbol = "χ²" if test.name == "chi_square" else "G"
+        return f"bucket counts more uneven than random ({symbol} = {_num(test.statistic)} vs {_num(test.expected)}); {core}"
     if e.name == "empty_excess":
         return (
-            f"{e.observed:.1%} of buckets stay empty against {e.ideal:.1%} for an ideal hash "
+            f"{_pct(e.observed)} of buckets stay empty against {_pct(e.ideal)} for an ideal hash "
             f"({100 * e.value:+.1f} points)"
         )
     return (
         f"the hottest bucket holds {_num(e.observed)} keys against an expected maximum of {_num(e.ideal)} "
-        f"({e.value:.2f}×)"
+        f"({e.value:,.3g}×)"
     )
 
 

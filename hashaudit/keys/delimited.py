@@ -1,0 +1,156 @@
+"""Keys from one or more columns of a delimited file (CSV with RFC 4180 quoting, or TSV without quoting).
+
+pyarrow's streaming CSV reader does the parsing, with the key columns read as ``large_binary`` so a field's
+bytes reach the hash unchanged (no type inference: ``007`` stays ``007``, ``NULL`` stays ``NULL``). A column
+given by number needs the header's names before the reader opens, so the first row is read ahead with the
+standard :mod:`csv` module and then replayed to pyarrow.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from collections.abc import Iterator
+
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.csv as pa_csv
+
+from hashaudit.errors import InputError, UsageError
+from hashaudit.keys.batch import KeyBatch
+from hashaudit.keys.open import PrefixedReader, Readable
+from hashaudit.keys.options import SourceOptions
+from hashaudit.keys.records import RecordBatch, SourceStats
+
+CSV_BLOCK_BYTES = 4 << 20
+"""Bytes pyarrow parses per block (tests shrink it)."""
+
+_PROBE_BYTES = 1 << 16
+_MAX_FIRST_ROW_BYTES = 64 << 20
+_LISTED_COLUMNS = 20
+
+
+def delimiter_for(fmt: str, options: SourceOptions) -> str:
+    """The delimiter in force: ``options.delimiter``, else comma for csv and tab for tsv."""
+    delimiter = options.delimiter if options.delimiter is not None else ("," if fmt == "csv" else "\t")
+    if len(delimiter) != 1 or len(delimiter.encode("utf-8")) != 1 or delimiter in '\r\n"':
+        raise UsageError(f"--delimiter {delimiter!r} must be one ASCII character other than a quote, CR or LF")
+    return delimiter
+
+
+def _first_row(stream: Readable, name: str, delimiter: str, quoted: bool) -> tuple[bytes, list[str] | None]:
+    """Read ahead until the first non-empty row is complete; return the bytes read and that row (None: no rows)."""
+    prefix = b""
+    while True:
+        chunk = stream.read(max(_PROBE_BYTES, len(prefix)))
+        prefix += chunk or b""
+        text = prefix.decode("utf-8-sig", "replace")
+        buffer = io.StringIO(text, newline="")
+        reader = csv.reader(buffer, delimiter=delimiter, quoting=csv.QUOTE_MINIMAL if quoted else csv.QUOTE_NONE)
+        try:
+            row = next((r for r in reader if r), None)
+        except csv.Error as exc:
+            raise InputError(f"{name}: cannot read the first row: {exc}") from None
+        # The row is whole once text follows it, or when the input has ended.
+        if not chunk or buffer.tell() < len(text):
+            return prefix, row
+        if len(prefix) > _MAX_FIRST_ROW_BYTES:
+            raise InputError(f"{name}: the first row is longer than {_MAX_FIRST_ROW_BYTES >> 20} MiB")
+
+
+def _listing(names: list[str]) -> str:
+    shown = ", ".join(repr(n) for n in names[:_LISTED_COLUMNS])
+    return shown + (f", ... ({len(names)} in all)" if len(names) > _LISTED_COLUMNS else "")
+
+
+def resolve_columns(columns: tuple[str, ...], names: list[str], header: bool, name: str) -> list[str]:
+    """Map each requested column (a header name, or a 0-based number) to the reader's column name.
+
+    A header name wins over a number, so a column titled ``2024`` is found by its title.
+
+    Raises
+    ------
+    InputError
+        A column the file does not have (the message lists the columns it has).
+    UsageError
+        A column given by name when the file has no header.
+    """
+    resolved = []
+    for column in columns or ("0",):
+        if header and column in names:
+            resolved.append(column)
+        elif column.isascii() and column.isdigit():
+            index = int(column)
+            if index >= len(names):
+                have = f"the header has {_listing(names)}" if header else f"the first row has {len(names)} fields"
+                raise InputError(f"{name}: no column {index} (numbered from 0); {have}")
+            resolved.append(names[index])
+        elif not header:
+            raise UsageError(f"--column {column!r}: with --no-header, give columns as 0-based numbers")
+        else:
+            raise InputError(f"{name}: no column {column!r}; the header has {_listing(names)}")
+    return resolved
+
+
+def read_delimited(
+    stream: Readable, name: str, fmt: str, options: SourceOptions, stats: SourceStats
+) -> Iterator[RecordBatch]:
+    """Yield the key column(s) of a csv or tsv stream, joined with ``options.join`` when there are several.
+
+    Parameters
+    ----------
+    stream : binary file-like
+        The decompressed source.
+    name : str
+        How messages name the source.
+    fmt : {"csv", "tsv"}
+        csv follows RFC 4180 (quoted fields may hold delimiters, quotes and line breaks); tsv has no quoting,
+        so quotes are ordinary bytes of a key.
+    options : SourceOptions
+        Uses ``columns``, ``join``, ``delimiter``, ``header`` and ``batch_keys``.
+    stats : SourceStats
+        ``records`` counts data rows.
+
+    Yields
+    ------
+    RecordBatch
+        Keys numbered by data row (1-based, the header not counted). An empty field is an empty key.
+
+    Raises
+    ------
+    InputError
+        Missing column, ragged rows or any other parse error (pyarrow's message on one line).
+    """
+    delimiter = delimiter_for(fmt, options)
+    quoted = fmt == "csv"
+    prefix, first = _first_row(stream, name, delimiter, quoted)
+    if first is None:
+        return
+    names = first if options.header else [f"f{i}" for i in range(len(first))]
+    columns = resolve_columns(options.columns, names, options.header, name)
+    wanted = list(dict.fromkeys(columns))
+    reader_options = pa_csv.ReadOptions(block_size=CSV_BLOCK_BYTES, autogenerate_column_names=not options.header)
+    parse_options = pa_csv.ParseOptions(
+        delimiter=delimiter, quote_char='"' if quoted else False, newlines_in_values=quoted
+    )
+    convert_options = pa_csv.ConvertOptions(
+        column_types={c: pa.large_binary() for c in wanted}, include_columns=wanted, strings_can_be_null=False
+    )
+    separator = pa.scalar(options.join.encode("utf-8"), pa.large_binary())
+    rows = 0
+    try:
+        reader = pa_csv.open_csv(PrefixedReader(prefix, stream), reader_options, parse_options, convert_options)
+        for table in reader:
+            parts = [table.column(c) for c in columns]
+            parts = [p.fill_null(b"") if p.null_count else p for p in parts]
+            joined = parts[0] if len(parts) == 1 else pc.binary_join_element_wise(*parts, separator)
+            keys = KeyBatch.from_arrow(joined)
+            stats.records += len(keys)
+            for start in range(0, len(keys), options.batch_keys):
+                stop = min(start + options.batch_keys, len(keys))
+                yield RecordBatch(keys.slice(start, stop), rows + start + 1)
+            rows += len(keys)
+    except pa.ArrowException as exc:
+        detail = " ".join(str(exc).split())
+        where = f" (after data row {rows})" if rows else ""
+        raise InputError(f"{name}: {detail}{where}") from None

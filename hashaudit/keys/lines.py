@@ -1,0 +1,207 @@
+"""One key per line, byte for byte.
+
+The stream is read in blocks of :data:`BLOCK_BYTES`; each block's complete lines are copied out without
+their LF by a numba kernel (one pass; a second kernel also drops the CR of a CRLF, used once a file shows
+CRs) and the unfinished last line moves on to the next block, so memory stays near one block whatever the
+file size. A block whose lines all have the same length takes a strided-copy shortcut instead. Nothing else
+is touched: commas, quotes, tabs and a CR that is not followed by an LF stay in the key.
+"""
+
+from __future__ import annotations
+
+import codecs
+from collections.abc import Iterator
+
+import numpy as np
+
+from hashaudit.errors import InputError
+from hashaudit.keys._kernels import CR, LF, split_lines, split_lines_drop_cr
+from hashaudit.keys.batch import KeyBatch
+from hashaudit.keys.open import SNIFF_BYTES, Readable, sniff_compression
+from hashaudit.keys.records import RecordBatch
+
+BLOCK_BYTES = 16 << 20
+"""Bytes read per block (tests shrink it to cross block boundaries everywhere)."""
+
+_RAW_HINT = "use --raw-bytes to hash arbitrary bytes"
+
+
+def _fill(stream: Readable, view: memoryview) -> int:
+    """Read until ``view`` is full or the stream ends; return the bytes read."""
+    total = 0
+    while total < len(view):
+        n = stream.readinto(view[total:])
+        if not n:
+            break
+        total += n
+    return total
+
+
+def _find_lf(view: np.ndarray, last: bool) -> int:
+    """Position of the first (or last) LF in ``view``, -1 if none; looks at a growing window from that end."""
+    size = len(view)
+    window = 4096
+    while True:
+        low = max(size - window, 0) if last else 0
+        high = size if last else min(window, size)
+        hits = np.flatnonzero(view[low:high] == LF)
+        if len(hits):
+            return low + int(hits[-1] if last else hits[0])
+        if window >= size:
+            return -1
+        window *= 16
+
+
+def _fixed_width(region: np.ndarray, lines: int, drop_cr: bool) -> tuple[np.ndarray, np.ndarray] | None:
+    """Split ``region`` (``lines`` complete lines) with one strided copy when every line has the same length."""
+    width = _find_lf(region, last=False)
+    if lines * (width + 1) != len(region):
+        return None
+    rows = region.reshape(lines, width + 1)
+    if not np.all(rows[:, width] == LF):
+        return None
+    if drop_cr and width:
+        ends_with_cr = rows[:, width - 1] == CR
+        if ends_with_cr.all():
+            width -= 1
+        elif ends_with_cr.any():
+            return None
+    data = rows[:, :width].copy().reshape(-1)  # a copy even when contiguous: the read buffer is reused
+    return data, np.arange(lines + 1, dtype=np.int64) * width
+
+
+class _Splitter:
+    """Splits regions into keys, remembering whether the input has CRs (a CRLF file keeps having them)."""
+
+    def __init__(self, drop_cr: bool) -> None:
+        self.drop_cr = drop_cr
+        self.saw_cr = False
+
+    def split(self, region: np.ndarray, lines: int, final: bool) -> tuple[np.ndarray, np.ndarray]:
+        """Keys of ``region``: its ``lines`` LF-terminated lines, plus the unterminated rest when ``final``."""
+        tail = final and len(region) > 0 and region[-1] != LF
+        if not tail and lines:
+            fixed = _fixed_width(region, lines, self.drop_cr)
+            if fixed is not None:
+                return fixed
+        out = np.empty(len(region) - lines + 1, dtype=np.uint8)  # +1: the branch-free kernel stores each LF too
+        offsets = np.empty(lines + 2, dtype=np.int64)
+        crs = 0
+        if not (self.drop_cr and self.saw_cr):
+            _, crs = split_lines(region, len(region), out, offsets)
+        if self.drop_cr and (self.saw_cr or crs):
+            self.saw_cr = True
+            split_lines_drop_cr(region, len(region), out, offsets)
+        keys = lines + 1 if tail else lines
+        offsets = offsets[: keys + 1]
+        return out[: offsets[-1]], offsets
+
+
+class _TextCheck:
+    """Refuses NUL bytes and invalid UTF-8 with a message that says where and what to do."""
+
+    def __init__(self, name: str, hint: str | None) -> None:
+        self.name = name
+        self.hint = f"; {hint}" if hint else ""
+
+    def check(self, region: np.ndarray, first_line: int, stream_offset: int) -> None:
+        try:
+            text, _ = codecs.utf_8_decode(region.data, "strict", True)
+        except UnicodeDecodeError as exc:
+            self._no_nul(region, stream_offset)
+            line_start = _find_lf(region[: exc.start], last=True) + 1
+            line = first_line + int(np.count_nonzero(region[: exc.start] == LF))
+            raise InputError(
+                f"{self.name} line {line}: not valid UTF-8 (byte 0x{region[exc.start]:02x} at byte "
+                f"{exc.start - line_start + 1} of the line){self.hint}"
+            ) from None
+        if "\x00" in text:
+            self._no_nul(region, stream_offset)
+
+    def _no_nul(self, region: np.ndarray, stream_offset: int) -> None:
+        nul = np.flatnonzero(region == 0)
+        if not len(nul):
+            return
+        where = ""
+        kind = sniff_compression(region[:SNIFF_BYTES].tobytes()) if stream_offset == 0 else None
+        if kind is not None:
+            where = f" (it starts like {kind} data: give the file its compression suffix)"
+        raise InputError(
+            f"{self.name}: looks like a binary file (NUL byte at offset {stream_offset + int(nul[0])}){self.hint}"
+            f"{where}"
+        )
+
+
+def read_lines(
+    stream: Readable,
+    name: str,
+    *,
+    keep_cr: bool = False,
+    check_text: bool = True,
+    batch_keys: int = 1 << 20,
+    hint: str | None = _RAW_HINT,
+    block_bytes: int | None = None,
+) -> Iterator[RecordBatch]:
+    """Yield the lines of ``stream`` as keys, in batches of at most ``batch_keys``.
+
+    Parameters
+    ----------
+    stream : binary file-like
+        Supports ``readinto``.
+    name : str
+        How messages name the source.
+    keep_cr : bool
+        Keep a CR that ends a line (before its LF) as part of the key.
+    check_text : bool
+        Refuse NUL bytes and invalid UTF-8 (``InputError`` naming the offset or line).
+    batch_keys : int
+        Most keys per batch.
+    hint : str or None
+        Advice appended to the binary / UTF-8 errors.
+    block_bytes : int or None
+        Bytes per read; default :data:`BLOCK_BYTES`.
+
+    Yields
+    ------
+    RecordBatch
+        Keys with 1-based line numbers. A file ending in LF has no extra empty key after it; an
+        unterminated last line is a key.
+    """
+    block = int(block_bytes or BLOCK_BYTES)
+    slack = block // 8  # room for the unfinished line carried over, so the buffer is rarely reallocated
+    checker = _TextCheck(name, hint) if check_text else None
+    splitter = _Splitter(drop_cr=not keep_cr)
+    buf = np.empty(block + slack, dtype=np.uint8)
+    have = 0
+    line_no = 1
+    stream_offset = 0
+    eof = False
+    while not eof:
+        if len(buf) - have < block:  # a long line is being carried: grow geometrically, not block by block
+            grown = np.empty(max(have + block + slack, 2 * len(buf)), dtype=np.uint8)
+            grown[:have] = buf[:have]
+            buf = grown
+        got = _fill(stream, buf.data[have : have + block])
+        have += got
+        eof = got < block
+        if eof:
+            end = have
+        else:
+            end = _find_lf(buf[:have], last=True) + 1
+            if end == 0:
+                continue  # no complete line yet: read on
+        region = buf[:end]
+        lines = int(np.count_nonzero(region == LF))
+        if checker is not None:
+            checker.check(region, line_no, stream_offset)
+        data, offsets = splitter.split(region, lines, eof)
+        keys = len(offsets) - 1
+        for start in range(0, keys, batch_keys):
+            stop = min(start + batch_keys, keys)
+            yield RecordBatch(KeyBatch(data, offsets[start : stop + 1]), line_no + start)
+        del data, offsets  # the consumer may keep its batches; this generator need not keep them too
+        line_no += keys
+        stream_offset += end
+        carry = have - end
+        buf[:carry] = buf[end:have]
+        have = carry

@@ -1,0 +1,73 @@
+"""What a source hands on: keys with the numbers of the records they came from, and running counts."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from hashaudit.keys.batch import KeyBatch
+
+
+@dataclass
+class SourceStats:
+    """Counts gathered while a source is read.
+
+    Attributes
+    ----------
+    records : int
+        Records read: lines of a text or JSON Lines file, data rows of a delimited file.
+    keys : int
+        Keys handed on, after every normalisation and skip.
+    empty_keys : int
+        Of ``keys``, how many are empty (zero bytes).
+    skipped : dict of str to int
+        Records dropped, by reason: ``pattern_no_match``, ``empty``, ``null``, ``blank_line``.
+    bytes_read : int
+        Bytes taken from the file or pipe (compressed bytes for a compressed file), for progress against
+        ``KeyStream.size_bytes``.
+    """
+
+    records: int = 0
+    keys: int = 0
+    empty_keys: int = 0
+    skipped: dict[str, int] = field(default_factory=dict)
+    bytes_read: int = 0
+
+    def skip(self, reason: str, count: int = 1) -> None:
+        """Count ``count`` records dropped for ``reason``."""
+        if count:
+            self.skipped[reason] = self.skipped.get(reason, 0) + int(count)
+
+
+@dataclass(frozen=True)
+class RecordBatch:
+    """Keys of one batch and where they came from, so an error can name the line or row.
+
+    Parameters
+    ----------
+    keys : KeyBatch
+        The keys.
+    first_record : int
+        1-based number of the record of key 0.
+    records : numpy.ndarray of int64 or None
+        Record number of every key when they are not ``first_record, first_record + 1, ...``.
+    """
+
+    keys: KeyBatch
+    first_record: int
+    records: np.ndarray | None = None
+
+    def record_of(self, index: int) -> int:
+        """1-based record number of key ``index``."""
+        if self.records is None:
+            return self.first_record + int(index)
+        return int(self.records[index])
+
+    def subset(self, keys: KeyBatch, kept: np.ndarray | None) -> RecordBatch:
+        """The batch after a step that kept only the keys at positions ``kept`` (None: all of them)."""
+        if kept is None:
+            return RecordBatch(keys, self.first_record, self.records)
+        if self.records is None:
+            return RecordBatch(keys, self.first_record, self.first_record + kept.astype(np.int64))
+        return RecordBatch(keys, self.first_record, self.records[kept])

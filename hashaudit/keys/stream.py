@@ -1,0 +1,186 @@
+"""``open_keys``: a source path and ``SourceOptions`` in, a lazy stream of ``KeyBatch`` out."""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Iterator
+from typing import Any
+
+import numpy as np
+
+from hashaudit.errors import InputError, UsageError
+from hashaudit.keys.batch import KeyBatch
+from hashaudit.keys.encode import Normaliser
+from hashaudit.keys.lines import read_lines
+from hashaudit.keys.open import (
+    STDIN,
+    Readable,
+    compression_for,
+    display_name,
+    format_for,
+    open_source,
+    source_size,
+)
+from hashaudit.keys.options import SOURCE_FORMATS, SourceOptions
+from hashaudit.keys.records import RecordBatch, SourceStats
+
+_DELIMITED = ("csv", "tsv")
+_DEFAULT_OPTIONS = SourceOptions()
+
+
+def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
+    """Refuse options that cannot work, or that the chosen format would silently ignore."""
+    if not isinstance(options.batch_keys, int) or options.batch_keys < 1:
+        raise UsageError(f"batch_keys must be a positive integer, not {options.batch_keys!r}")
+    if fmt not in _DELIMITED:
+        if options.columns:
+            raise UsageError(
+                f"--column {', '.join(options.columns)} applies to csv and tsv sources, but {name} is read as "
+                f"{fmt} (use --format csv or --format tsv)"
+            )
+        if options.delimiter is not None:
+            raise UsageError(f"--delimiter applies to csv and tsv sources, but {name} is read as {fmt}")
+    if fmt == "jsonl":
+        if not options.field:
+            raise InputError(f"{name}: --field is required for JSON Lines (the dotted path of the key, e.g. user.id)")
+    elif options.field is not None:
+        raise UsageError(f"--field applies to JSON Lines sources, but {name} is read as {fmt} (use --format jsonl)")
+
+
+class KeyStream:
+    """The keys of one source, read lazily, batch by batch; iterate it once.
+
+    Use :func:`open_keys` to make one.
+
+    Attributes
+    ----------
+    stats : SourceStats
+        Counts, filled in while iterating.
+    description : dict
+        JSON-able account of how the keys are read: ``source``, ``format``, ``compression``,
+        ``key_format``, ``columns``, ``field`` and the normalisation flags. For standard input,
+        ``compression`` is known only once iteration has started.
+    size_bytes : int or None
+        On-disk size of the source when it is a regular file (for progress against ``stats.bytes_read``).
+    """
+
+    def __init__(self, source: str | os.PathLike[str], options: SourceOptions = _DEFAULT_OPTIONS) -> None:
+        path = os.fsdecode(os.fspath(source))
+        self._source = path
+        self._name = display_name(path)
+        if options.format not in SOURCE_FORMATS:
+            raise UsageError(f"unknown source format {options.format!r}; choose one of {', '.join(SOURCE_FORMATS)}")
+        self._format = format_for(path) if options.format == "auto" else options.format
+        _check_options(options, self._format, self._name)
+        self._options = options
+        self._normaliser = Normaliser(options)
+        delimiter = None
+        if self._format in _DELIMITED:
+            from hashaudit.keys.delimited import delimiter_for
+
+            delimiter = delimiter_for(self._format, options)
+        elif self._format == "jsonl":
+            from hashaudit.keys.jsonl import split_field_path
+
+            split_field_path(options.field or "")
+        self.size_bytes = source_size(path)
+        self.stats = SourceStats()
+        self.description: dict[str, Any] = {
+            "source": path if path != STDIN else "-",
+            "format": self._format,
+            "compression": compression_for(path),
+            "key_format": options.key_format,
+            "columns": list(options.columns or ("0",)) if self._format in _DELIMITED else [],
+            "join": options.join if len(options.columns) > 1 else None,
+            "field": options.field,
+            "delimiter": delimiter,
+            "header": options.header if self._format in _DELIMITED else None,
+            "pattern": options.pattern,
+            "strip": options.strip,
+            "lowercase": options.lowercase,
+            "skip_empty": options.skip_empty,
+            "keep_cr": options.keep_cr,
+            "raw_bytes": options.raw_bytes,
+        }
+        self._used = False
+
+    def __repr__(self) -> str:
+        return f"KeyStream({self._name!r}, format={self._format!r})"
+
+    def __iter__(self) -> Iterator[KeyBatch]:
+        if self._used:
+            raise RuntimeError(f"the KeyStream of {self._name} was already iterated; call open_keys again")
+        self._used = True
+        return self._batches()
+
+    def _records(self, stream: Readable) -> Iterator[RecordBatch]:
+        o = self._options
+        if self._format in _DELIMITED:
+            from hashaudit.keys.delimited import read_delimited
+
+            yield from read_delimited(stream, self._name, self._format, o, self.stats)
+        elif self._format == "jsonl":
+            from hashaudit.keys.jsonl import read_jsonl
+
+            yield from read_jsonl(stream, self._name, o.field or "", self.stats, o.batch_keys)
+        else:
+            for records in read_lines(
+                stream, self._name, keep_cr=o.keep_cr, check_text=not o.raw_bytes, batch_keys=o.batch_keys
+            ):
+                self.stats.records += len(records.keys)
+                yield records
+
+    def _locate(self, record: int) -> str:
+        return f"{self._name} {'row' if self._format in _DELIMITED else 'line'} {record}"
+
+    def _batches(self) -> Iterator[KeyBatch]:
+        stats = self.stats
+        normaliser = None if self._normaliser.is_identity else self._normaliser
+        with open_source(self._source) as opened:
+            self.description["compression"] = opened.compression
+            for records in self._records(opened.stream):
+                if normaliser is not None:
+                    records = normaliser.apply(records, stats, self._locate)
+                stats.bytes_read = opened.bytes_read
+                keys = records.keys
+                if len(keys):
+                    stats.keys += len(keys)
+                    stats.empty_keys += int(np.count_nonzero(keys.offsets[1:] == keys.offsets[:-1]))
+                    yield keys
+            stats.bytes_read = opened.bytes_read
+        if stats.keys == 0:
+            raise InputError(self._no_keys_message())
+
+    def _no_keys_message(self) -> str:
+        stats = self.stats
+        if not stats.records and not stats.skipped:
+            return f"{self._name}: no keys"
+        skipped = ", ".join(f"{reason} {count}" for reason, count in sorted(stats.skipped.items()))
+        return f"{self._name}: no keys ({stats.records} records read" + (f"; skipped: {skipped})" if skipped else ")")
+
+
+def open_keys(source: str | os.PathLike[str], options: SourceOptions = _DEFAULT_OPTIONS) -> KeyStream:
+    """Open a key source; reading starts when the returned stream is iterated.
+
+    Parameters
+    ----------
+    source : str or path-like
+        A file (compressed by suffix: ``.gz``, ``.bz2``, ``.xz``, ``.zst``), or ``-`` for standard input
+        (compression recognised by its first bytes).
+    options : SourceOptions
+        Format, columns or field, key format and normalisations.
+
+    Returns
+    -------
+    KeyStream
+        Iterable of :class:`KeyBatch`.
+
+    Raises
+    ------
+    UsageError
+        Options that cannot work (unknown format or key format, bad pattern, misplaced columns or field).
+    InputError
+        The source cannot be opened (raised here), or cannot be read as keys, or holds none (raised while
+        iterating).
+    """
+    return KeyStream(source, options)

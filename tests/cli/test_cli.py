@@ -1,0 +1,201 @@
+"""The command line: exit codes, one-line errors, the report contract (click's CliRunner)."""
+
+from __future__ import annotations
+
+import contextlib
+import gzip
+import io
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from hashaudit.cli import cli, main
+
+CONTRACT = Path(__file__).resolve().parents[3] / "shared" / "contract" / "check_report.py"
+
+
+def run(args: list[str], stdin: bytes | None = None) -> tuple[int, str, str]:
+    """Run ``main`` in-process the way the console script does; return (exit code, stdout, stderr)."""
+    out, err = io.StringIO(), io.StringIO()
+    saved = sys.stdin
+    sys.stdin = io.TextIOWrapper(io.BytesIO(stdin or b""))
+    try:
+        with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+            try:
+                main(args)
+                code = 0
+            except SystemExit as exc:
+                code = exc.code if isinstance(exc.code, int) else 2
+    finally:
+        sys.stdin = saved
+    return code, out.getvalue(), err.getvalue()
+
+
+@pytest.fixture(scope="module")
+def random_keys(tmp_path_factory) -> Path:
+    rng = np.random.default_rng(424242)
+    path = tmp_path_factory.mktemp("keys") / "random.txt"
+    tokens = rng.integers(0, 2**63, size=30_000)
+    path.write_text("".join(f"k{t:x}\n" for t in tokens.tolist()))
+    return path
+
+
+@pytest.fixture(scope="module")
+def multiples_of_4096(tmp_path_factory) -> Path:
+    path = tmp_path_factory.mktemp("keys") / "pages.txt"
+    path.write_text("".join(f"{4096 * i}\n" for i in range(1, 20_001)))
+    return path
+
+
+def contract_problems(report: Path) -> str:
+    if not CONTRACT.exists():
+        pytest.skip("shared contract checker not found beside the project")
+    proc = subprocess.run([sys.executable, str(CONTRACT), str(report)], capture_output=True, text=True)
+    return proc.stdout + (f"exit {proc.returncode}" if proc.returncode else "")
+
+
+def test_strong_functions_pass_on_random_keys(random_keys, tmp_path):
+    report = tmp_path / "r.json"
+    hashes = ["murmur3_32", "murmur3_128", "xxh64", "xxh3_64", "siphash24", "blake2b_64", "crc32c"]
+    args = ["audit", str(random_keys), "--json", str(report)]
+    for h in hashes:
+        args += ["-H", h]
+    code, out, err = run(args)
+    assert code == 0, out + err
+    doc = json.loads(report.read_text())
+    assert doc["verdict"] == "pass"
+    assert [h["name"] for h in doc["hashes"]] == hashes
+    assert all(c["verdict"] in ("pass", "info") for h in doc["hashes"] for c in h["checks"])
+    assert contract_problems(report) == ""
+
+
+def test_planted_skew_fails_with_one_line_reason(multiples_of_4096, tmp_path):
+    report = tmp_path / "r.json"
+    code, out, err = run(
+        ["audit", str(multiples_of_4096), "--key-format", "int", "-H", "identity", "-H", "murmur3_32",
+         "-m", "4096", "-s", "mask", "--json", str(report)]
+    )
+    assert code == 1, out + err
+    fail_lines = [line for line in out.splitlines() if line.startswith("FAIL  identity")]
+    assert len(fail_lines) == 1
+    assert "mask 2^12" in fail_lines[0] and "colliding pairs" in fail_lines[0]
+    doc = json.loads(report.read_text())
+    assert doc["verdict"] == "fail"
+    verdicts = {h["name"]: h["verdict"] for h in doc["hashes"]}
+    assert verdicts == {"identity": "fail", "murmur3_32": "pass"}
+    max_load = next(c for c in doc["hashes"][0]["checks"] if c["name"] == "max_load")
+    assert max_load["observed"] == 20_000  # every multiple of 4096 has low 12 bits zero: one bucket
+    assert contract_problems(report) == ""
+
+
+def test_json_report_is_deterministic_apart_from_run(random_keys, tmp_path):
+    docs = []
+    for i in range(2):
+        report = tmp_path / f"r{i}.json"
+        code, _, _ = run(["audit", str(random_keys), "-H", "fnv1a_64", "-m", "1000", "-q", "--json", str(report)])
+        assert code == 0
+        doc = json.loads(report.read_text())
+        doc.pop("run")
+        docs.append(json.dumps(doc, sort_keys=True))
+    assert docs[0] == docs[1]
+
+
+def write(tmp_path: Path, name: str, data: bytes) -> Path:
+    path = tmp_path / name
+    path.write_bytes(data)
+    return path
+
+
+BAD_INPUTS = {
+    "missing file": (lambda p: ["audit", str(p / "nope.txt")], "nope.txt"),
+    "empty file": (lambda p: ["audit", str(write(p, "empty.txt", b""))], "no keys"),
+    "binary file": (lambda p: ["audit", str(write(p, "blob.txt", b"ab\x00cd\x01\x02\n" * 50))], "binary"),
+    "invalid utf-8": (lambda p: ["audit", str(write(p, "latin.txt", b"ok\ncaf\xe9\n"))], "UTF-8"),
+    "csv without column": (
+        lambda p: ["audit", str(write(p, "t.csv", b"a,b\n1,2\n")), "--column", "user"],
+        "user",
+    ),
+    "json line not json": (
+        lambda p: ["audit", str(write(p, "e.jsonl", b'{"id": 1}\n{id: 2}\n')), "--field", "id"],
+        "line 2",
+    ),
+    "buckets zero": (lambda p: ["audit", str(write(p, "k.txt", b"a\nb\n")), "--buckets", "0"], "buckets"),
+    "mask not power of two": (
+        lambda p: ["audit", str(write(p, "k.txt", b"a\nb\n")), "-m", "1000", "-s", "mask"],
+        "power-of-two",
+    ),
+    "unknown hash": (lambda p: ["audit", str(write(p, "k.txt", b"a\nb\n")), "-H", "md77"], "md77"),
+    "unknown scheme": (lambda p: ["audit", str(write(p, "k.txt", b"a\nb\n")), "-m", "8", "-s", "modulo"], "modulo"),
+    "bad buckets text": (lambda p: ["audit", str(write(p, "k.txt", b"a\nb\n")), "-m", "lots"], "lots"),
+    "truncated gzip": (
+        lambda p: ["audit", str(write(p, "t.txt.gz", gzip.compress(b"a\nb\n" * 10_000)[:-30]))],
+        "t.txt.gz",
+    ),
+    "stdin without buckets": (lambda p: ["audit", "-"], "--buckets"),
+    "plan with both": (lambda p: ["plan", "--keys", "100", "--buckets", "10", "--load", "0.5"], "one of"),
+}
+
+
+@pytest.mark.parametrize("case", sorted(BAD_INPUTS))
+def test_bad_input_exits_2_with_one_clear_line(case, tmp_path):
+    make_args, fragment = BAD_INPUTS[case]
+    code, out, err = run(make_args(tmp_path), stdin=b"a\nb\n")
+    assert code == 2, (out, err)
+    lines = [line for line in err.splitlines() if line.strip()]
+    assert "Traceback" not in err
+    assert fragment.lower() in err.lower(), err
+    assert len(lines) <= 3, err  # click usage errors print a usage line and a hint; ours print one line
+
+
+def test_debug_shows_the_traceback(tmp_path):
+    code, _, err = run(["audit", str(tmp_path / "missing.txt"), "--debug"])
+    assert code == 2 and "Traceback" in err
+
+
+def test_report_never_overwrites_an_input(tmp_path):
+    keys = write(tmp_path, "k.txt", b"a\nb\nc\n")
+    code, _, err = run(["audit", str(keys), "-m", "4", "--json", str(keys)])
+    assert code == 2 and "refusing" in err
+    assert keys.read_bytes() == b"a\nb\nc\n"
+
+
+def test_stdin_with_buckets(random_keys):
+    code, out, err = run(["audit", "-", "-H", "xxh3_64", "-m", "2^12"], stdin=random_keys.read_bytes())
+    assert code == 0, err
+    assert "30,000 keys" in out
+
+
+def test_plan_fields_and_birthday_value():
+    code, out, _ = run(["plan", "--keys", "23", "--buckets", "365", "--json", "-"])
+    assert code == 0
+    doc = json.loads(out)
+    # birthday problem, 23 people and 365 days: P(shared birthday) = 0.507297 (handbook value, e.g. Feller vol. 1 §II.3)
+    assert doc["p_no_collision"] == pytest.approx(1 - 0.507297, abs=1e-6)
+    assert doc["keys_for_even_odds"] == 23
+    for field in ("expected_empty_buckets", "expected_colliding_pairs", "load_factor", "expected_probes"):
+        assert field in doc
+    assert set(doc["expected_probes"]) == {"chaining", "linear", "quadratic", "double"}
+    assert set(doc["expected_probes"]["linear"]) == {"hit", "miss"}
+
+
+def test_plan_from_load_factor_text():
+    code, out, _ = run(["plan", "--keys", "1000000", "--load", "0.5"])
+    assert code == 0
+    assert "2,000,000 buckets" in out
+    # linear probing at load 0.5: 1.5 probes per hit, 2.5 per miss (Knuth TAOCP vol. 3 §6.4)
+    assert "1.500" in out and "2.500" in out
+
+
+def test_hashes_lists_the_registry():
+    result = CliRunner().invoke(cli, ["hashes", "--json"])
+    assert result.exit_code == 0
+    names = [h["name"] for h in json.loads(result.output)]
+    for required in ("murmur3_32", "murmur3_128", "xxh32", "xxh64", "xxh3_64", "fnv1_32", "fnv1a_32", "fnv1_64",
+                     "fnv1a_64", "crc32", "crc32c", "siphash24", "poly31", "djb2", "sdbm", "identity", "fibonacci",
+                     "blake2b_64"):
+        assert required in names

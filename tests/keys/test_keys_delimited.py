@@ -1,0 +1,151 @@
+"""Delimited files: columns by name or number, composite keys, RFC 4180 quoting, clear errors."""
+
+from __future__ import annotations
+
+import gzip
+
+import pytest
+
+from hashaudit.errors import InputError, UsageError
+from hashaudit.keys import SourceOptions, open_keys
+from hashaudit.keys import delimited as delimited_module
+
+# Invented table; the quoting follows RFC 4180 (a doubled quote inside a quoted field is one quote, quoted
+# fields may hold the delimiter and line breaks).
+CSV = (
+    b"id,name,city\r\n"
+    b'1,"Smith, Jo",Oslo\r\n'
+    b'2,"say ""hi""",\r\n'
+    b'3,"two\r\nlines",Rome\r\n'
+    b"4,,Lima\r\n"
+    b"007,NULL,  Kyiv  \r\n"
+)
+
+
+def read_all(path, **options) -> list[bytes]:
+    return [k for batch in open_keys(path, SourceOptions(**options)) for k in batch.to_list()]
+
+
+@pytest.fixture
+def csv_path(tmp_path):
+    path = tmp_path / "people.csv"
+    path.write_bytes(CSV)
+    return path
+
+
+def test_column_by_name(csv_path):
+    assert read_all(csv_path, columns=("name",)) == [b"Smith, Jo", b'say "hi"', b"two\r\nlines", b"", b"NULL"]
+
+
+def test_column_by_index_and_default_first_column(csv_path):
+    assert read_all(csv_path, columns=("2",)) == [b"Oslo", b"", b"Rome", b"Lima", b"  Kyiv  "]
+    assert read_all(csv_path) == [b"1", b"2", b"3", b"4", b"007"]  # text, not numbers
+
+
+def test_composite_key(csv_path):
+    keys = read_all(csv_path, columns=("city", "0"), join="/")
+    assert keys == [b"Oslo/1", b"/2", b"Rome/3", b"Lima/4", b"  Kyiv  /007"]
+    stream = open_keys(csv_path, SourceOptions(columns=("city", "0"), join="/"))
+    assert stream.description["columns"] == ["city", "0"]
+    assert stream.description["join"] == "/"
+
+
+def test_header_named_like_a_number_is_found_by_name(tmp_path):
+    path = tmp_path / "years.csv"
+    path.write_bytes(b"id,2024\na,x\nb,y\n")
+    assert read_all(path, columns=("2024",)) == [b"x", b"y"]
+    assert read_all(path, columns=("1",)) == [b"x", b"y"]
+
+
+def test_no_header(tmp_path):
+    path = tmp_path / "bare.csv"
+    path.write_bytes(b"a,1\nb,2\n")
+    assert read_all(path, header=False) == [b"a", b"b"]
+    assert read_all(path, header=False, columns=("1", "0")) == [b"1|a", b"2|b"]
+    with pytest.raises(UsageError, match="with --no-header, give columns as 0-based numbers"):
+        read_all(path, header=False, columns=("name",))
+
+
+def test_missing_column_lists_the_header(csv_path):
+    with pytest.raises(InputError, match=r"people\.csv: no column 'email'; the header has 'id', 'name', 'city'$"):
+        read_all(csv_path, columns=("email",))
+    with pytest.raises(InputError, match=r"people\.csv: no column 3 \(numbered from 0\); the header has 'id'"):
+        read_all(csv_path, columns=("3",))
+
+
+def test_ragged_rows_are_an_error(tmp_path, monkeypatch):
+    path = tmp_path / "ragged.csv"
+    path.write_bytes(b"a,b\n1,2\n3\n4,5\n")
+    with pytest.raises(InputError, match=r"ragged\.csv: CSV parse error: Expected 2 columns, got 1: 3$") as info:
+        read_all(path, columns=("b",))
+    assert "\n" not in str(info.value)
+    monkeypatch.setattr(delimited_module, "CSV_BLOCK_BYTES", 16)
+    path.write_bytes(b"a,b\n" + b"1,2\n" * 20 + b"3\n")
+    with pytest.raises(InputError, match=r"Expected 2 columns, got 1: 3 \(after data row \d+\)$"):
+        read_all(path)
+
+
+def test_tsv_has_no_quoting(tmp_path):
+    path = tmp_path / "t.tsv"
+    path.write_bytes(b'k\tv\n"quoted"\t1\nhalf"\t2\na,b\t3\n')
+    assert read_all(path) == [b'"quoted"', b'half"', b"a,b"]
+    assert open_keys(path).description["delimiter"] == "\t"
+
+
+def test_custom_delimiter(tmp_path):
+    path = tmp_path / "semi.csv"
+    path.write_bytes(b'a;b\n"x;y";2\n')
+    assert read_all(path, delimiter=";") == [b"x;y"]
+    with pytest.raises(UsageError, match="delimiter"):
+        open_keys(path, SourceOptions(delimiter=";;"))
+
+
+def test_small_blocks_give_the_same_keys(tmp_path, monkeypatch):
+    path = tmp_path / "big.csv.gz"
+    rows = [b'%d,"k,%d"' % (i, i * 7) for i in range(5000)]
+    path.write_bytes(gzip.compress(b"n,key\n" + b"\n".join(rows) + b"\n", mtime=0))
+    expected = [b"k,%d" % (i * 7) for i in range(5000)]
+    assert read_all(path, columns=("key",)) == expected
+    monkeypatch.setattr(delimited_module, "CSV_BLOCK_BYTES", 1000)
+    stream = open_keys(path, SourceOptions(columns=("key",), batch_keys=300))
+    batches = list(stream)
+    assert [k for b in batches for k in b.to_list()] == expected
+    assert max(len(b) for b in batches) <= 300
+    assert stream.stats.records == 5000
+
+
+def test_header_longer_than_the_probe(tmp_path, monkeypatch):
+    monkeypatch.setattr(delimited_module, "_PROBE_BYTES", 8)
+    path = tmp_path / "wide.csv"
+    names = [f"column_{i}" for i in range(50)]
+    path.write_bytes((",".join(names) + "\n" + ",".join(str(i) for i in range(50)) + "\n").encode())
+    assert read_all(path, columns=("column_42",)) == [b"42"]
+
+
+def test_errors_name_the_row(tmp_path):
+    path = tmp_path / "ints.csv"
+    path.write_bytes(b"n\n1\n2\nthree\n")
+    with pytest.raises(InputError, match=r"ints\.csv row 3: not a decimal integer: 'three'"):
+        read_all(path, key_format="int")
+
+
+@pytest.mark.parametrize("data", [b"", b"id,name\n", b"\n\n"])
+def test_no_rows_no_keys(tmp_path, data):
+    path = tmp_path / "empty.csv"
+    path.write_bytes(data)
+    with pytest.raises(InputError, match=r"empty\.csv: no keys"):
+        read_all(path)
+
+
+def test_bom_is_not_part_of_the_first_name(tmp_path):
+    path = tmp_path / "bom.csv"
+    path.write_bytes(b"\xef\xbb\xbfid,v\nx,1\n")
+    assert read_all(path, columns=("id",)) == [b"x"]
+
+
+def test_columns_need_a_delimited_format(tmp_path):
+    path = tmp_path / "keys.txt"
+    path.write_bytes(b"a\n")
+    with pytest.raises(UsageError, match=r"--column a applies to csv and tsv sources, .* \(use --format csv"):
+        open_keys(path, SourceOptions(columns=("a",)))
+    assert read_all(path, format="csv", header=False) == [b"a"]
