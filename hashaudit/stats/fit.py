@@ -14,11 +14,13 @@ Null distributions, chosen by table size m and load factor λ = n/m (see DESIGN.
   mean m·E f(C) and variance m·(Var f(X) − Cov(f(X), X)²/λ), X Poisson);
 * empty buckets and colliding pairs: their exact mean and variance with a normal law, or a Poisson law
   when the expected count is small (Arratia, Goldstein & Gordon 1989);
-* maximum load: the multinomial distribution of the maximum (``hashaudit.stats.maxload``).
+* maximum load: the multinomial distribution of the maximum (``hashaudit.stats.maxload``);
+* G with λ ≥ 5: χ²(m − 1) after Williams's (1976) correction of its mean.
 
 References
 ----------
 C. Morris, "Central limit theorems for multinomial sums", Ann. Statist. 3 (1975) 165-188.
+D. A. Williams, "Improved likelihood ratio tests for complete contingency tables", Biometrika 63 (1976) 33-37.
 R. Arratia, L. Goldstein, L. Gordon, "Two moments suffice for Poisson approximations: the Chen-Stein
 method", Ann. Probab. 17 (1989) 9-25.
 W. Feller, An Introduction to Probability Theory and Its Applications, vol. 1, 3rd ed., ch. II & IV.
@@ -201,9 +203,12 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
         chi_mean, chi_var = theory.chi_square_moments(m, n)
         if lam >= SPARSE_LOAD:
             chi_p = (float(stats.chi2.sf(chi2, m - 1)), float(stats.chi2.cdf(chi2, m - 1)))
-            g_p = (float(stats.chi2.sf(g, m - 1)), float(stats.chi2.cdf(g, m - 1)))
-            g_mean = float(m - 1)
-            chi_method = g_method = f"chi-square with {m - 1} degrees of freedom"
+            # G's mean exceeds m - 1 by about (m^2 - 1)/(6n): Williams's correction divides it out
+            williams = 1.0 + (m + 1.0) / (6.0 * n)
+            g_p = (float(stats.chi2.sf(g / williams, m - 1)), float(stats.chi2.cdf(g / williams, m - 1)))
+            g_mean = float(m - 1) * williams
+            chi_method = f"chi-square with {m - 1} degrees of freedom"
+            g_method = f"chi-square with {m - 1} degrees of freedom, Williams (1976) correction"
         else:
             chi_p = _normal_p(chi2, chi_mean, chi_var)
             chi_method = "normal with the exact moments of Pearson's statistic (sparse table)"

@@ -1,0 +1,1 @@
+"""Statistics of bucket counts: streaming accumulators, tests of fit and the closed forms of uniform hashing."""
