@@ -38,7 +38,7 @@ def make_keys(path: Path, n: int, seed: int = 7) -> None:
             count = min(1_000_000, n - start)
             ids = rng.integers(0, 10**10, size=count)
             tags = rng.integers(0, 1 << 16, size=count)
-            f.write("".join(f"u:{i:010d}:{t:04x}\n" for i, t in zip(ids.tolist(), tags.tolist())).encode())
+            f.write("".join(f"u:{i:010d}:{t:04x}\n" for i, t in zip(ids.tolist(), tags.tolist(), strict=True)).encode())
 
 
 def time_cli(path: Path) -> tuple[float, float]:

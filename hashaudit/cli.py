@@ -84,25 +84,57 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
 
 @cli.command()
 @click.argument("sources", nargs=-1, required=True, metavar="SOURCE...")
-@click.option("--hash", "-H", "hashes", multiple=True, metavar="NAME",
-              help="Hash function (repeatable): a registry name or module:function. Default: a common set.")
-@click.option("--buckets", "-m", multiple=True, type=TableSize(),
-              help="Table size (repeatable): 65536, 2^16, 64k. Default: derived from the key count.")
-@click.option("--scheme", "-s", "schemes", multiple=True, metavar="S",
-              help="Bucketing scheme (repeatable): mod, mask, high, range. Default: mask for powers of two, else mod.")
+@click.option(
+    "--hash",
+    "-H",
+    "hashes",
+    multiple=True,
+    metavar="NAME",
+    help="Hash function (repeatable): a registry name or module:function. Default: a common set.",
+)
+@click.option(
+    "--buckets",
+    "-m",
+    multiple=True,
+    type=TableSize(),
+    help="Table size (repeatable): 65536, 2^16, 64k. Default: derived from the key count.",
+)
+@click.option(
+    "--scheme",
+    "-s",
+    "schemes",
+    multiple=True,
+    metavar="S",
+    help="Bucketing scheme (repeatable): mod, mask, high, range. Default: mask for powers of two, else mod.",
+)
 @click.option("--seed", type=int, default=0, show_default=True, help="Seed of seeded hashes and simulations.")
 @click.option("--json", "json_path", metavar="FILE", help="Write the JSON report to FILE.")
-@click.option("--format", "input_format", default="auto", show_default=True,
-              type=click.Choice(["auto", "lines", "csv", "tsv", "jsonl"]), help="Input format (auto: by suffix).")
-@click.option("--column", "-c", multiple=True, metavar="NAME|INDEX",
-              help="CSV/TSV column by name or 0-based index (repeatable: composite key).")
+@click.option(
+    "--format",
+    "input_format",
+    default="auto",
+    show_default=True,
+    type=click.Choice(["auto", "lines", "csv", "tsv", "jsonl"]),
+    help="Input format (auto: by suffix).",
+)
+@click.option(
+    "--column",
+    "-c",
+    multiple=True,
+    metavar="NAME|INDEX",
+    help="CSV/TSV column by name or 0-based index (repeatable: composite key).",
+)
 @click.option("--join", default="|", show_default=True, metavar="SEP", help="Separator of composite keys.")
 @click.option("--field", "-f", metavar="PATH", help="JSON Lines field, dotted path (user.id).")
 @click.option("--delimiter", metavar="CHAR", help="CSV delimiter (default , for csv, tab for tsv).")
 @click.option("--no-header", is_flag=True, help="CSV/TSV files have no header row (columns by index).")
-@click.option("--key-format", default="bytes", show_default=True,
-              type=click.Choice(["bytes", "hex", "base64", "int"]),
-              help="How a key's text becomes bytes; int = decimal, hashed as 8-byte little-endian.")
+@click.option(
+    "--key-format",
+    default="bytes",
+    show_default=True,
+    type=click.Choice(["bytes", "hex", "base64", "int"]),
+    help="How a key's text becomes bytes; int = decimal, hashed as 8-byte little-endian.",
+)
 @click.option("--keep-cr", is_flag=True, help="Keep a CR before the LF as part of the key.")
 @click.option("--skip-empty", is_flag=True, help="Skip empty keys instead of hashing them.")
 @click.option("--raw-bytes", is_flag=True, help="Accept keys that are not UTF-8 text (binary dumps).")
@@ -110,18 +142,48 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
 @click.option("--lowercase", is_flag=True, help="ASCII-lowercase keys.")
 @click.option("--pattern", metavar="REGEX", help="Hash only the first group of REGEX's match in each key.")
 @click.option("--alpha", type=float, default=0.01, show_default=True, help="Family-wise error rate (Holm).")
-@click.option("--max-cost-excess", type=float, default=0.05, show_default=True,
-              help="Fail above this relative excess of probes per chained lookup.")
-@click.option("--max-empty-excess", type=float, default=0.02, show_default=True,
-              help="Fail above this excess of empty buckets (fraction of the table).")
-@click.option("--max-load-ratio", type=float, default=1.25, show_default=True,
-              help="Fail above this ratio of hottest bucket to its expected maximum.")
+@click.option(
+    "--max-cost-excess",
+    type=float,
+    default=0.05,
+    show_default=True,
+    help="Fail above this relative excess of probes per chained lookup.",
+)
+@click.option(
+    "--max-empty-excess",
+    type=float,
+    default=0.02,
+    show_default=True,
+    help="Fail above this excess of empty buckets (fraction of the table).",
+)
+@click.option(
+    "--max-load-ratio",
+    type=float,
+    default=1.25,
+    show_default=True,
+    help="Fail above this ratio of hottest bucket to its expected maximum.",
+)
 @click.option("--all", "show_all", is_flag=True, help="List passing checks too.")
 @click.option("--quiet", "-q", is_flag=True, help="Print nothing but errors; the exit code tells the verdict.")
 @click.option("--color/--no-color", default=None, help="Colour the verdicts (default: when on a terminal).")
 @click.option("--debug", is_flag=True, help="Show the traceback of an error.")
-def audit(sources, hashes, buckets, schemes, seed, json_path, alpha, max_cost_excess, max_empty_excess,
-          max_load_ratio, show_all, quiet, color, debug, **source_kw):  # type: ignore[no-untyped-def]
+def audit(
+    sources,
+    hashes,
+    buckets,
+    schemes,
+    seed,
+    json_path,
+    alpha,
+    max_cost_excess,
+    max_empty_excess,
+    max_load_ratio,
+    show_all,
+    quiet,
+    color,
+    debug,
+    **source_kw,
+):  # type: ignore[no-untyped-def]
     """Audit how SOURCE's keys land in hash tables under each hash function and bucketing scheme.
 
     SOURCE is a key file (one key per line, CSV/TSV, JSON Lines; .gz .bz2 .xz .zst by suffix) or - for
@@ -201,10 +263,22 @@ def hashes(as_json, debug):  # type: ignore[no-untyped-def]
 
     specs = REGISTRY.specs()
     if as_json:
-        click.echo(json.dumps([
-            {"name": s.name, "width": s.width, "seeded": s.seeded, "path": s.path, "integer_keys": s.integer_keys,
-             "description": s.description} for s in specs
-        ], indent=2))
+        click.echo(
+            json.dumps(
+                [
+                    {
+                        "name": s.name,
+                        "width": s.width,
+                        "seeded": s.seeded,
+                        "path": s.path,
+                        "integer_keys": s.integer_keys,
+                        "description": s.description,
+                    }
+                    for s in specs
+                ],
+                indent=2,
+            )
+        )
         return
     click.echo(f"{'name':<14} {'bits':>4}  {'seed':<4}  {'path':<7}  description")
     for s in specs:

@@ -3,19 +3,23 @@
 
 from __future__ import annotations
 
+import importlib
+import os
 import platform
 import sys
+import threading
 import time
 from collections.abc import Callable, Iterable, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from hashaudit.engine.prefetch import prefetch
 from hashaudit.errors import UsageError
 from hashaudit.hashes.registry import DEFAULT_HASHES, REGISTRY, HashRegistry, HashSpec
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.stats.buckets import BucketCounts
-from hashaudit.stats.fit import bucket_tests, occupancy_table
 from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
 from hashaudit.tables.sizes import auto_sizes
 from hashaudit.verdict.findings import Thresholds, judge, worst_verdict
@@ -50,6 +54,9 @@ class AuditPlan:
     def __post_init__(self) -> None:
         if not self.hashes:
             raise UsageError("no hash function to audit")
+        object.__setattr__(self, "hashes", tuple(dict.fromkeys(self.hashes)))
+        object.__setattr__(self, "buckets", tuple(dict.fromkeys(self.buckets)))
+        object.__setattr__(self, "schemes", tuple(dict.fromkeys(self.schemes)))
         for scheme in self.schemes:
             if scheme not in SCHEMES:
                 raise UsageError(f"unknown scheme {scheme!r}; choose one of {', '.join(SCHEMES)}")
@@ -65,7 +72,7 @@ class AuditPlan:
         """The (scheme, m) pairs to count; ``keys`` is needed when sizes are automatic."""
         if self.buckets:
             # a power-of-two-only scheme skips sizes another requested scheme can use (checked in __post_init__)
-            sizes, primes = list(self.buckets), []
+            sizes, primes = list(self.buckets), list[int]()
         else:
             if keys is None:
                 raise UsageError("table sizes are derived from the key count; give --buckets when it is unknown")
@@ -100,6 +107,8 @@ def audit_batches(
     sources: Sequence[dict] = (),
     registry: HashRegistry = REGISTRY,
     progress: Callable[[int], None] | None = None,
+    read_ahead: bool = True,
+    threads: int = 0,
 ) -> AuditResult:
     """Audit a stream of key batches.
 
@@ -114,31 +123,88 @@ def audit_batches(
     registry : HashRegistry
     progress : callable, optional
         Called with the number of keys of each batch once it is counted.
+    read_ahead : bool
+        Produce the next batches on a background thread while hashing (see ``hashaudit.engine.prefetch``).
+    threads : int
+        Hashing lanes; 0 = one per core. Results are identical for any number.
     """
     started = time.perf_counter()
+    # The statistics need scipy, which takes a while to import: load it while the keys stream through.
+    threading.Thread(target=importlib.import_module, args=("hashaudit.stats.fit",), daemon=True).start()
     specs = [registry.get(name) for name in plan.hashes]
     pairs = plan.tables(keys)
-    states = [
-        _HashState(spec, [BucketCounts(spec.name, plan.seed, scheme, m, spec.width) for scheme, m in pairs])
-        for spec in specs
+    lanes = _lane_count(threads, len(specs))
+    # With several hashes, each lane owns some of them; with one, lanes split each batch and own a copy of
+    # the tables, merged at the end (merging counts is exact, so the result is bit-identical to one lane).
+    split_keys = len(specs) < lanes
+    lane_states = [
+        [
+            _HashState(spec, [BucketCounts(spec.name, plan.seed, scheme, m, spec.width) for scheme, m in pairs])
+            for i, spec in enumerate(specs)
+            if split_keys or i % lanes == lane
+        ]
+        for lane in range(lanes)
     ]
     hash_seconds = {spec.name: 0.0 for spec in specs}
-    total = 0
-    for batch in batches:
-        if len(batch) == 0:
-            continue
-        for state in states:
+
+    def work(lane: int, batch: KeyBatch) -> None:
+        for state in lane_states[lane]:
             t0 = time.perf_counter()
             values = state.spec.hash_batch(batch, plan.seed if state.spec.seeded else 0)
             for table in state.tables:
                 table.update(values)
             hash_seconds[state.spec.name] += time.perf_counter() - t0
-        total += len(batch)
-        if progress is not None:
-            progress(len(batch))
+
+    total = 0
+    pool = ThreadPoolExecutor(max_workers=lanes - 1, thread_name_prefix="hashaudit-hash") if lanes > 1 else None
+    try:
+        for batch in prefetch(batches) if read_ahead else batches:
+            n = len(batch)
+            if n == 0:
+                continue
+            if pool is None:
+                work(0, batch)
+            else:
+                if split_keys:
+                    bounds = [n * lane // lanes for lane in range(lanes + 1)]
+                    parts = [batch.slice(bounds[i], bounds[i + 1]) for i in range(lanes)]
+                else:
+                    parts = [batch] * lanes
+                futures = [pool.submit(work, lane, parts[lane]) for lane in range(1, lanes)]
+                work(0, parts[0])
+                for future in futures:
+                    future.result()
+            total += n
+            if progress is not None:
+                progress(n)
+    finally:
+        if pool is not None:
+            pool.shutdown(wait=True)
     if total == 0:
         raise UsageError("no keys to audit")
+    if split_keys:
+        states = _merge_lanes(lane_states)
+    else:
+        order = [spec.name for spec in specs]
+        states = sorted((st for lane in lane_states for st in lane), key=lambda st: order.index(st.spec.name))
     return _conclude(states, plan, total, sources, started, hash_seconds)
+
+
+def _lane_count(threads: int, hashes: int) -> int:
+    if threads < 0:
+        raise UsageError(f"--threads must be 0 (automatic) or more, not {threads}")
+    if threads == 0:
+        threads = min(os.cpu_count() or 1, 8)
+    return max(1, threads)
+
+
+def _merge_lanes(lane_states: list[list[_HashState]]) -> list[_HashState]:
+    merged = lane_states[0]
+    for other in lane_states[1:]:
+        for mine, theirs in zip(merged, other, strict=True):
+            for table, twin in zip(mine.tables, theirs.tables, strict=True):
+                table.merge(twin)
+    return merged
 
 
 def _conclude(
@@ -149,6 +215,8 @@ def _conclude(
     started: float,
     hash_seconds: dict[str, float],
 ) -> AuditResult:
+    from hashaudit.stats.fit import bucket_tests
+
     family = []
     for state in states:
         for table in state.tables:
@@ -162,8 +230,14 @@ def _conclude(
         summaries = tuple(_summary(table) for table in state.tables)
         hash_audits.append(
             HashAudit(
-                state.spec.name, state.spec.width, state.spec.seeded, plan.seed, state.spec.path,
-                worst_verdict([f.verdict for f in own]), own, summaries,
+                state.spec.name,
+                state.spec.width,
+                state.spec.seeded,
+                plan.seed,
+                state.spec.path,
+                worst_verdict([f.verdict for f in own]),
+                own,
+                summaries,
             )
         )
     overall = "fail" if any(h.verdict == "fail" for h in hash_audits) else "pass"
@@ -187,13 +261,19 @@ def _conclude(
 
 
 def _summary(table: BucketCounts) -> TableSummary:
+    from hashaudit.stats.fit import occupancy_table
+
     result = table.result()
     counts = result.counts
     top = min(HOTTEST_SHOWN, len(counts))
     hottest = np.argpartition(counts, -top)[-top:]
     hottest = hottest[np.lexsort((hottest, -counts[hottest]))]
     return TableSummary(
-        result.scheme, result.buckets, result.keys, result.load_factor, occupancy_table(result),
+        result.scheme,
+        result.buckets,
+        result.keys,
+        result.load_factor,
+        occupancy_table(result),
         [(int(b), int(counts[b])) for b in hottest],
     )
 

@@ -57,9 +57,7 @@ def audit(
         yield from itertools.chain.from_iterable(streams)
 
     result = audit_batches(batches(), plan, keys=keys, progress=progress)
-    described = tuple(
-        {**stream.description, "stats": _stats_dict(stream.stats)} for stream in streams
-    )
+    described = tuple({**stream.description, "stats": _stats_dict(stream.stats)} for stream in streams)
     return AuditResult(result.verdict, result.keys, result.hashes, described, result.settings, result.run)
 
 

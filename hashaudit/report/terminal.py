@@ -80,11 +80,9 @@ def render(result: AuditResult, *, show_all: bool = False, colour: bool = False)
             lines.append(f"{_tag(verdict, colour)}  {hash_name:<{w_hash}}  {table:<{w_table}}  {check_cell}{message}")
         lines.append("")
     for h in result.hashes:
-        passed = sum(1 for f in h.findings if f.verdict == "pass")
-        lines.append(
-            f"  {_tag(h.verdict, colour)}  {h.name:<14} {h.width:>3}-bit  {h.path:<7}  "
-            f"{passed}/{len(h.findings)} checks pass"
-        )
+        tally = {v: sum(1 for f in h.findings if f.verdict == v) for v in ("fail", "warn", "info", "pass")}
+        spread = ", ".join(f"{count} {verdict}" for verdict, count in tally.items() if count)
+        lines.append(f"  {_tag(h.verdict, colour)}  {h.name:<14} {h.width:>3}-bit  {h.path:<7}  checks: {spread}")
     lines.append("")
     lines.append(HASH_FLOODING_NOTE)
     return "\n".join(lines)

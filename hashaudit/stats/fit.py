@@ -29,55 +29,18 @@ W. Feller, An Introduction to Probability Theory and Its Applications, vol. 1, 3
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
 from functools import lru_cache
+from typing import Any
 
 import numpy as np
-from scipy import stats
+from scipy import special
 
 from hashaudit.stats import maxload, theory
 from hashaudit.stats.buckets import BucketCountsResult
+from hashaudit.stats.outcome import Effect, FitTest
 
 SIMULATION_DRAWS = 9999
 SPARSE_LOAD = 5.0
-
-
-@dataclass(frozen=True)
-class Effect:
-    """An effect size in operational units.
-
-    Attributes
-    ----------
-    name : str
-        ``lookup_cost_excess`` (relative extra probes per successful chained lookup), ``empty_excess``
-        (extra empty buckets as a fraction of the table) or ``max_load_ratio`` (hottest bucket over the
-        expected maximum).
-    value : float
-    observed, ideal : float
-        The operational quantity for these keys and for an ideal hash (e.g. probes per lookup).
-    unit : str
-    """
-
-    name: str
-    value: float
-    observed: float
-    ideal: float
-    unit: str
-
-
-@dataclass(frozen=True)
-class FitTest:
-    """One test of fit on the counts of one table."""
-
-    name: str
-    statistic: float
-    expected: float
-    observed: float
-    p_upper: float
-    p_lower: float
-    method: str
-    effect: Effect
-    details: dict = field(default_factory=dict)
 
 
 def _colliding_pairs(counts: np.ndarray) -> float:
@@ -130,12 +93,14 @@ def _normal_p(observed: float, mean: float, variance: float) -> tuple[float, flo
     if variance <= 0:
         return (1.0 if observed <= mean else 0.0), (1.0 if observed >= mean else 0.0)
     z = (observed - mean) / math.sqrt(variance)
-    return float(stats.norm.sf(z)), float(stats.norm.cdf(z))
+    return float(special.ndtr(-z)), float(special.ndtr(z))
 
 
 def _poisson_p(observed: float, mean: float) -> tuple[float, float]:
     k = math.floor(observed + 1e-9)
-    return float(stats.poisson.sf(k - 1, mean)), float(stats.poisson.cdf(k, mean))
+    upper = 1.0 if k <= 0 else float(special.pdtrc(k - 1, mean))  # P(X >= k)
+    lower = float(special.pdtr(k, mean)) if k >= 0 else 0.0  # P(X <= k)
+    return upper, lower
 
 
 def _use_simulation(buckets: int, keys: int) -> bool:
@@ -149,8 +114,8 @@ def _morris_g_moments(buckets: int, keys: int) -> tuple[float, float]:
     k = np.arange(top + 1, dtype=np.float64)
     with np.errstate(divide="ignore", invalid="ignore"):
         f = np.where(k > 0, 2.0 * k * np.log(k / lam), 0.0)
-    binom_pmf = stats.binom.pmf(k, keys, 1.0 / buckets)
-    pois_pmf = stats.poisson.pmf(k, lam)
+    binom_pmf = theory.expected_occupancy(buckets, keys, top) / buckets
+    pois_pmf = np.exp(k * math.log(lam) - lam - special.gammaln(k + 1.0))
     mean = buckets * float(np.dot(binom_pmf, f))
     ef = float(np.dot(pois_pmf, f))
     var_f = float(np.dot(pois_pmf, (f - ef) ** 2))
@@ -175,8 +140,13 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
     lam = n / m
     pairs = _colliding_pairs(counts)
     ideal_cost = 1.0 + (n - 1) / (2.0 * m)
-    cost_effect = Effect("lookup_cost_excess", _lookup_cost(n, pairs) / ideal_cost - 1.0,
-                         _lookup_cost(n, pairs), ideal_cost, "probes per successful chained lookup")
+    cost_effect = Effect(
+        "lookup_cost_excess",
+        _lookup_cost(n, pairs) / ideal_cost - 1.0,
+        _lookup_cost(n, pairs),
+        ideal_cost,
+        "probes per successful chained lookup",
+    )
     chi2 = _chi_square(counts, n, m)
     g = _g_statistic(counts, lam)
     empty = float(np.count_nonzero(counts == 0))
@@ -184,10 +154,16 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
     expected_empty = theory.expected_empty_buckets(m, n)
     expected_pairs = theory.expected_colliding_pairs(m, n)
     expected_max = maxload.expected_max_load(m, n)
-    empty_effect = Effect("empty_excess", (empty - expected_empty) / m, empty / m, expected_empty / m,
-                          "fraction of buckets left empty")
-    max_effect = Effect("max_load_ratio", max_load_observed / expected_max if expected_max > 0 else 1.0,
-                        max_load_observed, expected_max, "keys in the hottest bucket")
+    empty_effect = Effect(
+        "empty_excess", (empty - expected_empty) / m, empty / m, expected_empty / m, "fraction of buckets left empty"
+    )
+    max_effect = Effect(
+        "max_load_ratio",
+        max_load_observed / expected_max if expected_max > 0 else 1.0,
+        max_load_observed,
+        expected_max,
+        "keys in the hottest bucket",
+    )
 
     simulate = _use_simulation(m, n)
     if simulate:
@@ -202,10 +178,10 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
     else:
         chi_mean, chi_var = theory.chi_square_moments(m, n)
         if lam >= SPARSE_LOAD:
-            chi_p = (float(stats.chi2.sf(chi2, m - 1)), float(stats.chi2.cdf(chi2, m - 1)))
+            chi_p = (float(special.chdtrc(m - 1, chi2)), float(special.chdtr(m - 1, chi2)))
             # G's mean exceeds m - 1 by about (m^2 - 1)/(6n): Williams's correction divides it out
             williams = 1.0 + (m + 1.0) / (6.0 * n)
-            g_p = (float(stats.chi2.sf(g / williams, m - 1)), float(stats.chi2.cdf(g / williams, m - 1)))
+            g_p = (float(special.chdtrc(m - 1, g / williams)), float(special.chdtr(m - 1, g / williams)))
             g_mean = float(m - 1) * williams
             chi_method = f"chi-square with {m - 1} degrees of freedom"
             g_method = f"chi-square with {m - 1} degrees of freedom, Williams (1976) correction"
@@ -230,23 +206,29 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
     max_p = (float(maxload.max_load_sf(m, n, k)), float(maxload.max_load_cdf(m, n, k)))
 
     return [
-        FitTest("chi_square", chi2, float(m - 1), chi2, *chi_p, chi_method, cost_effect,
-                {"degrees_of_freedom": m - 1}),
+        FitTest("chi_square", chi2, float(m - 1), chi2, *chi_p, chi_method, cost_effect, {"degrees_of_freedom": m - 1}),
         FitTest("g_test", g, g_mean, g, *g_p, g_method, cost_effect),
         FitTest("empty_buckets", empty, expected_empty, empty, *empty_p, empty_method, empty_effect),
         FitTest("colliding_pairs", pairs, expected_pairs, pairs, *pairs_p, pairs_method, cost_effect),
-        FitTest("max_load", max_load_observed, expected_max, max_load_observed, *max_p,
-                "multinomial maximum (hashaudit.stats.maxload)", max_effect),
+        FitTest(
+            "max_load",
+            max_load_observed,
+            expected_max,
+            max_load_observed,
+            *max_p,
+            "multinomial maximum (hashaudit.stats.maxload)",
+            max_effect,
+        ),
     ]
 
 
-def occupancy_table(result: BucketCountsResult, max_rows: int = 64) -> dict[str, list[float]]:
+def occupancy_table(result: BucketCountsResult, max_rows: int = 64) -> dict[str, Any]:
     """Buckets holding exactly k keys, observed and expected under uniform hashing (binomial)."""
     observed = np.bincount(result.counts)
     top = min(len(observed) - 1, max_rows)
     expected = theory.expected_occupancy(result.buckets, result.keys, top)
     tail_observed = float(observed[top + 1 :].sum())
-    expected_tail = float(result.buckets * stats.binom.sf(top, result.keys, 1.0 / result.buckets))
+    expected_tail = float(result.buckets * special.bdtrc(top, result.keys, 1.0 / result.buckets))
     return {
         "k": list(range(top + 1)),
         "observed": [float(x) for x in observed[: top + 1]],
@@ -254,4 +236,3 @@ def occupancy_table(result: BucketCountsResult, max_rows: int = 64) -> dict[str,
         "observed_above": tail_observed,
         "expected_above": expected_tail,
     }
-

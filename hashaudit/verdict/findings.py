@@ -12,7 +12,7 @@ import math
 from dataclasses import asdict, dataclass, field
 
 from hashaudit.errors import UsageError
-from hashaudit.stats.fit import Effect, FitTest
+from hashaudit.stats.outcome import Effect, FitTest
 from hashaudit.verdict.holm import holm_adjust
 
 VERDICT_ORDER = {"fail": 0, "warn": 1, "info": 2, "pass": 3}
@@ -203,9 +203,24 @@ def judge(tests: list[tuple[str, str, int, int, FitTest]], thresholds: Threshold
             sentence = f"consistent with uniform hashing ({_p(test.p_upper)})"
         findings.append(
             Finding(
-                hash_name, test.name, scheme, buckets, keys, test.statistic, test.expected, test.observed,
-                test.p_upper, test.p_lower, float(p_adjusted), test.method, test.effect, threshold, verdict,
-                direction, sentence, dict(test.details),
+                hash_name,
+                test.name,
+                scheme,
+                buckets,
+                keys,
+                test.statistic,
+                test.expected,
+                test.observed,
+                test.p_upper,
+                test.p_lower,
+                float(p_adjusted),
+                test.method,
+                test.effect,
+                threshold,
+                verdict,
+                direction,
+                sentence,
+                dict(test.details),
             )
         )
     return findings

@@ -94,8 +94,13 @@ class AuditResult:
                 "keys": self.keys,
                 "checks": counts,
                 "worst": [
-                    {"hash": f.hash_name, "check": f.check, "table": f.table, "verdict": f.verdict,
-                     "message": f.message}
+                    {
+                        "hash": f.hash_name,
+                        "check": f.check,
+                        "table": f.table,
+                        "verdict": f.verdict,
+                        "message": f.message,
+                    }
                     for f in self.findings[:3]
                 ],
             },
@@ -113,11 +118,22 @@ class AuditResult:
         for f in self.findings:
             rows.append(
                 {
-                    "hash": f.hash_name, "check": f.check, "scheme": f.scheme, "buckets": f.buckets,
-                    "keys": f.keys, "verdict": f.verdict, "direction": f.direction, "statistic": f.statistic,
-                    "expected": f.expected, "observed": f.observed, "p_value": f.p_value,
-                    "p_adjusted": f.p_adjusted, "effect": f.effect.name, "effect_value": f.effect.value,
-                    "threshold": f.threshold, "message": f.message,
+                    "hash": f.hash_name,
+                    "check": f.check,
+                    "scheme": f.scheme,
+                    "buckets": f.buckets,
+                    "keys": f.keys,
+                    "verdict": f.verdict,
+                    "direction": f.direction,
+                    "statistic": f.statistic,
+                    "expected": f.expected,
+                    "observed": f.observed,
+                    "p_value": f.p_value,
+                    "p_adjusted": f.p_adjusted,
+                    "effect": f.effect.name,
+                    "effect_value": f.effect.value,
+                    "threshold": f.threshold,
+                    "message": f.message,
                 }
             )
         return pd.DataFrame(rows)

@@ -77,8 +77,22 @@ def test_strong_functions_pass_on_random_keys(random_keys, tmp_path):
 def test_planted_skew_fails_with_one_line_reason(multiples_of_4096, tmp_path):
     report = tmp_path / "r.json"
     code, out, err = run(
-        ["audit", str(multiples_of_4096), "--key-format", "int", "-H", "identity", "-H", "murmur3_32",
-         "-m", "4096", "-s", "mask", "--json", str(report)]
+        [
+            "audit",
+            str(multiples_of_4096),
+            "--key-format",
+            "int",
+            "-H",
+            "identity",
+            "-H",
+            "murmur3_32",
+            "-m",
+            "4096",
+            "-s",
+            "mask",
+            "--json",
+            str(report),
+        ]
     )
     assert code == 1, out + err
     fail_lines = [line for line in out.splitlines() if line.startswith("FAIL  identity")]
@@ -195,7 +209,24 @@ def test_hashes_lists_the_registry():
     result = CliRunner().invoke(cli, ["hashes", "--json"])
     assert result.exit_code == 0
     names = [h["name"] for h in json.loads(result.output)]
-    for required in ("murmur3_32", "murmur3_128", "xxh32", "xxh64", "xxh3_64", "fnv1_32", "fnv1a_32", "fnv1_64",
-                     "fnv1a_64", "crc32", "crc32c", "siphash24", "poly31", "djb2", "sdbm", "identity", "fibonacci",
-                     "blake2b_64"):
+    for required in (
+        "murmur3_32",
+        "murmur3_128",
+        "xxh32",
+        "xxh64",
+        "xxh3_64",
+        "fnv1_32",
+        "fnv1a_32",
+        "fnv1_64",
+        "fnv1a_64",
+        "crc32",
+        "crc32c",
+        "siphash24",
+        "poly31",
+        "djb2",
+        "sdbm",
+        "identity",
+        "fibonacci",
+        "blake2b_64",
+    ):
         assert required in names

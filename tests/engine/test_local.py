@@ -1,0 +1,118 @@
+"""The local engine: plans, batch-size invariance, the JSON report and its schema, the DataFrame view."""
+
+from __future__ import annotations
+
+import json
+
+import jsonschema
+import numpy as np
+import pytest
+
+from hashaudit import AuditPlan, KeyBatch, Thresholds, audit, audit_batches
+from hashaudit.errors import UsageError
+from hashaudit.keys.options import SourceOptions
+from hashaudit.report.json_report import report_dict, schema, to_json
+
+RNG = np.random.default_rng(777)
+KEYS = [f"device-{int(x):012x}".encode() for x in RNG.integers(0, 2**48, size=6000)]
+
+
+def batches_of(size: int):
+    whole = KeyBatch.from_keys(KEYS)
+    for start in range(0, len(KEYS), size):
+        yield whole.slice(start, min(start + size, len(KEYS)))
+
+
+PLAN = AuditPlan(hashes=("murmur3_32", "fnv1a_64", "xxh3_64"), buckets=(1024, 1021), schemes=("mod", "range"))
+
+
+def stable(result) -> str:
+    doc = report_dict(result)
+    doc.pop("run")
+    return json.dumps(doc, sort_keys=True)
+
+
+@pytest.mark.parametrize("size", [1, 2, 50, len(KEYS), len(KEYS) + 42])
+def test_result_does_not_depend_on_batch_size(size):
+    reference = stable(audit_batches(batches_of(1000), PLAN))
+    assert stable(audit_batches(batches_of(size), PLAN)) == reference
+
+
+def test_report_validates_against_the_shipped_schema():
+    doc = json.loads(to_json(audit_batches(batches_of(1000), PLAN)))
+    jsonschema.Draft202012Validator.check_schema(schema())
+    jsonschema.validate(doc, schema())
+    assert doc["schema"] == "hashaudit.audit/1"
+    assert {c["name"] for h in doc["hashes"] for c in h["checks"]} == {
+        "chi_square",
+        "g_test",
+        "empty_buckets",
+        "colliding_pairs",
+        "max_load",
+    }
+    assert all(
+        c["scheme"] in ("mod", "range") and c["buckets"] in (1024, 1021) for h in doc["hashes"] for c in h["checks"]
+    )
+
+
+def test_plan_tables_auto_and_explicit():
+    assert AuditPlan().tables(100_000) == [("mask", 1 << 16), ("mask", 1 << 17), ("mask", 1 << 18), ("mod", 131071)]
+    plan = AuditPlan(buckets=(4096, 4093), schemes=("mask", "mod"))
+    assert plan.tables(None) == [("mask", 4096), ("mod", 4096), ("mod", 4093)]
+    with pytest.raises(UsageError, match="power-of-two"):
+        AuditPlan(buckets=(4093,), schemes=("mask",))
+    with pytest.raises(UsageError, match="key count"):
+        AuditPlan().tables(None)
+    with pytest.raises(UsageError, match="alpha"):
+        Thresholds(alpha=1.5)
+
+
+def test_effect_threshold_turns_fail_into_warn():
+    """A small planted skew with a huge key count is significant; whether it fails depends on the threshold."""
+    rng = np.random.default_rng(5)
+    values = rng.integers(0, 2**64, size=400_000, dtype=np.uint64)
+    values[:8000] = 7  # 2 % of the keys in one bucket
+
+    def run(threshold: float):
+        plan = AuditPlan(
+            hashes=("identity",),
+            buckets=(4096,),
+            schemes=("mod",),
+            thresholds=Thresholds(max_load_ratio=threshold, lookup_cost_excess=threshold),
+        )
+        return {f.check: f.verdict for f in audit_batches([KeyBatch.from_uint64(values)], plan).findings}
+
+    strict, lenient = run(0.01), run(1000.0)
+    assert strict["max_load"] == "fail" and strict["colliding_pairs"] == "fail"
+    assert lenient["max_load"] == "warn" and lenient["colliding_pairs"] == "warn"
+
+
+def test_too_regular_is_info_never_fail():
+    plan = AuditPlan(hashes=("identity",), buckets=(1000,), schemes=("mod",))
+    result = audit_batches([KeyBatch.from_uint64(np.arange(100_000, dtype=np.uint64))], plan)
+    verdicts = {f.check: (f.verdict, f.direction) for f in result.findings}
+    assert verdicts["chi_square"] == ("info", "too_regular")
+    assert result.verdict == "pass" and result.exit_code == 0
+
+
+def test_dataframe_has_one_row_per_finding():
+    result = audit_batches(batches_of(1000), PLAN)
+    frame = result.to_dataframe()
+    assert len(frame) == len(result.findings) == 3 * 4 * 5
+    assert {"hash", "check", "verdict", "p_value", "p_adjusted", "effect_value"} <= set(frame.columns)
+
+
+def test_audit_files_counts_first_for_automatic_sizes(tmp_path):
+    path = tmp_path / "keys.csv"
+    path.write_bytes(b"id,region\n" + b"".join(b"%s,eu\n" % k for k in KEYS))
+    result = audit([path], AuditPlan(hashes=("xxh3_64",)), SourceOptions(columns=("id",)))
+    assert result.keys == len(KEYS)
+    assert [t.buckets for t in result.hashes[0].tables] == [4096, 8192, 16384, 8191]
+    assert result.sources[0]["stats"]["keys"] == len(KEYS)
+
+
+def test_report_shows_no_raw_key():
+    secret = b"alice@example.org"
+    keys = [secret + b"%d" % i for i in range(3000)]
+    text = to_json(audit_batches([KeyBatch.from_keys(keys)], AuditPlan(hashes=("poly31",), buckets=(64,))))
+    assert "alice" not in text
