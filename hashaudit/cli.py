@@ -163,6 +163,26 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
     show_default=True,
     help="Fail above this ratio of hottest bucket to its expected maximum.",
 )
+@click.option(
+    "--all-keys",
+    is_flag=True,
+    help="Count every occurrence; by default each distinct key counts once (repeats are not the hash's fault).",
+)
+@click.option(
+    "--distinct-memory",
+    type=TableSize(),
+    default="2g",
+    show_default=True,
+    metavar="BYTES",
+    help="Memory budget of the distinct-key set (16 bytes or less per distinct key).",
+)
+@click.option(
+    "--threads",
+    type=int,
+    default=0,
+    show_default=True,
+    help="Hashing threads; 0 = one per core. Results are identical for any number.",
+)
 @click.option("--all", "show_all", is_flag=True, help="List passing checks too.")
 @click.option("--quiet", "-q", is_flag=True, help="Print nothing but errors; the exit code tells the verdict.")
 @click.option("--color/--no-color", default=None, help="Colour the verdicts (default: when on a terminal).")
@@ -178,6 +198,9 @@ def audit(
     max_cost_excess,
     max_empty_excess,
     max_load_ratio,
+    all_keys,
+    distinct_memory,
+    threads,
     show_all,
     quiet,
     color,
@@ -198,8 +221,10 @@ def audit(
 
     _refuse_overwriting_inputs([json_path], sources)
     thresholds = Thresholds(alpha, max_cost_excess, max_empty_excess, max_load_ratio)
-    plan = AuditPlan(tuple(hashes) or DEFAULT_HASHES, tuple(buckets), tuple(schemes), seed, thresholds)
-    result = run_audit(list(sources), plan, _source_options(source_kw))
+    plan = AuditPlan(
+        tuple(hashes) or DEFAULT_HASHES, tuple(buckets), tuple(schemes), seed, thresholds, not all_keys, distinct_memory
+    )
+    result = run_audit(list(sources), plan, _source_options(source_kw), threads=threads)
     if json_path:
         write_json(result, json_path)
     if not quiet:
@@ -242,7 +267,8 @@ def _plan_text(d: dict) -> str:
 
     rows = [
         f"keys {d['keys']:,} in {d['buckets']:,} buckets: load factor {d['load_factor']:.4g}",
-        f"  probability of no collision       {d['p_no_collision']:.6g}",
+        f"  probability of no collision       "
+        + (f"{d['p_no_collision']:.6g}" if d["p_no_collision"] > 0 else "below 1e-300"),
         f"  keys for even odds of a collision {d['keys_for_even_odds']:,}",
         f"  expected empty buckets            {d['expected_empty_buckets']:,.1f}",
         f"  expected colliding pairs          {d['expected_colliding_pairs']:,.1f}",

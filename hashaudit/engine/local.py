@@ -20,6 +20,7 @@ from hashaudit.errors import UsageError
 from hashaudit.hashes.registry import DEFAULT_HASHES, REGISTRY, HashRegistry, HashSpec
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.stats.buckets import BucketCounts
+from hashaudit.stats.distinct import DEFAULT_MEMORY_BYTES, DistinctKeys
 from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
 from hashaudit.tables.sizes import auto_sizes
 from hashaudit.verdict.findings import Thresholds, judge, worst_verdict
@@ -43,6 +44,10 @@ class AuditPlan:
     seed : int
         Seed for seeded hash functions and simulated nulls.
     thresholds : Thresholds
+    distinct : bool
+        Count each distinct key once (the hash is not to blame for repeats); False counts every occurrence.
+    distinct_memory : int
+        Memory budget in bytes of the distinct-key fingerprint set.
     """
 
     hashes: tuple[str, ...] = DEFAULT_HASHES
@@ -50,6 +55,8 @@ class AuditPlan:
     schemes: tuple[str, ...] = ()
     seed: int = 0
     thresholds: Thresholds = field(default_factory=Thresholds)
+    distinct: bool = True
+    distinct_memory: int = DEFAULT_MEMORY_BYTES
 
     def __post_init__(self) -> None:
         if not self.hashes:
@@ -147,14 +154,17 @@ def audit_batches(
     ]
     hash_seconds = {spec.name: 0.0 for spec in specs}
 
-    def work(lane: int, batch: KeyBatch) -> None:
+    def work(lane: int, batch: KeyBatch, first: np.ndarray | None) -> None:
         for state in lane_states[lane]:
             t0 = time.perf_counter()
             values = state.spec.hash_batch(batch, plan.seed if state.spec.seeded else 0)
+            if first is not None:
+                values = values[first]
             for table in state.tables:
                 table.update(values)
             hash_seconds[state.spec.name] += time.perf_counter() - t0
 
+    distinct = DistinctKeys(plan.distinct_memory) if plan.distinct else None
     total = 0
     pool = ThreadPoolExecutor(max_workers=lanes - 1, thread_name_prefix="hashaudit-hash") if lanes > 1 else None
     try:
@@ -162,16 +172,20 @@ def audit_batches(
             n = len(batch)
             if n == 0:
                 continue
+            first = distinct.update(batch) if distinct is not None else None
+            if first is not None and first.all():
+                first = None  # nothing to drop: skip the copy
             if pool is None:
-                work(0, batch)
+                work(0, batch, first)
             else:
                 if split_keys:
                     bounds = [n * lane // lanes for lane in range(lanes + 1)]
                     parts = [batch.slice(bounds[i], bounds[i + 1]) for i in range(lanes)]
+                    masks = [None if first is None else first[bounds[i] : bounds[i + 1]] for i in range(lanes)]
                 else:
-                    parts = [batch] * lanes
-                futures = [pool.submit(work, lane, parts[lane]) for lane in range(1, lanes)]
-                work(0, parts[0])
+                    parts, masks = [batch] * lanes, [first] * lanes
+                futures = [pool.submit(work, lane, parts[lane], masks[lane]) for lane in range(1, lanes)]
+                work(0, parts[0], masks[0])
                 for future in futures:
                     future.result()
             total += n
@@ -182,12 +196,15 @@ def audit_batches(
             pool.shutdown(wait=True)
     if total == 0:
         raise UsageError("no keys to audit")
+    occurrences = total
+    if distinct is not None:
+        total = distinct.distinct_
     if split_keys:
         states = _merge_lanes(lane_states)
     else:
         order = [spec.name for spec in specs]
         states = sorted((st for lane in lane_states for st in lane), key=lambda st: order.index(st.spec.name))
-    return _conclude(states, plan, total, sources, started, hash_seconds)
+    return _conclude(states, plan, total, occurrences, sources, started, hash_seconds)
 
 
 def _lane_count(threads: int, hashes: int) -> int:
@@ -211,6 +228,7 @@ def _conclude(
     states: list[_HashState],
     plan: AuditPlan,
     total: int,
+    occurrences: int,
     sources: Sequence[dict],
     started: float,
     hash_seconds: dict[str, float],
@@ -246,6 +264,7 @@ def _conclude(
         "hashes": [s.spec.name for s in states],
         "tables": [{"scheme": t.scheme, "buckets": t.buckets} for t in states[0].tables],
         "seed": plan.seed,
+        "count": "distinct" if plan.distinct else "all",
         "thresholds": asdict(plan.thresholds),
     }
     run = {
@@ -257,7 +276,7 @@ def _conclude(
         "hash_seconds": {k: round(v, 3) for k, v in hash_seconds.items()},
         "platform": sys.platform,
     }
-    return AuditResult(overall, total, tuple(hash_audits), tuple(sources), settings, run)
+    return AuditResult(overall, total, tuple(hash_audits), tuple(sources), settings, run, occurrences)
 
 
 def _summary(table: BucketCounts) -> TableSummary:

@@ -21,6 +21,7 @@ def audit(
     options: SourceOptions | None = None,
     *,
     progress: Callable[[int], None] | None = None,
+    threads: int = 0,
 ) -> AuditResult:
     """Audit the keys of one or more sources (files, or ``"-"`` for standard input).
 
@@ -34,6 +35,8 @@ def audit(
         How records become keys.
     progress : callable, optional
         Called with the number of keys of each batch.
+    threads : int
+        Hashing threads; 0 = one per core.
 
     Returns
     -------
@@ -56,9 +59,11 @@ def audit(
     def batches() -> Iterator[KeyBatch]:
         yield from itertools.chain.from_iterable(streams)
 
-    result = audit_batches(batches(), plan, keys=keys, progress=progress)
+    result = audit_batches(batches(), plan, keys=keys, progress=progress, threads=threads)
     described = tuple({**stream.description, "stats": _stats_dict(stream.stats)} for stream in streams)
-    return AuditResult(result.verdict, result.keys, result.hashes, described, result.settings, result.run)
+    return AuditResult(
+        result.verdict, result.keys, result.hashes, described, result.settings, result.run, result.keys_read
+    )
 
 
 def _stats_dict(stats: object) -> dict:

@@ -53,8 +53,16 @@ def render(result: AuditResult, *, show_all: bool = False, colour: bool = False)
     for f in result.findings:
         counts[f.verdict] += 1
     sources = ", ".join(str(s.get("source", "?")) for s in result.sources) or "(batches)"
+    counted = f"{result.keys:,} keys"
+    if result.repeated_keys:
+        counted = (
+            f"{result.keys_read:,} keys ({result.keys:,} distinct; the {result.repeated_keys:,} repeats are not "
+            "counted against the hash)"
+        )
+    elif result.settings.get("count") == "all":
+        counted = f"{result.keys:,} keys (every occurrence counted)"
     lines.append(
-        f"hashaudit: {result.keys:,} keys from {sources}; {len(result.hashes)} hash functions, "
+        f"hashaudit: {counted} from {sources}; {len(result.hashes)} hash functions, "
         f"{len(result.settings.get('tables', []))} tables each"
     )
     lines.append(

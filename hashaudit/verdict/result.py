@@ -62,7 +62,11 @@ class HashAudit:
 
 @dataclass(frozen=True)
 class AuditResult:
-    """Everything an audit found; ``to_dict`` gives the JSON report (schema ``hashaudit.audit/1``)."""
+    """Everything an audit found; ``to_dict`` gives the JSON report (schema ``hashaudit.audit/1``).
+
+    ``keys`` is the number of keys the checks counted (distinct keys unless the plan counts every occurrence);
+    ``keys_read`` the number of occurrences read.
+    """
 
     verdict: str
     keys: int
@@ -70,6 +74,12 @@ class AuditResult:
     sources: tuple[dict, ...]
     settings: dict
     run: dict = field(default_factory=dict, compare=False)
+    keys_read: int = -1
+
+    @property
+    def repeated_keys(self) -> int:
+        """Occurrences that repeated an earlier key (0 when every occurrence was counted)."""
+        return max(0, self.keys_read - self.keys) if self.keys_read >= 0 else 0
 
     @property
     def findings(self) -> list[Finding]:
@@ -92,6 +102,8 @@ class AuditResult:
             "verdict": self.verdict,
             "summary": {
                 "keys": self.keys,
+                "keys_read": self.keys_read if self.keys_read >= 0 else self.keys,
+                "repeated_keys": self.repeated_keys,
                 "checks": counts,
                 "worst": [
                     {

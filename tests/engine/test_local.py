@@ -71,7 +71,7 @@ def test_effect_threshold_turns_fail_into_warn():
     """A small planted skew with a huge key count is significant; whether it fails depends on the threshold."""
     rng = np.random.default_rng(5)
     values = rng.integers(0, 2**64, size=400_000, dtype=np.uint64)
-    values[:8000] = 7  # 2 % of the keys in one bucket
+    values[:8000] = 7 + 4096 * np.arange(1, 8001, dtype=np.uint64)  # 2 % of the keys, all distinct, in bucket 7
 
     def run(threshold: float):
         plan = AuditPlan(
@@ -116,3 +116,70 @@ def test_report_shows_no_raw_key():
     keys = [secret + b"%d" % i for i in range(3000)]
     text = to_json(audit_batches([KeyBatch.from_keys(keys)], AuditPlan(hashes=("poly31",), buckets=(64,))))
     assert "alice" not in text
+
+
+@pytest.mark.parametrize("hashes", [("murmur3_32",), ("murmur3_32", "fnv1a_64", "xxh3_64")])
+@pytest.mark.parametrize("threads", [2, 3])
+def test_threads_give_identical_results(hashes, threads):
+    plan = AuditPlan(hashes=hashes, buckets=(1024, 1021), schemes=("mod", "range"))
+    one = stable(audit_batches(batches_of(700), plan, threads=1))
+    assert stable(audit_batches(batches_of(700), plan, threads=threads)) == one
+
+
+def test_error_in_a_worker_thread_reaches_the_caller():
+    from hashaudit.hashes.registry import HashRegistry, HashSpec
+
+    def broken(batch, seed=0):
+        raise ValueError("kernel exploded")
+
+    registry = HashRegistry(
+        [
+            HashSpec("broken", 64, False, "kernel", broken),
+            HashSpec("ok", 64, False, "kernel", lambda b, s=0: np.zeros(len(b), np.uint64)),
+        ]
+    )
+    with pytest.raises(ValueError, match="exploded"):
+        audit_batches(batches_of(1000), AuditPlan(hashes=("ok", "broken"), buckets=(64,)), registry=registry, threads=2)
+
+
+def test_prefetch_passes_errors_and_stops_early():
+    import threading
+
+    from hashaudit.engine.prefetch import prefetch
+
+    def produce():
+        yield 1
+        yield 2
+        raise OSError("disk gone")
+
+    seen = []
+    with pytest.raises(OSError, match="disk gone"):
+        for item in prefetch(produce()):
+            seen.append(item)
+    assert seen == [1, 2]
+    before = threading.active_count()
+    for item in prefetch(iter(range(10_000)), depth=1):
+        if item == 3:
+            break
+    assert threading.active_count() == before  # the reader thread has ended
+
+
+def test_repeats_are_not_counted_against_the_hash():
+    """A dump in which a few keys repeat thousands of times: by default each distinct key counts once."""
+    rng = np.random.default_rng(8)
+    keys = [b"k%d" % i for i in rng.integers(0, 2**40, size=5000)] + [b"hot-key"] * 20_000
+    batch = KeyBatch.from_keys(keys)
+    plan = AuditPlan(hashes=("xxh3_64",), buckets=(1024,))
+    distinct = audit_batches([batch], plan)
+    assert distinct.keys == 5001 and distinct.keys_read == 25_000 and distinct.repeated_keys == 19_999
+    assert distinct.verdict == "pass"
+    every = audit_batches([batch], AuditPlan(hashes=("xxh3_64",), buckets=(1024,), distinct=False))
+    assert every.keys == 25_000 and every.verdict == "fail"  # the hot key's bucket holds 20,000 occurrences
+    assert report_dict(distinct)["summary"]["repeated_keys"] == 19_999
+
+
+def test_distinct_memory_budget_is_a_clear_error():
+    values = np.arange(100_000, dtype=np.uint64)
+    plan = AuditPlan(hashes=("identity",), buckets=(1024,), distinct_memory=1 << 18)
+    with pytest.raises(UsageError, match="--all-keys"):
+        audit_batches([KeyBatch.from_uint64(values)], plan)
