@@ -267,7 +267,7 @@ def _plan_text(d: dict) -> str:
 
     rows = [
         f"keys {d['keys']:,} in {d['buckets']:,} buckets: load factor {d['load_factor']:.4g}",
-        f"  probability of no collision       "
+        "  probability of no collision       "
         + (f"{d['p_no_collision']:.6g}" if d["p_no_collision"] > 0 else "below 1e-300"),
         f"  keys for even odds of a collision {d['keys_for_even_odds']:,}",
         f"  expected empty buckets            {d['expected_empty_buckets']:,.1f}",
