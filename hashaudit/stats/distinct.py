@@ -2,7 +2,8 @@
 
 A key repeated in a dump is not the hash's fault (DESIGN.md, "Judge the hash on distinct keys"). Each key is
 identified by a 64-bit fingerprint (XXH3-64 under a fixed seed that no audit uses) kept in an open-addressing
-set: 8 bytes per slot at a load factor of at most 1/2, so 16 bytes or less per distinct key. Two distinct keys
+set: 8-byte slots kept between a quarter and half full, so 16 to 32 bytes per distinct key (1.5 times that
+while the set doubles). Two distinct keys
 share a fingerprint with probability about d^2 / 2^65 over d distinct keys (2.7e-4 for d = 10^8, by the birthday
 bound), so a false "repeat" is negligible; the report states the count either way.
 
