@@ -29,9 +29,9 @@ class TableSize(click.ParamType):
             return value
         text = str(value).strip().lower().replace("_", "")
         try:
-            if m := re.fullmatch(r"2\^(\d+)", text):
-                return 1 << int(m.group(1))
-            if m := re.fullmatch(r"1<<(\d+)", text):
+            if m := re.fullmatch(r"(?:2\^|1<<)(\d{1,4})", text):
+                if int(m.group(1)) > 64:
+                    self.fail(f"{value!r} is far above any table size (at most 2^32)", param, ctx)
                 return 1 << int(m.group(1))
             if m := re.fullmatch(r"(\d+)([kmg])", text):
                 return int(m.group(1)) << {"k": 10, "m": 20, "g": 30}[m.group(2)]

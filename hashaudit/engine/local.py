@@ -19,7 +19,7 @@ from hashaudit.engine.prefetch import prefetch
 from hashaudit.errors import UsageError
 from hashaudit.hashes.registry import DEFAULT_HASHES, REGISTRY, HashRegistry, HashSpec
 from hashaudit.keys.batch import KeyBatch
-from hashaudit.stats.buckets import BucketCounts
+from hashaudit.stats.buckets import BucketCounts, BucketCountsResult
 from hashaudit.stats.distinct import DEFAULT_MEMORY_BYTES, DistinctKeys
 from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
 from hashaudit.tables.sizes import auto_sizes
@@ -27,6 +27,7 @@ from hashaudit.verdict.findings import Thresholds, judge, worst_verdict
 from hashaudit.verdict.result import AuditResult, HashAudit, TableSummary
 
 HOTTEST_SHOWN = 5
+LANE_COPY_BYTES = 256 << 20  # largest table memory a hashing thread may copy for itself
 
 
 @dataclass(frozen=True)
@@ -137,12 +138,17 @@ def audit_batches(
     """
     started = time.perf_counter()
     # The statistics need scipy, which takes a while to import: load it while the keys stream through.
-    threading.Thread(target=importlib.import_module, args=("hashaudit.stats.fit",), daemon=True).start()
+    threading.Thread(target=_import_quietly, args=("hashaudit.stats.fit",), daemon=True).start()
     specs = [registry.get(name) for name in plan.hashes]
     pairs = plan.tables(keys)
     lanes = _lane_count(threads, len(specs))
+    count_bytes = 8 * sum(m for _, m in pairs)  # one int64 per bucket per table, for one hash
+    _check_memory(count_bytes * len(specs), pairs)
     # With several hashes, each lane owns some of them; with one, lanes split each batch and own a copy of
     # the tables, merged at the end (merging counts is exact, so the result is bit-identical to one lane).
+    # Copies are only made while they are small.
+    if len(specs) < lanes and count_bytes > LANE_COPY_BYTES:
+        lanes = max(1, len(specs))
     split_keys = len(specs) < lanes
     lane_states = [
         [
@@ -207,6 +213,40 @@ def audit_batches(
     return _conclude(states, plan, total, occurrences, sources, started, hash_seconds)
 
 
+def _available_memory_bytes() -> int | None:
+    try:
+        with open("/proc/meminfo", encoding="ascii") as f:
+            for line in f:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
+    try:
+        return os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+    except (ValueError, OSError, AttributeError):
+        return None
+
+
+def _check_memory(needed: int, pairs: list[tuple[str, int]]) -> None:
+    """Refuse tables whose counts cannot fit, instead of running the machine out of memory."""
+    available = _available_memory_bytes()
+    # the counts, plus one floating-point copy of the largest table while its statistics are computed
+    peak = needed + 8 * max(m for _, m in pairs)
+    if available is not None and peak > 0.8 * available:
+        raise UsageError(
+            f"the tables need {peak / 2**30:.1f} GiB for their counts (8 bytes per bucket per table and hash) but "
+            f"{available / 2**30:.1f} GiB are available; use fewer or smaller --buckets"
+        )
+
+
+def _import_quietly(module: str) -> None:
+    """Import ahead of time; a failure shows later, as one line, when the module is really needed."""
+    try:
+        importlib.import_module(module)
+    except BaseException:  # noqa: BLE001 - reported by the import that needs it
+        pass
+
+
 def _lane_count(threads: int, hashes: int) -> int:
     if threads < 0:
         raise UsageError(f"--threads must be 0 (automatic) or more, not {threads}")
@@ -236,16 +276,18 @@ def _conclude(
     from hashaudit.stats.fit import bucket_tests
 
     family = []
+    summaries_by_hash: dict[str, list[TableSummary]] = {}
     for state in states:
         for table in state.tables:
             result = table.result()
             for test in bucket_tests(result, seed=plan.seed):
                 family.append((state.spec.name, result.scheme, result.buckets, result.keys, test))
+            summaries_by_hash.setdefault(state.spec.name, []).append(_summary(result))
     findings = judge(family, plan.thresholds)
     hash_audits = []
     for state in states:
         own = tuple(f for f in findings if f.hash_name == state.spec.name)
-        summaries = tuple(_summary(table) for table in state.tables)
+        summaries = tuple(summaries_by_hash[state.spec.name])
         hash_audits.append(
             HashAudit(
                 state.spec.name,
@@ -279,13 +321,13 @@ def _conclude(
     return AuditResult(overall, total, tuple(hash_audits), tuple(sources), settings, run, occurrences)
 
 
-def _summary(table: BucketCounts) -> TableSummary:
+def _summary(result: BucketCountsResult) -> TableSummary:
     from hashaudit.stats.fit import occupancy_table
 
-    result = table.result()
     counts = result.counts
-    top = min(HOTTEST_SHOWN, len(counts))
-    hottest = np.argpartition(counts, -top)[-top:]
+    occupied = np.flatnonzero(counts)  # the hottest buckets are among the occupied ones (at most n of them)
+    top = min(HOTTEST_SHOWN, len(occupied))
+    hottest = occupied[np.argpartition(counts[occupied], -top)[-top:]] if top else occupied
     hottest = hottest[np.lexsort((hottest, -counts[hottest]))]
     return TableSummary(
         result.scheme,

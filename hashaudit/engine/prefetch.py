@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import queue
 import threading
+import time
 from collections.abc import Iterable, Iterator
 from typing import TypeVar
 
@@ -56,9 +57,11 @@ def prefetch(items: Iterable[T], depth: int = 2) -> Iterator[T]:
             yield item  # type: ignore[misc]
     finally:
         stop.set()
-        while worker.is_alive():  # drain so a producer blocked on put() can see the stop flag
+        # Free the queue so a producer blocked on put() sees the stop flag. A producer blocked on its input (a pipe
+        # that stays open) cannot be interrupted: it is a daemon thread, so it is left behind rather than waited for.
+        deadline = time.monotonic() + 1.0
+        while worker.is_alive() and time.monotonic() < deadline:
             try:
                 channel.get(timeout=0.05)
             except queue.Empty:
                 pass
-        worker.join()

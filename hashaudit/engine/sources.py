@@ -48,11 +48,13 @@ def audit(
         raise UsageError("no source given")
     keys = None
     if plan.needs_key_count():
-        if any(str(s) == "-" for s in sources):
-            raise UsageError(
-                "reading standard input: give --buckets (table sizes are otherwise derived from the key count, "
-                "which needs a first pass over the input)"
-            )
+        for s in sources:
+            if str(s) == "-" or (os.path.exists(s) and not os.path.isfile(s)):
+                what = "standard input" if str(s) == "-" else f"{str(s)!r}, which is not a regular file"
+                raise UsageError(
+                    f"reading {what}: give --buckets (table sizes are otherwise derived from the key count, "
+                    "which needs a first pass over the input)"
+                )
         keys = sum(len(b) for s in sources for b in open_keys(s, options))
     streams = [open_keys(s, options) for s in sources]
 

@@ -78,6 +78,9 @@ class HashSpec:
             raise UsageError(
                 f"hash {self.name!r} returned {out.dtype}{list(out.shape)}, expected uint64{list(expected_shape)}"
             )
+        if self.width == 32 and len(out) and int(out.max()) >> 32:
+            # a table index is computed from the declared width: a wider value would point outside the table
+            raise UsageError(f"hash {self.name!r} is declared 32-bit but returned a value of 2^32 or more")
         return out
 
     def hash_key(self, key: bytes, seed: int = 0) -> int:

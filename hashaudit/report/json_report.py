@@ -44,12 +44,18 @@ def write_json(result: AuditResult, path: str | os.PathLike) -> None:
     directory = target.parent if str(target.parent) else Path(".")
     if not directory.is_dir():
         raise InputError(f"cannot write report {str(path)!r}: folder {str(directory)!r} does not exist")
+    tmp = None
     try:
         fd, tmp = tempfile.mkstemp(dir=directory, prefix=f".{target.name}.", suffix=".tmp")
         with os.fdopen(fd, "w", encoding="utf-8") as f:
             f.write(text)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # the mode of a file written the ordinary way, not mkstemp's 0600
         os.replace(tmp, target)
     except OSError as exc:
+        if tmp is not None and os.path.exists(tmp):
+            os.unlink(tmp)
         raise InputError(f"cannot write report {str(path)!r}: {exc.strerror or exc}") from None
 
 

@@ -6,16 +6,20 @@ which is informational), the method used for the null distribution, and an effec
 
 Null distributions, chosen by table size m and load factor λ = n/m (see DESIGN.md "Statistical notes"):
 
-* small tables (m ≤ 256 with λ < 5, or m < 32): a simulated multinomial null with a fixed seed, shared by all
+* small tables (m ≤ 1024 with λ < 5, or m < 32): a simulated multinomial null with a fixed seed, shared by all
   statistics of that (m, n);
-* Pearson's χ² and the G statistic with λ ≥ 5: χ²(m − 1);
+* rare collisions (fewer than 50 colliding pairs expected): Pearson's χ² is an affine function of the number of
+  colliding pairs, whose law is nearly Poisson (Arratia, Goldstein & Gordon 1989); χ², the pairs and (as an
+  approximation) G take that law, and the empty-bucket count that of the keys landing in occupied buckets;
+* Pearson's χ² with λ ≥ 5: χ²(m − 1); the colliding pairs, an affine function of χ², share its p-values;
 * sparse large tables: a normal law with the exact moments of Pearson's statistic, and the moments of
   Morris (1975) for G (any statistic Σ f(c_i) of multinomial counts is asymptotically normal with
   mean m·E f(C) and variance m·(Var f(X) − Cov(f(X), X)²/λ), X Poisson);
 * empty buckets and colliding pairs: their exact mean and variance with a normal law, or a Poisson law
   when the expected count is small (Arratia, Goldstein & Gordon 1989);
 * maximum load: the multinomial distribution of the maximum (``hashaudit.stats.maxload``);
-* G with λ ≥ 5: χ²(m − 1) after Williams's (1976) correction of its mean.
+* G with λ ≥ 5 and m ≤ 1000: χ²(m − 1) after Williams's (1976) correction of its mean; for larger m, a normal
+  law with the exact mean and Morris's variance.
 
 References
 ----------
@@ -41,6 +45,9 @@ from hashaudit.stats.outcome import Effect, FitTest
 
 SIMULATION_DRAWS = 9999
 SPARSE_LOAD = 5.0
+SIMULATED_MAX_BUCKETS = 1024  # sparse tables up to this size use the simulated null
+RARE_PAIRS = 50.0  # below this many expected colliding pairs (or empty buckets), Poisson laws
+WILLIAMS_MAX_BUCKETS = 1000  # above, G's chi-square approximation is off even with Williams's correction
 
 
 def _colliding_pairs(counts: np.ndarray) -> float:
@@ -104,7 +111,20 @@ def _poisson_p(observed: float, mean: float) -> tuple[float, float]:
 
 
 def _use_simulation(buckets: int, keys: int) -> bool:
-    return buckets < 32 or (buckets <= 256 and keys / buckets < SPARSE_LOAD)
+    return buckets < 32 or (buckets <= SIMULATED_MAX_BUCKETS and keys / buckets < SPARSE_LOAD)
+
+
+def _expected_surplus(buckets: int, keys: int) -> float:
+    """Expected keys landing in an occupied bucket, n - m(1 - (1 - 1/m)^n), without cancellation:
+    the alternating series sum_{k>=2} (-1)^k C(n, k) / m^(k-1)."""
+    total, term, k = 0.0, keys * (keys - 1) / (2.0 * buckets), 2
+    while term > 1e-17 * max(total, 1e-300) and k <= keys:
+        total += term if k % 2 == 0 else -term
+        term *= (keys - k) / ((k + 1.0) * buckets)
+        k += 1
+    if not math.isfinite(total) or keys > buckets:  # series only used when collisions are rare (n << m)
+        return keys - buckets + theory.expected_empty_buckets(buckets, keys)
+    return total
 
 
 def _morris_g_moments(buckets: int, keys: int) -> tuple[float, float]:
@@ -134,9 +154,10 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
     seed : int
         Seed of the simulated null for small tables (recorded in each test's ``method``).
     """
-    n, m, counts = result.keys, result.buckets, result.counts
+    n, m = result.keys, result.buckets
     if n == 0:
         return []
+    counts = result.counts[result.counts > 0]  # every statistic needs only the occupied buckets (n of them at most)
     lam = n / m
     pairs = _colliding_pairs(counts)
     ideal_cost = 1.0 + (n - 1) / (2.0 * m)
@@ -149,7 +170,7 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
     )
     chi2 = _chi_square(counts, n, m)
     g = _g_statistic(counts, lam)
-    empty = float(np.count_nonzero(counts == 0))
+    empty = float(m - len(counts))
     max_load_observed = float(counts.max())
     expected_empty = theory.expected_empty_buckets(m, n)
     expected_pairs = theory.expected_colliding_pairs(m, n)
@@ -175,33 +196,45 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
         empty_p = _simulated_p(null["empty_buckets"], empty)
         pairs_p = _simulated_p(null["colliding_pairs"], pairs)
         chi_method = g_method = empty_method = pairs_method = method
+    elif expected_pairs < RARE_PAIRS:
+        # Collisions are rare. X^2 = 2m·pairs/n + m - n exactly, so X^2 and the pairs share the Poisson law of the
+        # number of colliding pairs; G depends on the same few collisions and takes that law too (an
+        # approximation). Normal laws would turn one ordinary collision into a tiny p-value.
+        pairs_p = _poisson_p(pairs, expected_pairs)
+        chi_p = g_p = pairs_p
+        g_mean = _morris_g_moments(m, n)[0]
+        chi_method = pairs_method = "Poisson law of the colliding pairs (collisions are rare)"
+        g_method = "Poisson law of the colliding pairs (collisions are rare; approximation for G)"
+        # Keys that land in an already occupied bucket: n - m + empty, rare and nearly Poisson too.
+        surplus = n - (m - empty)
+        empty_p = _poisson_p(surplus, _expected_surplus(m, n))
+        empty_method = "Poisson law of the keys landing in occupied buckets (collisions are rare)"
     else:
         chi_mean, chi_var = theory.chi_square_moments(m, n)
         if lam >= SPARSE_LOAD:
             chi_p = (float(special.chdtrc(m - 1, chi2)), float(special.chdtr(m - 1, chi2)))
+            chi_method = f"chi-square with {m - 1} degrees of freedom"
+        else:
+            chi_p = _normal_p(chi2, chi_mean, chi_var)
+            chi_method = "normal with the exact moments of Pearson's statistic (sparse table)"
+        if lam >= SPARSE_LOAD and m <= WILLIAMS_MAX_BUCKETS:
             # G's mean exceeds m - 1 by about (m^2 - 1)/(6n): Williams's correction divides it out
             williams = 1.0 + (m + 1.0) / (6.0 * n)
             g_p = (float(special.chdtrc(m - 1, g / williams)), float(special.chdtr(m - 1, g / williams)))
             g_mean = float(m - 1) * williams
-            chi_method = f"chi-square with {m - 1} degrees of freedom"
             g_method = f"chi-square with {m - 1} degrees of freedom, Williams (1976) correction"
         else:
-            chi_p = _normal_p(chi2, chi_mean, chi_var)
-            chi_method = "normal with the exact moments of Pearson's statistic (sparse table)"
+            # for many buckets the corrected chi-square still misplaces G's mean by several standard deviations
             g_mean, g_var = _morris_g_moments(m, n)
             g_p = _normal_p(g, g_mean, g_var)
-            g_method = "normal with Morris (1975) moments (sparse table)"
-        if expected_empty < 50:
+            g_method = "normal with the exact mean and Morris (1975) variance"
+        # the pairs are an affine function of X^2: the same p-values
+        pairs_p, pairs_method = chi_p, chi_method + " (colliding pairs are an affine function of X^2)"
+        if expected_empty < RARE_PAIRS:
             empty_p, empty_method = _poisson_p(empty, expected_empty), "Poisson approximation"
         else:
             empty_p = _normal_p(empty, expected_empty, theory.var_empty_buckets(m, n))
             empty_method = "normal with exact mean and variance"
-        # More empty buckets than random is the skewed direction, so the tails stay as computed.
-        if expected_pairs < 50:
-            pairs_p, pairs_method = _poisson_p(pairs, expected_pairs), "Poisson approximation"
-        else:
-            pairs_p = _normal_p(pairs, expected_pairs, theory.var_colliding_pairs(m, n))
-            pairs_method = "normal with exact mean and variance"
     k = int(max_load_observed)
     max_p = (float(maxload.max_load_sf(m, n, k)), float(maxload.max_load_cdf(m, n, k)))
 
@@ -224,7 +257,9 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
 
 def occupancy_table(result: BucketCountsResult, max_rows: int = 64) -> dict[str, Any]:
     """Buckets holding exactly k keys, observed and expected under uniform hashing (binomial)."""
-    observed = np.bincount(result.counts)
+    occupied = result.counts[result.counts > 0]
+    observed = np.bincount(occupied, minlength=1)
+    observed[0] = result.buckets - len(occupied)
     top = min(len(observed) - 1, max_rows)
     expected = theory.expected_occupancy(result.buckets, result.keys, top)
     tail_observed = float(observed[top + 1 :].sum())

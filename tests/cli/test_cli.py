@@ -230,3 +230,32 @@ def test_hashes_lists_the_registry():
         "blake2b_64",
     ):
         assert required in names
+
+
+def test_a_failed_report_write_leaves_no_temporary_file(tmp_path):
+    keys = write(tmp_path, "k.txt", b"a\nb\nc\n")
+    folder = tmp_path / "adir"
+    folder.mkdir()
+    code, _, err = run(["audit", str(keys), "-m", "4", "-q", "--json", str(folder)])
+    assert code == 2 and "cannot write report" in err
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["adir", "k.txt"]
+
+
+def test_non_regular_file_needs_buckets(tmp_path):
+    import os
+
+    fifo = tmp_path / "pipe"
+    os.mkfifo(fifo)
+    code, _, err = run(["audit", str(fifo)])
+    assert code == 2 and "not a regular file" in err
+
+
+@pytest.mark.parametrize("size", ["2^99999", "2^70", "1<<65"])
+def test_absurd_table_sizes_are_usage_errors(size, tmp_path):
+    code, _, err = run(["audit", str(write(tmp_path, "k.txt", b"a\n")), "-m", size])
+    assert code == 2 and "internal error" not in err
+
+
+def test_tables_that_cannot_fit_in_memory_are_refused(tmp_path):
+    code, _, err = run(["audit", str(write(tmp_path, "k.txt", b"a\nb\n")), "-m", "2^32", "-H", "xxh3_64"])
+    assert code == 2 and "GiB" in err

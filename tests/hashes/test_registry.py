@@ -495,3 +495,16 @@ def test_getting_a_spec_does_not_load_it() -> None:
     )
     result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True, timeout=120)
     assert result.stdout.strip() == "False"
+
+
+def test_a_32_bit_entry_returning_wider_values_is_refused():
+    """A declared width the function does not keep would index outside a table: refused with a clear error."""
+    import numpy as np
+
+    from hashaudit.errors import UsageError
+    from hashaudit.hashes.registry import HashSpec
+    from hashaudit.keys.batch import KeyBatch
+
+    liar = HashSpec("liar", 32, False, "kernel", lambda b, s=0: np.full(len(b), 2**40, dtype=np.uint64))
+    with pytest.raises(UsageError, match="declared 32-bit"):
+        liar.hash_batch(KeyBatch.from_keys([b"a"]))

@@ -61,16 +61,47 @@ def test_simulated_null_chi_square_matches_the_chi_square_law():
 
 
 def test_dense_chi_square_equals_scipy():
-    result = counts_from_uniform(4096, 100_000, 5)
+    result = counts_from_uniform(512, 20_000, 5)
     t = by_name(bucket_tests(result))
     reference = stats.chisquare(result.counts)
     assert t["chi_square"].statistic == pytest.approx(reference.statistic, rel=1e-9)
     assert t["chi_square"].p_upper == pytest.approx(reference.pvalue, rel=1e-6)
+    assert t["colliding_pairs"].p_upper == t["chi_square"].p_upper  # affine in X^2: the same test
     g_reference = stats.power_divergence(result.counts, lambda_="log-likelihood")
     assert t["g_test"].statistic == pytest.approx(g_reference.statistic, rel=1e-9)
     # with Williams's (1976) correction q = 1 + (m + 1)/(6n): p = chi2.sf(G / q, m - 1)
-    q = 1 + (4096 + 1) / (6 * 100_000)
-    assert t["g_test"].p_upper == pytest.approx(stats.chi2.sf(g_reference.statistic / q, 4095), rel=1e-6)
+    q = 1 + (512 + 1) / (6 * 20_000)
+    assert t["g_test"].p_upper == pytest.approx(stats.chi2.sf(g_reference.statistic / q, 511), rel=1e-6)
+
+
+def test_g_null_mean_for_large_tables_matches_simulation():
+    """For m = 2^16 at load 5, chi2(m - 1) with Williams's correction misplaces G's mean by about 2 sd; the exact
+    mean used instead agrees with a simulation (numpy multinomial draws, fixed seed)."""
+    m, n = 1 << 16, 5 << 16
+    rng = np.random.default_rng(17)
+    simulated = []
+    for _ in range(30):
+        c = rng.multinomial(n, np.full(m, 1.0 / m)).astype(np.float64)
+        c = c[c > 0]
+        simulated.append(2.0 * np.sum(c * np.log(c / (n / m))))
+    t = by_name(bucket_tests(counts_from_uniform(m, n, 3)))
+    spread = np.std(simulated) / np.sqrt(len(simulated))
+    assert abs(t["g_test"].expected - np.mean(simulated)) < 4 * spread
+
+
+def test_one_collision_gets_the_birthday_p_value():
+    """Ten keys in 2^20 buckets with one collision: P(at least one pair) = 1 - Q(m, 10) = 4.3e-5 is the
+    right p-value (birthday bound, Feller vol. 1 §II.3), and every rare-collision check agrees."""
+    counts = np.zeros(1 << 20, dtype=np.int64)
+    counts[:8] = 1
+    counts[8] = 2
+    from hashaudit.stats.buckets import BucketCountsResult
+
+    result = BucketCountsResult("h", 0, "mod", 1 << 20, 64, 10, counts)
+    t = by_name(bucket_tests(result))
+    expected_p = 1 - np.prod(1 - np.arange(10) / (1 << 20))
+    for name in ("chi_square", "colliding_pairs", "g_test", "empty_buckets"):
+        assert t[name].p_upper == pytest.approx(expected_p, rel=0.01), name
 
 
 def test_planted_skew_is_detected_by_every_check():
