@@ -117,6 +117,7 @@ def audit_batches(
     progress: Callable[[int], None] | None = None,
     read_ahead: bool = True,
     threads: int = 0,
+    key_estimate: Callable[[KeyBatch], int | None] | None = None,
 ) -> AuditResult:
     """Audit a stream of key batches.
 
@@ -135,6 +136,9 @@ def audit_batches(
         Produce the next batches on a background thread while hashing (see ``hashaudit.engine.prefetch``).
     threads : int
         Hashing lanes; 0 = one per core. Results are identical for any number.
+    key_estimate : callable, optional
+        Given the first batch, an estimate of the number of keys in the whole input (sizes the distinct-key set
+        once instead of growing it); ``keys`` serves when it is given.
     """
     started = time.perf_counter()
     # The statistics need scipy, which takes a while to import: load it while the keys stream through.
@@ -178,6 +182,10 @@ def audit_batches(
             n = len(batch)
             if n == 0:
                 continue
+            if distinct is not None and total == 0:
+                estimate = keys if keys is not None else (key_estimate(batch) if key_estimate else None)
+                if estimate:
+                    distinct.reserve(estimate)
             first = distinct.update(batch) if distinct is not None else None
             if first is not None and first.all():
                 first = None  # nothing to drop: skip the copy

@@ -61,11 +61,28 @@ def audit(
     def batches() -> Iterator[KeyBatch]:
         yield from itertools.chain.from_iterable(streams)
 
-    result = audit_batches(batches(), plan, keys=keys, progress=progress, threads=threads)
+    result = audit_batches(
+        batches(), plan, keys=keys, progress=progress, threads=threads, key_estimate=_line_estimate(streams)
+    )
     described = tuple({**stream.description, "stats": _stats_dict(stream.stats)} for stream in streams)
     return AuditResult(
         result.verdict, result.keys, result.hashes, described, result.settings, result.run, result.keys_read
     )
+
+
+def _line_estimate(streams: list) -> Callable[[KeyBatch], int | None] | None:
+    """For uncompressed files of one key per line: keys ≈ file bytes / bytes per line of the first batch."""
+    sizes = [s.size_bytes for s in streams]
+    plain = all(s.description.get("format") == "lines" and not s.description.get("compression") for s in streams)
+    if not plain or any(size is None for size in sizes):
+        return None
+    total = sum(sizes)
+
+    def estimate(first: KeyBatch) -> int | None:
+        per_line = (first.nbytes + len(first)) / max(len(first), 1)
+        return int(total / per_line) if per_line > 0 else None
+
+    return estimate
 
 
 def _stats_dict(stats: object) -> dict:

@@ -96,6 +96,17 @@ class DistinctKeys:
         _rehash_kernel(self.table_, bigger)
         self.table_ = bigger
 
+    def reserve(self, keys: int) -> None:
+        """Size the set for about ``keys`` distinct keys at once (within the budget), so it does not grow step by
+        step: each doubling rehashes every fingerprint and touches fresh memory."""
+        size = len(self.table_)
+        while 2 * keys > size and size * 16 <= self.memory_bytes:
+            size *= 2
+        if size > len(self.table_):
+            bigger = np.zeros(size, dtype=np.uint64)
+            _rehash_kernel(self.table_, bigger)
+            self.table_ = bigger
+
     def update(self, batch: KeyBatch) -> np.ndarray:
         """Mark the keys of ``batch`` seen for the first time (in stream order); returns a bool array."""
         from hashaudit.hashes.xxh import xxh3_64
