@@ -37,3 +37,17 @@ def test_merge_is_the_union():
 def test_budget():
     with pytest.raises(UsageError, match="64 KiB"):
         DistinctKeys(memory_bytes=1000)
+
+
+def test_reserving_space_changes_nothing_but_growth():
+    keys = [b"%d" % (i % 5000) for i in range(20_000)]
+    grown, reserved = DistinctKeys(), DistinctKeys()
+    reserved.reserve(20_000)
+    size_after_reserve = len(reserved.table_)
+    a = grown.update(KeyBatch.from_keys(keys))
+    b = reserved.update(KeyBatch.from_keys(keys))
+    assert a.tolist() == b.tolist() and grown.distinct_ == reserved.distinct_ == 5000
+    assert len(reserved.table_) == size_after_reserve >= 40_000  # no growth after the reservation
+    small = DistinctKeys(memory_bytes=1 << 16)
+    small.reserve(10**9)  # never beyond the budget
+    assert len(small.table_) * 8 <= 1 << 16
