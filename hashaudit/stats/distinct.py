@@ -77,7 +77,8 @@ class DistinctKeys:
         if memory_bytes < 1 << 16:
             raise UsageError(f"the distinct-key memory budget must be at least 64 KiB, not {memory_bytes} bytes")
         self.memory_bytes = int(memory_bytes)
-        self.table_ = np.zeros(1 << 16, dtype=np.uint64)
+        start = 1 << min(16, (int(memory_bytes) // 8).bit_length() - 1)  # within the budget from the start
+        self.table_ = np.zeros(start, dtype=np.uint64)
         self.keys_seen_ = 0
         self.distinct_ = 0
 
