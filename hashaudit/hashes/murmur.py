@@ -6,8 +6,8 @@ both variants (the x64 variant starts both 64-bit halves at the seed), so ``seed
 
 References
 ----------
-A. Appleby, MurmurHash3 (public domain reference implementation, ``MurmurHash3.cpp`` of the SMHasher
-distribution, 2011): constants, block mix, tail handling and finalisers ``fmix32`` / ``fmix64``.
+A. Appleby, MurmurHash3 (public-domain reference implementation ``MurmurHash3.cpp``, 2011): constants,
+block mix, tail handling and finalisers ``fmix32`` / ``fmix64``.
 """
 
 from __future__ import annotations
