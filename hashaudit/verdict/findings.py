@@ -42,13 +42,20 @@ class Thresholds:
     def __post_init__(self) -> None:
         if not 0 < self.alpha < 1:
             raise UsageError(f"--alpha must be between 0 and 1, not {self.alpha}")
-        for name in ("lookup_cost_excess", "empty_excess", "max_load_ratio"):
+        for name in self.effect_names():
             value = getattr(self, name)
             if not (isinstance(value, (int, float)) and math.isfinite(value) and value >= 0):
                 raise UsageError(f"threshold {name} must be a non-negative number, not {value!r}")
 
+    @classmethod
+    def effect_names(cls) -> list[str]:
+        """Every effect that has a threshold."""
+        return [f for f in cls.__dataclass_fields__ if f != "alpha"]
+
     def for_effect(self, effect_name: str) -> float:
         """The threshold that applies to an effect of this name."""
+        if effect_name not in self.effect_names():
+            raise UsageError(f"no threshold for the effect {effect_name!r}")
         return float(getattr(self, effect_name))
 
 
@@ -58,8 +65,8 @@ class Finding:
 
     hash_name: str
     check: str
-    scheme: str
-    buckets: int
+    scheme: str | None
+    buckets: int | None
     keys: int
     statistic: float
     expected: float
@@ -82,10 +89,10 @@ class Finding:
 
     def to_dict(self) -> dict:
         """JSON-able form (the check entry of the report)."""
+        where = {} if self.scheme is None else {"scheme": self.scheme, "buckets": self.buckets}
         return {
             "name": self.check,
-            "scheme": self.scheme,
-            "buckets": self.buckets,
+            **where,
             "keys": self.keys,
             "verdict": self.verdict,
             "direction": self.direction,
@@ -111,8 +118,10 @@ def _probability(p: float) -> float:
     return min(1.0, max(0.0, float(p)))
 
 
-def table_label(scheme: str, buckets: int) -> str:
-    """``mask 2^16`` for powers of two, ``mod 65521`` otherwise."""
+def table_label(scheme: str | None, buckets: int | None) -> str:
+    """``mask 2^16`` for powers of two, ``mod 65521`` otherwise; ``full value`` for checks without a table."""
+    if scheme is None or buckets is None:
+        return "full value"
     if buckets > 1 and buckets & (buckets - 1) == 0:
         return f"{scheme} 2^{buckets.bit_length() - 1}"
     return f"{scheme} {buckets}"
