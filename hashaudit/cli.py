@@ -107,6 +107,12 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
     metavar="S",
     help="Bucketing scheme (repeatable): mod, mask, high, range. Default: mask for powers of two, else mod.",
 )
+@click.option(
+    "--checks",
+    metavar="LIST",
+    help="Check groups or names, comma-separated: buckets, bits (bit_bias, bit_correlation), or all. "
+    "Default: buckets,bits.",
+)
 @click.option("--seed", type=int, default=0, show_default=True, help="Seed of seeded hashes and simulations.")
 @click.option("--json", "json_path", metavar="FILE", help="Write the JSON report to FILE.")
 @click.option(
@@ -192,6 +198,7 @@ def audit(
     hashes,
     buckets,
     schemes,
+    checks,
     seed,
     json_path,
     alpha,
@@ -212,6 +219,7 @@ def audit(
     SOURCE is a key file (one key per line, CSV/TSV, JSON Lines; .gz .bz2 .xz .zst by suffix) or - for
     standard input. Exit code 0: every check passed; 1: a check failed; 2: bad usage or input.
     """
+    from hashaudit.engine.checks import parse_checks
     from hashaudit.engine.local import AuditPlan
     from hashaudit.engine.sources import audit as run_audit
     from hashaudit.hashes.registry import DEFAULT_HASHES
@@ -222,7 +230,14 @@ def audit(
     _refuse_overwriting_inputs([json_path], sources)
     thresholds = Thresholds(alpha, max_cost_excess, max_empty_excess, max_load_ratio)
     plan = AuditPlan(
-        tuple(hashes) or DEFAULT_HASHES, tuple(buckets), tuple(schemes), seed, thresholds, not all_keys, distinct_memory
+        tuple(hashes) or DEFAULT_HASHES,
+        tuple(buckets),
+        tuple(schemes),
+        seed,
+        thresholds,
+        not all_keys,
+        distinct_memory,
+        parse_checks(checks),
     )
     result = run_audit(list(sources), plan, _source_options(source_kw), threads=threads)
     if json_path:

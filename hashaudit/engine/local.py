@@ -15,10 +15,12 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from hashaudit.engine.checks import CHECK_GROUPS, DEFAULT_GROUPS
 from hashaudit.engine.prefetch import prefetch
 from hashaudit.errors import UsageError
 from hashaudit.hashes.registry import DEFAULT_HASHES, REGISTRY, HashRegistry, HashSpec
 from hashaudit.keys.batch import KeyBatch
+from hashaudit.stats.bits import BitCounts
 from hashaudit.stats.buckets import BucketCounts, BucketCountsResult
 from hashaudit.stats.distinct import DEFAULT_MEMORY_BYTES, DistinctKeys
 from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
@@ -49,6 +51,8 @@ class AuditPlan:
         Count each distinct key once (the hash is not to blame for repeats); False counts every occurrence.
     distinct_memory : int
         Memory budget in bytes of the distinct-key fingerprint set.
+    checks : tuple of str
+        Check groups to run (``hashaudit.engine.checks.CHECK_GROUPS``).
     """
 
     hashes: tuple[str, ...] = DEFAULT_HASHES
@@ -58,6 +62,7 @@ class AuditPlan:
     thresholds: Thresholds = field(default_factory=Thresholds)
     distinct: bool = True
     distinct_memory: int = DEFAULT_MEMORY_BYTES
+    checks: tuple[str, ...] = DEFAULT_GROUPS
 
     def __post_init__(self) -> None:
         if not self.hashes:
@@ -65,6 +70,11 @@ class AuditPlan:
         object.__setattr__(self, "hashes", tuple(dict.fromkeys(self.hashes)))
         object.__setattr__(self, "buckets", tuple(dict.fromkeys(self.buckets)))
         object.__setattr__(self, "schemes", tuple(dict.fromkeys(self.schemes)))
+        for group in self.checks:
+            if group not in CHECK_GROUPS:
+                raise UsageError(f"unknown check group {group!r}; choose from {', '.join(CHECK_GROUPS)}")
+        if not self.checks:
+            raise UsageError("no check to run")
         for scheme in self.schemes:
             if scheme not in SCHEMES:
                 raise UsageError(f"unknown scheme {scheme!r}; choose one of {', '.join(SCHEMES)}")
@@ -78,6 +88,8 @@ class AuditPlan:
 
     def tables(self, keys: int | None) -> list[tuple[str, int]]:
         """The (scheme, m) pairs to count; ``keys`` is needed when sizes are automatic."""
+        if "buckets" not in self.checks:
+            return []
         if self.buckets:
             # a power-of-two-only scheme skips sizes another requested scheme can use (checked in __post_init__)
             sizes, primes = list(self.buckets), list[int]()
@@ -98,13 +110,24 @@ class AuditPlan:
 
     def needs_key_count(self) -> bool:
         """True when table sizes depend on the number of keys."""
-        return not self.buckets
+        return not self.buckets and "buckets" in self.checks
 
 
 @dataclass
 class _HashState:
     spec: HashSpec
     tables: list[BucketCounts]
+    bits: BitCounts | None = None
+
+    def streams(self) -> list[BucketCounts | BitCounts]:
+        """Every accumulator fed with this hash's values."""
+        return [*self.tables, *([self.bits] if self.bits is not None else [])]
+
+
+def _new_state(spec: HashSpec, plan: AuditPlan, pairs: list[tuple[str, int]]) -> _HashState:
+    tables = [BucketCounts(spec.name, plan.seed, scheme, m, spec.width) for scheme, m in pairs]
+    bits = BitCounts(spec.name, plan.seed, spec.width) if "bits" in plan.checks else None
+    return _HashState(spec, tables, bits)
 
 
 def audit_batches(
@@ -155,11 +178,7 @@ def audit_batches(
         lanes = max(1, len(specs))
     split_keys = len(specs) < lanes
     lane_states = [
-        [
-            _HashState(spec, [BucketCounts(spec.name, plan.seed, scheme, m, spec.width) for scheme, m in pairs])
-            for i, spec in enumerate(specs)
-            if split_keys or i % lanes == lane
-        ]
+        [_new_state(spec, plan, pairs) for i, spec in enumerate(specs) if split_keys or i % lanes == lane]
         for lane in range(lanes)
     ]
     hash_seconds = {spec.name: 0.0 for spec in specs}
@@ -170,8 +189,8 @@ def audit_batches(
             values = state.spec.hash_batch(batch, plan.seed if state.spec.seeded else 0)
             if first is not None:
                 values = values[first]
-            for table in state.tables:
-                table.update(values)
+            for accumulator in state.streams():
+                accumulator.update(values)
             hash_seconds[state.spec.name] += time.perf_counter() - t0
 
     distinct = DistinctKeys(plan.distinct_memory) if plan.distinct else None
@@ -239,7 +258,7 @@ def _check_memory(needed: int, pairs: list[tuple[str, int]]) -> None:
     """Refuse tables whose counts cannot fit, instead of running the machine out of memory."""
     available = _available_memory_bytes()
     # the counts, plus one floating-point copy of the largest table while its statistics are computed
-    peak = needed + 8 * max(m for _, m in pairs)
+    peak = needed + 8 * max((m for _, m in pairs), default=0)
     if available is not None and peak > 0.8 * available:
         raise UsageError(
             f"the tables need {peak / 2**30:.1f} GiB for their counts (8 bytes per bucket per table and hash) but "
@@ -267,8 +286,8 @@ def _merge_lanes(lane_states: list[list[_HashState]]) -> list[_HashState]:
     merged = lane_states[0]
     for other in lane_states[1:]:
         for mine, theirs in zip(merged, other, strict=True):
-            for table, twin in zip(mine.tables, theirs.tables, strict=True):
-                table.merge(twin)
+            for accumulator, twin in zip(mine.streams(), theirs.streams(), strict=True):
+                accumulator.merge(twin)  # type: ignore[arg-type]
     return merged
 
 
@@ -281,6 +300,7 @@ def _conclude(
     started: float,
     hash_seconds: dict[str, float],
 ) -> AuditResult:
+    from hashaudit.stats.bits import bit_tests
     from hashaudit.stats.fit import bucket_tests
 
     family = []
@@ -291,6 +311,11 @@ def _conclude(
             for test in bucket_tests(result, seed=plan.seed):
                 family.append((state.spec.name, result.scheme, result.buckets, result.keys, test))
             summaries_by_hash.setdefault(state.spec.name, []).append(_summary(result))
+        summaries_by_hash.setdefault(state.spec.name, [])
+        if state.bits is not None:
+            bits_result = state.bits.result()
+            for test in bit_tests(bits_result, seed=plan.seed):
+                family.append((state.spec.name, None, None, bits_result.keys, test))
     findings = judge(family, plan.thresholds)
     hash_audits = []
     for state in states:
@@ -313,6 +338,7 @@ def _conclude(
     settings = {
         "hashes": [s.spec.name for s in states],
         "tables": [{"scheme": t.scheme, "buckets": t.buckets} for t in states[0].tables],
+        "checks": list(plan.checks),
         "seed": plan.seed,
         "count": "distinct" if plan.distinct else "all",
         "thresholds": asdict(plan.thresholds),

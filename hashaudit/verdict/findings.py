@@ -32,12 +32,18 @@ class Thresholds:
         Extra empty buckets as a fraction of the table (0.02 = two percentage points).
     max_load_ratio : float
         Hottest bucket over the expected maximum under uniform hashing.
+    bit_bias_max : float
+        Largest deviation of an output bit's share of ones from 1/2 (0.01 = a bit set in 51 % of the keys).
+    bit_correlation_max : float
+        Largest correlation (phi) between two output bits.
     """
 
     alpha: float = 0.01
     lookup_cost_excess: float = 0.05
     empty_excess: float = 0.02
     max_load_ratio: float = 1.25
+    bit_bias_max: float = 0.01
+    bit_correlation_max: float = 0.05
 
     def __post_init__(self) -> None:
         if not 0 < self.alpha < 1:
@@ -169,6 +175,16 @@ def _skew_sentence(test: FitTest) -> str:
             f"{_pct(e.observed)} of buckets stay empty against {_pct(e.ideal)} for an ideal hash "
             f"({100 * e.value:+.1f} points)"
         )
+    if e.name == "bit_bias_max":
+        bit = test.details.get("worst_bit")
+        share = test.details.get("worst_bit_ones_fraction", 0.5)
+        return (
+            f"output bit {bit} is set in {100 * share:.2f} % of the keys (largest deviation {100 * e.observed:.2f} "
+            f"points against {100 * e.ideal:.2f} expected by chance)"
+        )
+    if e.name == "bit_correlation_max":
+        pair = test.details.get("worst_pair")
+        return f"output bits {pair} are correlated (phi = {e.observed:.3f} against {e.ideal:.3f} expected by chance)"
     return (
         f"the hottest bucket holds {_num(e.observed)} keys against an expected maximum of {_num(e.ideal)} "
         f"({e.value:,.3g}×)"

@@ -43,16 +43,22 @@ def test_report_validates_against_the_shipped_schema():
     jsonschema.Draft202012Validator.check_schema(schema())
     jsonschema.validate(doc, schema())
     assert doc["schema"] == "hashaudit.audit/1"
-    assert {c["name"] for h in doc["hashes"] for c in h["checks"]} == {
+    names = {c["name"] for h in doc["hashes"] for c in h["checks"]}
+    assert names == {
         "chi_square",
         "g_test",
         "empty_buckets",
         "colliding_pairs",
         "max_load",
+        "bit_bias",
+        "bit_correlation",
     }
-    assert all(
-        c["scheme"] in ("mod", "range") and c["buckets"] in (1024, 1021) for h in doc["hashes"] for c in h["checks"]
-    )
+    for h in doc["hashes"]:
+        for c in h["checks"]:
+            if c["name"].startswith("bit_"):
+                assert "scheme" not in c and "buckets" not in c  # a check of the full hash value has no table
+            else:
+                assert c["scheme"] in ("mod", "range") and c["buckets"] in (1024, 1021)
 
 
 def test_plan_tables_auto_and_explicit():
@@ -88,7 +94,7 @@ def test_effect_threshold_turns_fail_into_warn():
 
 
 def test_too_regular_is_info_never_fail():
-    plan = AuditPlan(hashes=("identity",), buckets=(1000,), schemes=("mod",))
+    plan = AuditPlan(hashes=("identity",), buckets=(1000,), schemes=("mod",), checks=("buckets",))
     result = audit_batches([KeyBatch.from_uint64(np.arange(100_000, dtype=np.uint64))], plan)
     verdicts = {f.check: (f.verdict, f.direction) for f in result.findings}
     assert verdicts["chi_square"] == ("info", "too_regular")
@@ -98,7 +104,7 @@ def test_too_regular_is_info_never_fail():
 def test_dataframe_has_one_row_per_finding():
     result = audit_batches(batches_of(1000), PLAN)
     frame = result.to_dataframe()
-    assert len(frame) == len(result.findings) == 3 * 4 * 5
+    assert len(frame) == len(result.findings) == 3 * (4 * 5 + 2)
     assert {"hash", "check", "verdict", "p_value", "p_adjusted", "effect_value"} <= set(frame.columns)
 
 
@@ -183,3 +189,25 @@ def test_distinct_memory_budget_is_a_clear_error():
     plan = AuditPlan(hashes=("identity",), buckets=(1024,), distinct_memory=1 << 18)
     with pytest.raises(UsageError, match="--all-keys"):
         audit_batches([KeyBatch.from_uint64(values)], plan)
+
+
+def test_check_groups_select_what_runs():
+    from hashaudit.engine.checks import parse_checks
+
+    assert parse_checks(None) == ("buckets", "bits")
+    assert parse_checks("bit_bias") == ("bits",)
+    assert parse_checks("all") == ("buckets", "bits")
+    with pytest.raises(UsageError, match="unknown check 'entropy'"):
+        parse_checks("entropy")
+    only_bits = audit_batches(batches_of(1000), AuditPlan(hashes=("xxh3_64",), checks=("bits",)))
+    assert {f.check for f in only_bits.findings} == {"bit_bias", "bit_correlation"}
+    assert only_bits.hashes[0].tables == ()
+
+
+def test_bit_checks_catch_a_function_with_dead_bits():
+    """identity on small integers: the high output bits never change, so bit_bias fails."""
+    plan = AuditPlan(hashes=("identity",), checks=("bits",))
+    result = audit_batches([KeyBatch.from_uint64(np.arange(50_000, dtype=np.uint64))], plan)
+    verdicts = {f.check: f.verdict for f in result.findings}
+    assert verdicts["bit_bias"] == "fail"
+    assert "output bit" in next(f.message for f in result.findings if f.check == "bit_bias")
