@@ -23,6 +23,7 @@ from hashaudit.keys.batch import KeyBatch
 from hashaudit.stats.bits import BitCounts
 from hashaudit.stats.buckets import BucketCounts, BucketCountsResult
 from hashaudit.stats.distinct import DEFAULT_MEMORY_BYTES, DistinctKeys
+from hashaudit.stats.outcome import FitTest
 from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
 from hashaudit.tables.sizes import auto_sizes
 from hashaudit.verdict.findings import Thresholds, judge, worst_verdict
@@ -303,7 +304,7 @@ def _conclude(
     from hashaudit.stats.bits import bit_tests
     from hashaudit.stats.fit import bucket_tests
 
-    family = []
+    family: list[tuple[str, str | None, int | None, int, FitTest]] = []
     summaries_by_hash: dict[str, list[TableSummary]] = {}
     for state in states:
         for table in state.tables:

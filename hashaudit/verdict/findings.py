@@ -191,7 +191,7 @@ def _skew_sentence(test: FitTest) -> str:
     )
 
 
-def judge(tests: list[tuple[str, str, int, int, FitTest]], thresholds: Thresholds) -> list[Finding]:
+def judge(tests: list[tuple[str, str | None, int | None, int, FitTest]], thresholds: Thresholds) -> list[Finding]:
     """Turn the tests of one audit into findings.
 
     Parameters

@@ -25,6 +25,7 @@ from hashaudit.stats.collisions import (
     PARTITIONS,
     CollisionGroup,
     FullCollisions,
+    _count_groups,
     _count_groups_kernel,
     _partition_kernel,
     _poisson_p,
@@ -330,27 +331,67 @@ def test_no_keys_no_test():
 # ------------------------------------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize(("width", "column", "shift"), [(32, 0, 24), (64, 0, 56), (128, 1, 56)])
-def test_partition_kernel_matches_a_stable_argsort(width, column, shift):
+GOLDEN = 0x9E3779B97F4A7C15  # 2^64 / golden ratio (Knuth, TAOCP vol. 3, §6.4)
+
+
+def partition_of(value: int, width: int) -> int:
+    """The documented partition rule, in plain Python integers."""
+    mask = (1 << 64) - 1
+    if width == 128:
+        value = ((value >> 64) * GOLDEN & mask) ^ (value & mask)
+    return (value * GOLDEN & mask) >> 56
+
+
+@pytest.mark.parametrize("width", [32, 64, 128])
+def test_partition_kernel_matches_plain_python(width):
     rows = planted_values(width, 20_000, seed=1).reshape(20_000, -1)
     out = np.empty_like(rows)
     bounds = np.empty(PARTITIONS + 1, dtype=np.int64)
-    _partition_kernel(rows, column, shift, out, bounds)
-    top = (rows[:, column] >> np.uint64(shift)).astype(np.uint8)
-    np.testing.assert_array_equal(out, rows[np.argsort(top, kind="stable")])
-    np.testing.assert_array_equal(np.diff(bounds), np.bincount(top, minlength=PARTITIONS))
+    _partition_kernel(rows, out, bounds)
+    parts = np.array([partition_of(v, width) for v in as_ints(rows.reshape(20_000) if width < 128 else rows)])
+    np.testing.assert_array_equal(out, rows[np.argsort(parts, kind="stable")])
+    np.testing.assert_array_equal(np.diff(bounds), np.bincount(parts, minlength=PARTITIONS))
+
+
+def test_values_with_constant_top_bits_still_spread_over_the_partitions(tmp_path):
+    # a "64-bit" function whose values fit in 32 bits, and a 128-bit one whose high word is always 0
+    narrow = np.random.default_rng(3).integers(0, 2**32, size=50_000, dtype=np.uint64)
+    acc = FullCollisions("narrow", 0, 64, memory_bytes=0, spill_dir=str(tmp_path)).update(narrow)
+    (folder,) = tmp_path.iterdir()
+    assert len(list(folder.iterdir())) == PARTITIONS
+    assert acc.result().colliding_pairs == reference(narrow)[0]
+    widened = np.stack([narrow, np.zeros_like(narrow)], axis=1)
+    acc = FullCollisions("widened", 0, 128, memory_bytes=0, spill_dir=str(tmp_path)).update(widened)
+    (folder,) = tmp_path.iterdir()
+    assert len(list(folder.iterdir())) == PARTITIONS
+    assert acc.result().colliding_pairs == reference(narrow)[0]
 
 
 @pytest.mark.parametrize("width", [32, 64, 128])
 def test_sorted_rows_match_numpy(width):
     rows = planted_values(width, 20_000, seed=2).reshape(20_000, -1)
-    # many equal high words, so the tie fix is exercised on long runs too
     if width == 128:
-        rows[:, 1] %= np.uint64(37)
-        expected = rows[np.lexsort((rows[:, 0], rows[:, 1]))]
+        rows[:, 1] %= np.uint64(37)  # long runs of equal high words
+        expected = np.array(sorted(as_ints(rows)), dtype=object)
+        got = np.array(as_ints(_sort_rows(rows.copy())), dtype=object)
+        np.testing.assert_array_equal(got, expected)
     else:
-        expected = np.sort(rows, axis=0)
-    np.testing.assert_array_equal(_sort_rows(rows.copy()), expected)
+        np.testing.assert_array_equal(_sort_rows(rows.copy()), np.sort(rows, axis=0))
+
+
+def test_128_bit_groups_with_many_shared_high_words():
+    rng = np.random.default_rng(9)
+    rows = rng.integers(0, 2**64, size=(30_000, 2), dtype=np.uint64)
+    rows[:, 1] %= np.uint64(101)  # every high word repeats; only some low words do
+    rows[:, 0] %= np.uint64(20_000)
+    top_sizes = np.zeros(LARGEST_GROUPS, dtype=np.int64)
+    top_rows = np.zeros((LARGEST_GROUPS, 2), dtype=np.uint64)
+    pairs, keys, groups = _count_groups(rows.copy(), top_sizes, top_rows)
+    expected = reference(rows)
+    assert (pairs, keys, groups) == expected[:3] and pairs > 0
+    result = FullCollisions("h", 0, 128).update(rows).result()
+    assert (result.colliding_pairs, result.keys_in_collisions, result.groups) == expected[:3]
+    assert list(result.largest) == expected[3]
 
 
 def test_count_kernel_ranks_groups_by_size_then_value():
