@@ -170,6 +170,20 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
     help="Fail above this ratio of hottest bucket to its expected maximum.",
 )
 @click.option(
+    "--max-bit-bias",
+    type=float,
+    default=0.01,
+    show_default=True,
+    help="Fail above this deviation of an output bit's share of ones from 1/2.",
+)
+@click.option(
+    "--max-bit-correlation",
+    type=float,
+    default=0.05,
+    show_default=True,
+    help="Fail above this correlation (phi) between two output bits.",
+)
+@click.option(
     "--all-keys",
     is_flag=True,
     help="Count every occurrence; by default each distinct key counts once (repeats are not the hash's fault).",
@@ -205,6 +219,8 @@ def audit(
     max_cost_excess,
     max_empty_excess,
     max_load_ratio,
+    max_bit_bias,
+    max_bit_correlation,
     all_keys,
     distinct_memory,
     threads,
@@ -228,7 +244,7 @@ def audit(
     from hashaudit.verdict.findings import Thresholds
 
     _refuse_overwriting_inputs([json_path], sources)
-    thresholds = Thresholds(alpha, max_cost_excess, max_empty_excess, max_load_ratio)
+    thresholds = Thresholds(alpha, max_cost_excess, max_empty_excess, max_load_ratio, max_bit_bias, max_bit_correlation)
     plan = AuditPlan(
         tuple(hashes) or DEFAULT_HASHES,
         tuple(buckets),

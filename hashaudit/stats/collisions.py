@@ -72,6 +72,7 @@ LARGEST_GROUPS = 10  # how many of the biggest groups a result keeps
 SLAB_BYTES = 64 << 20  # largest in-memory slab; above glibc's largest mmap threshold, so freeing returns it
 MIN_SLAB_BYTES = 1 << 20
 WIDTHS = (32, 64, 128)
+SMALL_ROWS = 1 << 20  # equality compares sets up to this size in one piece
 
 
 # --------------------------------------------------------------------------------------------------------
@@ -482,6 +483,9 @@ class FullCollisions:
             return
         parts = self._memory_parts()
         self._slabs, self._fill, self._memory_rows = [], 0, 0
+        if len(parts) == 1:  # one slab (at most 64 MiB): sorted as a whole, partitions would only cost time
+            yield parts.pop()
+            return
         pieces = []
         while parts:
             pieces.append(_partitioned(parts.pop(0)))  # each slab is freed once partitioned
@@ -496,8 +500,13 @@ class FullCollisions:
         self._disk_rows[partition] = 0
         return rows
 
-    def _peek_partitions(self) -> Iterator[np.ndarray]:
-        """Copies of the stored rows of each partition, in partition order (leaves the state as it is)."""
+    def _peek_partitions(self, whole: bool = False) -> Iterator[np.ndarray]:
+        """Copies of the stored rows of each partition, in partition order, or of all of them at once when
+        ``whole`` (leaves the state as it is)."""
+        if whole:
+            disk = [self._read(int(p)) for p in np.flatnonzero(self._disk_rows)]
+            yield np.concatenate([np.empty((0, self._words), dtype=np.uint64), *disk, *self._memory_parts()])
+            return
         pieces = [_partitioned(part) for part in self._memory_parts()]
         for p in range(PARTITIONS):
             chunks = [self._read(p)] if self._disk_rows[p] else []
@@ -558,7 +567,8 @@ class FullCollisions:
             return False
         if self.result_ is not None or other.result_ is not None:
             return self._peek_result() == other._peek_result()
-        for mine, theirs in zip(self._peek_partitions(), other._peek_partitions(), strict=True):
+        whole = self.keys_seen_ <= SMALL_ROWS  # small sets compare at once; large ones a partition at a time
+        for mine, theirs in zip(self._peek_partitions(whole), other._peek_partitions(whole), strict=True):
             if not np.array_equal(_sort_rows(mine), _sort_rows(theirs)):
                 return False
         return True
@@ -568,7 +578,7 @@ class FullCollisions:
     def __getstate__(self) -> dict:
         rows = None
         if self.result_ is None and not self._closed:
-            rows = np.concatenate([*self._peek_partitions(), np.empty((0, self._words), dtype=np.uint64)])
+            (rows,) = self._peek_partitions(whole=True)
         return {
             "settings": (self.hash_name, self.seed, self.width, self.memory_bytes, self.spill_dir),
             "keys_seen": self.keys_seen_,
