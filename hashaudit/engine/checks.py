@@ -7,8 +7,9 @@ from hashaudit.errors import UsageError
 CHECK_GROUPS: dict[str, tuple[str, ...]] = {
     "buckets": ("chi_square", "g_test", "empty_buckets", "colliding_pairs", "max_load"),
     "bits": ("bit_bias", "bit_correlation"),
+    "avalanche": ("avalanche", "bit_independence"),
 }
-DEFAULT_GROUPS: tuple[str, ...] = ("buckets", "bits")
+DEFAULT_GROUPS: tuple[str, ...] = ("buckets", "bits", "avalanche")
 
 
 def parse_checks(text: str | None) -> tuple[str, ...]:

@@ -20,6 +20,7 @@ from hashaudit.engine.prefetch import prefetch
 from hashaudit.errors import UsageError
 from hashaudit.hashes.registry import DEFAULT_HASHES, REGISTRY, HashRegistry, HashSpec
 from hashaudit.keys.batch import KeyBatch
+from hashaudit.stats.avalanche import DEFAULT_MAX_BYTES, DEFAULT_SAMPLE_SIZE, KeySample
 from hashaudit.stats.bits import BitCounts
 from hashaudit.stats.buckets import BucketCounts, BucketCountsResult
 from hashaudit.stats.distinct import DEFAULT_MEMORY_BYTES, DistinctKeys
@@ -54,6 +55,10 @@ class AuditPlan:
         Memory budget in bytes of the distinct-key fingerprint set.
     checks : tuple of str
         Check groups to run (``hashaudit.engine.checks.CHECK_GROUPS``).
+    avalanche_keys : int
+        Size of the key sample the avalanche checks flip bits of.
+    avalanche_bytes : int
+        Leading bytes of each sampled key whose bits are flipped.
     """
 
     hashes: tuple[str, ...] = DEFAULT_HASHES
@@ -64,6 +69,8 @@ class AuditPlan:
     distinct: bool = True
     distinct_memory: int = DEFAULT_MEMORY_BYTES
     checks: tuple[str, ...] = DEFAULT_GROUPS
+    avalanche_keys: int = DEFAULT_SAMPLE_SIZE
+    avalanche_bytes: int = DEFAULT_MAX_BYTES
 
     def __post_init__(self) -> None:
         if not self.hashes:
@@ -195,6 +202,7 @@ def audit_batches(
             hash_seconds[state.spec.name] += time.perf_counter() - t0
 
     distinct = DistinctKeys(plan.distinct_memory) if plan.distinct else None
+    sample = KeySample(plan.avalanche_keys, plan.seed) if "avalanche" in plan.checks else None
     total = 0
     pool = ThreadPoolExecutor(max_workers=lanes - 1, thread_name_prefix="hashaudit-hash") if lanes > 1 else None
     try:
@@ -207,6 +215,8 @@ def audit_batches(
                 if estimate:
                     distinct.reserve(estimate)
             first = distinct.update(batch) if distinct is not None else None
+            if sample is not None:
+                sample.update(batch)  # a bottom-k sample: repeated keys count once by construction
             if first is not None and first.all():
                 first = None  # nothing to drop: skip the copy
             if pool is None:
@@ -238,7 +248,7 @@ def audit_batches(
     else:
         order = [spec.name for spec in specs]
         states = sorted((st for lane in lane_states for st in lane), key=lambda st: order.index(st.spec.name))
-    return _conclude(states, plan, total, occurrences, sources, started, hash_seconds)
+    return _conclude(states, plan, total, occurrences, sources, started, hash_seconds, sample)
 
 
 def _available_memory_bytes() -> int | None:
@@ -300,7 +310,9 @@ def _conclude(
     sources: Sequence[dict],
     started: float,
     hash_seconds: dict[str, float],
+    sample: KeySample | None = None,
 ) -> AuditResult:
+    from hashaudit.stats.avalanche import avalanche_matrix, avalanche_tests
     from hashaudit.stats.bits import bit_tests
     from hashaudit.stats.fit import bucket_tests
 
@@ -317,6 +329,11 @@ def _conclude(
             bits_result = state.bits.result()
             for test in bit_tests(bits_result, seed=plan.seed):
                 family.append((state.spec.name, None, None, bits_result.keys, test))
+        if sample is not None and len(sample):
+            hash_seed = plan.seed if state.spec.seeded else 0
+            matrix = avalanche_matrix(state.spec, sample, seed=hash_seed, max_bytes=plan.avalanche_bytes)
+            for test in avalanche_tests(matrix):
+                family.append((state.spec.name, None, None, matrix.keys, test))
     findings = judge(family, plan.thresholds)
     hash_audits = []
     for state in states:

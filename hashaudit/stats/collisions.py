@@ -164,7 +164,7 @@ def _count_groups(rows: np.ndarray, top_sizes: np.ndarray, top_rows: np.ndarray)
         # full only the rows whose high word repeats (a handful for any decent hash)
         high = rows[:, 1].copy()
         high.sort()
-        repeated = high[1:][high[1:] == high[:-1]]
+        repeated = np.unique(high[1:][high[1:] == high[:-1]])
         del high
         if len(repeated) == 0:
             return 0, 0, 0
@@ -272,8 +272,10 @@ class FullCollisions:
     Notes
     -----
     Learned state: ``keys_seen_`` (values given), ``spilled_bytes_`` (bytes this object has written to its spill
-    folder; informational, not part of equality) and ``result_`` (set by ``result()``). Equality compares the multisets of stored values partition by
-    partition (a sort of both sides: meant for tests); pickling writes every stored value into the pickle.
+    folder; informational, not part of equality) and ``result_`` (set by ``result()``). Equality compares the
+    multisets of stored values (in one piece for up to 2^20 values, else partition by partition; a sort of both
+    sides, meant for tests); pickling writes every stored value into the pickle. Each accumulator has its own
+    budget: several of them (one per hash, or per thread) need several budgets.
     """
 
     def __init__(

@@ -36,6 +36,10 @@ class Thresholds:
         Largest deviation of an output bit's share of ones from 1/2 (0.01 = a bit set in 51 % of the keys).
     bit_correlation_max : float
         Largest correlation (phi) between two output bits.
+    avalanche_bias_max : float
+        Largest deviation from 1/2 of the probability that flipping one input bit flips one output bit.
+    bit_independence_max : float
+        Largest correlation (phi) between the flips of two output bits.
     """
 
     alpha: float = 0.01
@@ -44,6 +48,8 @@ class Thresholds:
     max_load_ratio: float = 1.25
     bit_bias_max: float = 0.01
     bit_correlation_max: float = 0.05
+    avalanche_bias_max: float = 0.15
+    bit_independence_max: float = 0.05
 
     def __post_init__(self) -> None:
         if not 0 < self.alpha < 1:
@@ -181,6 +187,19 @@ def _skew_sentence(test: FitTest) -> str:
         return (
             f"output bit {bit} is set in {100 * share:.2f} % of the keys (largest deviation {100 * e.observed:.2f} "
             f"points against {100 * e.ideal:.2f} expected by chance)"
+        )
+    if e.name == "avalanche_bias_max":
+        d = test.details
+        cell = f"input bit {d.get('worst_input_bit')} → output bit {d.get('worst_output_bit')}"
+        return (
+            f"flipping one input bit does not flip each output bit half the time: {cell} flips with probability "
+            f"{d.get('worst_flip_probability', float('nan')):.2f} (largest deviation {e.observed:.3f} against "
+            f"{e.ideal:.3f} by chance)"
+        )
+    if e.name == "bit_independence_max":
+        return (
+            f"output bits flip together: bits {test.details.get('worst_output_bits')} have phi = {e.observed:.3f} against "
+            f"{e.ideal:.3f} by chance"
         )
     if e.name == "bit_correlation_max":
         pair = test.details.get("worst_pair")

@@ -45,17 +45,12 @@ def test_report_validates_against_the_shipped_schema():
     assert doc["schema"] == "hashaudit.audit/1"
     names = {c["name"] for h in doc["hashes"] for c in h["checks"]}
     assert names == {
-        "chi_square",
-        "g_test",
-        "empty_buckets",
-        "colliding_pairs",
-        "max_load",
-        "bit_bias",
-        "bit_correlation",
-    }
+        "chi_square", "g_test", "empty_buckets", "colliding_pairs", "max_load", "bit_bias", "bit_correlation",
+        "avalanche", "bit_independence",
+    }  # fmt: skip
     for h in doc["hashes"]:
         for c in h["checks"]:
-            if c["name"].startswith("bit_"):
+            if c["name"] in ("bit_bias", "bit_correlation", "avalanche", "bit_independence"):
                 assert "scheme" not in c and "buckets" not in c  # a check of the full hash value has no table
             else:
                 assert c["scheme"] in ("mod", "range") and c["buckets"] in (1024, 1021)
@@ -104,7 +99,7 @@ def test_too_regular_is_info_never_fail():
 def test_dataframe_has_one_row_per_finding():
     result = audit_batches(batches_of(1000), PLAN)
     frame = result.to_dataframe()
-    assert len(frame) == len(result.findings) == 3 * (4 * 5 + 2)
+    assert len(frame) == len(result.findings) == 3 * (4 * 5 + 2 + 2)
     assert {"hash", "check", "verdict", "p_value", "p_adjusted", "effect_value"} <= set(frame.columns)
 
 
@@ -194,9 +189,10 @@ def test_distinct_memory_budget_is_a_clear_error():
 def test_check_groups_select_what_runs():
     from hashaudit.engine.checks import parse_checks
 
-    assert parse_checks(None) == ("buckets", "bits")
+    assert parse_checks(None) == ("buckets", "bits", "avalanche")
     assert parse_checks("bit_bias") == ("bits",)
-    assert parse_checks("all") == ("buckets", "bits")
+    assert parse_checks("all") == ("buckets", "bits", "avalanche")
+    assert parse_checks("bit_independence,chi_square") == ("buckets", "avalanche")
     with pytest.raises(UsageError, match="unknown check 'entropy'"):
         parse_checks("entropy")
     only_bits = audit_batches(batches_of(1000), AuditPlan(hashes=("xxh3_64",), checks=("bits",)))
@@ -211,3 +207,12 @@ def test_bit_checks_catch_a_function_with_dead_bits():
     verdicts = {f.check: f.verdict for f in result.findings}
     assert verdicts["bit_bias"] == "fail"
     assert "output bit" in next(f.message for f in result.findings if f.check == "bit_bias")
+
+
+def test_avalanche_on_the_audited_keys():
+    """Linear functions cannot avalanche (Webster & Tavares 1985): crc32 and poly31 fail, xxh3_64 passes."""
+    plan = AuditPlan(hashes=("crc32", "poly31", "xxh3_64"), checks=("avalanche",), avalanche_keys=1024)
+    result = audit_batches(batches_of(1000), plan)
+    verdicts = {(f.hash_name, f.check): f.verdict for f in result.findings}
+    assert verdicts[("crc32", "avalanche")] == verdicts[("poly31", "avalanche")] == "fail"
+    assert verdicts[("xxh3_64", "avalanche")] == verdicts[("xxh3_64", "bit_independence")] == "pass"

@@ -20,6 +20,7 @@ import numpy as np
 import pytest
 
 from hashaudit.errors import MergeError, UsageError
+from hashaudit.stats import collisions
 from hashaudit.stats.collisions import (
     LARGEST_GROUPS,
     PARTITIONS,
@@ -105,7 +106,7 @@ class TestFullCollisions:
         assert acc.result() == whole.result()
 
     def test_merge_of_partitions_equals_one_pass(self):
-        parts = np.array_split(self.values, 7)
+        parts = np.array_split(self.values, 4)
         accs = [self.make().update(p) for p in parts]
         left = accs[0].copy()
         for a in accs[1:]:
@@ -124,6 +125,13 @@ class TestFullCollisions:
         twice = self.make().update(self.values[:1000]).update(self.values[:1000])
         assert acc == twice
         assert acc.result().colliding_pairs == reference(np.concatenate([self.values[:1000]] * 2))[0]
+
+    def test_equality_sees_one_changed_value(self):
+        changed = self.values.copy()
+        changed[N // 2] ^= np.uint64(1)
+        acc, other = self.whole(), self.make().update(changed)
+        assert acc.keys_seen_ == other.keys_seen_ and acc != other
+        assert acc == self.make().update(self.values[::-1].copy())  # order does not matter
 
     def test_merge_refuses_other_settings(self):
         with pytest.raises(MergeError, match="settings differ"):
@@ -179,13 +187,27 @@ class TestFullCollisions128(TestFullCollisions):
     width = 128
 
 
+class TestFullCollisionsSmallSlabs(TestFullCollisions):
+    # 8 KiB slabs: several slabs stay in memory, and the result partitions them slab by slab
+    @pytest.fixture(autouse=True)
+    def _small_slabs(self, monkeypatch):
+        monkeypatch.setattr(collisions, "SLAB_BYTES", 8192)
+        monkeypatch.setattr(collisions, "MIN_SLAB_BYTES", 8192)
+        monkeypatch.setattr(collisions, "SMALL_ROWS", 0)  # equality partition by partition too
+
+    def test_values_fill_several_slabs(self):
+        acc = self.whole()
+        assert len(acc._slabs) == -(-N * 8 * acc._words // 8192) > 1
+
+
+class TestFullCollisions128SmallSlabs(TestFullCollisionsSmallSlabs):
+    width = 128
+
+
 class TestFullCollisionsSpilled(TestFullCollisions):
+    # 32-bit values spill through the same code as 64-bit ones: test_spilled_and_in_memory_results_are_identical
     memory_bytes = 512
     spilled = True
-
-
-class TestFullCollisions32Spilled(TestFullCollisionsSpilled):
-    width = 32
 
 
 class TestFullCollisions128Spilled(TestFullCollisionsSpilled):
