@@ -7,9 +7,10 @@ from hashaudit.errors import UsageError
 CHECK_GROUPS: dict[str, tuple[str, ...]] = {
     "buckets": ("chi_square", "g_test", "empty_buckets", "colliding_pairs", "max_load"),
     "bits": ("bit_bias", "bit_correlation"),
+    "collisions": ("full_collisions",),
     "avalanche": ("avalanche", "bit_independence"),
 }
-DEFAULT_GROUPS: tuple[str, ...] = ("buckets", "bits", "avalanche")
+DEFAULT_GROUPS: tuple[str, ...] = ("buckets", "bits", "collisions", "avalanche")
 
 
 def parse_checks(text: str | None) -> tuple[str, ...]:

@@ -23,6 +23,7 @@ from hashaudit.keys.batch import KeyBatch
 from hashaudit.stats.avalanche import DEFAULT_MAX_BYTES, DEFAULT_SAMPLE_SIZE, KeySample
 from hashaudit.stats.bits import BitCounts
 from hashaudit.stats.buckets import BucketCounts, BucketCountsResult
+from hashaudit.stats.collisions import FullCollisions
 from hashaudit.stats.distinct import DEFAULT_MEMORY_BYTES, DistinctKeys
 from hashaudit.stats.outcome import FitTest
 from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
@@ -59,6 +60,10 @@ class AuditPlan:
         Size of the key sample the avalanche checks flip bits of.
     avalanche_bytes : int
         Leading bytes of each sampled key whose bits are flipped.
+    collision_memory : int
+        Bytes of hash values the full-width collision count keeps in memory per hash before spilling to disk.
+    spill_dir : str or None
+        Folder for spilled hash values (default: the system's temporary folder).
     """
 
     hashes: tuple[str, ...] = DEFAULT_HASHES
@@ -71,6 +76,8 @@ class AuditPlan:
     checks: tuple[str, ...] = DEFAULT_GROUPS
     avalanche_keys: int = DEFAULT_SAMPLE_SIZE
     avalanche_bytes: int = DEFAULT_MAX_BYTES
+    collision_memory: int = 1 << 30
+    spill_dir: str | None = None
 
     def __post_init__(self) -> None:
         if not self.hashes:
@@ -126,16 +133,22 @@ class _HashState:
     spec: HashSpec
     tables: list[BucketCounts]
     bits: BitCounts | None = None
+    collisions: FullCollisions | None = None
 
-    def streams(self) -> list[BucketCounts | BitCounts]:
+    def streams(self) -> list[BucketCounts | BitCounts | FullCollisions]:
         """Every accumulator fed with this hash's values."""
-        return [*self.tables, *([self.bits] if self.bits is not None else [])]
+        extras = [a for a in (self.bits, self.collisions) if a is not None]
+        return [*self.tables, *extras]
 
 
-def _new_state(spec: HashSpec, plan: AuditPlan, pairs: list[tuple[str, int]]) -> _HashState:
+def _new_state(spec: HashSpec, plan: AuditPlan, pairs: list[tuple[str, int]], lanes: int) -> _HashState:
     tables = [BucketCounts(spec.name, plan.seed, scheme, m, spec.width) for scheme, m in pairs]
     bits = BitCounts(spec.name, plan.seed, spec.width) if "bits" in plan.checks else None
-    return _HashState(spec, tables, bits)
+    collisions = None
+    if "collisions" in plan.checks:
+        budget = plan.collision_memory // lanes  # each lane keeps its share in memory, then spills to disk
+        collisions = FullCollisions(spec.name, plan.seed, spec.width, budget, plan.spill_dir)
+    return _HashState(spec, tables, bits, collisions)
 
 
 def audit_batches(
@@ -186,7 +199,11 @@ def audit_batches(
         lanes = max(1, len(specs))
     split_keys = len(specs) < lanes
     lane_states = [
-        [_new_state(spec, plan, pairs) for i, spec in enumerate(specs) if split_keys or i % lanes == lane]
+        [
+            _new_state(spec, plan, pairs, lanes if split_keys else 1)
+            for i, spec in enumerate(specs)
+            if split_keys or i % lanes == lane
+        ]
         for lane in range(lanes)
     ]
     hash_seconds = {spec.name: 0.0 for spec in specs}
@@ -314,6 +331,7 @@ def _conclude(
 ) -> AuditResult:
     from hashaudit.stats.avalanche import avalanche_matrix, avalanche_tests
     from hashaudit.stats.bits import bit_tests
+    from hashaudit.stats.collisions import collision_tests
     from hashaudit.stats.fit import bucket_tests
 
     family: list[tuple[str, str | None, int | None, int, FitTest]] = []
@@ -329,6 +347,10 @@ def _conclude(
             bits_result = state.bits.result()
             for test in bit_tests(bits_result, seed=plan.seed):
                 family.append((state.spec.name, None, None, bits_result.keys, test))
+        if state.collisions is not None:
+            collision_result = state.collisions.result()
+            for test in collision_tests(collision_result):
+                family.append((state.spec.name, None, None, collision_result.keys, test))
         if sample is not None and len(sample):
             hash_seed = plan.seed if state.spec.seeded else 0
             matrix = avalanche_matrix(state.spec, sample, seed=hash_seed, max_bytes=plan.avalanche_bytes)

@@ -40,6 +40,8 @@ class Thresholds:
         Largest deviation from 1/2 of the probability that flipping one input bit flips one output bit.
     bit_independence_max : float
         Largest correlation (phi) between the flips of two output bits.
+    collision_excess : float
+        Full-width colliding pairs over the birthday expectation, (observed - expected) / max(expected, 1).
     """
 
     alpha: float = 0.01
@@ -50,6 +52,7 @@ class Thresholds:
     bit_correlation_max: float = 0.05
     avalanche_bias_max: float = 0.15
     bit_independence_max: float = 0.05
+    collision_excess: float = 0.1
 
     def __post_init__(self) -> None:
         if not 0 < self.alpha < 1:
@@ -187,6 +190,13 @@ def _skew_sentence(test: FitTest) -> str:
         return (
             f"output bit {bit} is set in {100 * share:.2f} % of the keys (largest deviation {100 * e.observed:.2f} "
             f"points against {100 * e.ideal:.2f} expected by chance)"
+        )
+    if e.name == "collision_excess":
+        d = test.details
+        return (
+            f"{_num(d.get('keys_in_collisions', 0))} distinct keys share their full {d.get('width')}-bit value "
+            f"({_num(d.get('groups', 0))} groups): {_num(test.observed)} colliding pairs against "
+            f"{test.expected:.3g} expected by the birthday bound"
         )
     if e.name == "avalanche_bias_max":
         d = test.details

@@ -46,11 +46,11 @@ def test_report_validates_against_the_shipped_schema():
     names = {c["name"] for h in doc["hashes"] for c in h["checks"]}
     assert names == {
         "chi_square", "g_test", "empty_buckets", "colliding_pairs", "max_load", "bit_bias", "bit_correlation",
-        "avalanche", "bit_independence",
-    }  # fmt: skip
+        "full_collisions", "avalanche", "bit_independence",
+    }  # fmt: skip  # fmt: skip
     for h in doc["hashes"]:
         for c in h["checks"]:
-            if c["name"] in ("bit_bias", "bit_correlation", "avalanche", "bit_independence"):
+            if c["name"] in ("bit_bias", "bit_correlation", "full_collisions", "avalanche", "bit_independence"):
                 assert "scheme" not in c and "buckets" not in c  # a check of the full hash value has no table
             else:
                 assert c["scheme"] in ("mod", "range") and c["buckets"] in (1024, 1021)
@@ -99,7 +99,7 @@ def test_too_regular_is_info_never_fail():
 def test_dataframe_has_one_row_per_finding():
     result = audit_batches(batches_of(1000), PLAN)
     frame = result.to_dataframe()
-    assert len(frame) == len(result.findings) == 3 * (4 * 5 + 2 + 2)
+    assert len(frame) == len(result.findings) == 3 * (4 * 5 + 2 + 1 + 2)
     assert {"hash", "check", "verdict", "p_value", "p_adjusted", "effect_value"} <= set(frame.columns)
 
 
@@ -189,9 +189,9 @@ def test_distinct_memory_budget_is_a_clear_error():
 def test_check_groups_select_what_runs():
     from hashaudit.engine.checks import parse_checks
 
-    assert parse_checks(None) == ("buckets", "bits", "avalanche")
+    assert parse_checks(None) == ("buckets", "bits", "collisions", "avalanche")
     assert parse_checks("bit_bias") == ("bits",)
-    assert parse_checks("all") == ("buckets", "bits", "avalanche")
+    assert parse_checks("all") == ("buckets", "bits", "collisions", "avalanche")
     assert parse_checks("bit_independence,chi_square") == ("buckets", "avalanche")
     with pytest.raises(UsageError, match="unknown check 'entropy'"):
         parse_checks("entropy")
@@ -216,3 +216,27 @@ def test_avalanche_on_the_audited_keys():
     verdicts = {(f.hash_name, f.check): f.verdict for f in result.findings}
     assert verdicts[("crc32", "avalanche")] == verdicts[("poly31", "avalanche")] == "fail"
     assert verdicts[("xxh3_64", "avalanche")] == verdicts[("xxh3_64", "bit_independence")] == "pass"
+
+
+def test_full_collisions_catch_keys_crafted_for_poly31():
+    """ "Aa" and "BB" have the same h = 31*h + byte value (31*65 + 97 = 31*66 + 66 = 2112, Java's String.hashCode,
+    from memory and checked by tests/hashes), so every string of such blocks collides fully under poly31."""
+    import itertools
+
+    crafted = [b"".join(blocks) for blocks in itertools.product([b"Aa", b"BB"], repeat=10)]
+    plan = AuditPlan(hashes=("poly31", "xxh3_64"), checks=("collisions",))
+    result = audit_batches([KeyBatch.from_keys(crafted)], plan)
+    by_hash = {f.hash_name: f for f in result.findings}
+    assert by_hash["poly31"].verdict == "fail"
+    assert by_hash["poly31"].observed == 1024 * 1023 / 2  # one group of all 1,024 keys
+    assert "1,024 distinct keys share their full 32-bit value" in by_hash["poly31"].message
+    assert by_hash["xxh3_64"].verdict == "pass"
+
+
+def test_collision_spill_gives_the_same_report(tmp_path):
+    small = AuditPlan(hashes=("fnv1a_32",), checks=("collisions",), collision_memory=1 << 12, spill_dir=str(tmp_path))
+    large = AuditPlan(hashes=("fnv1a_32",), checks=("collisions",))
+    assert stable(audit_batches(batches_of(500), small)).replace(str(1 << 12), "") == stable(
+        audit_batches(batches_of(500), large)
+    ).replace(str(1 << 30), "")
+    assert list(tmp_path.iterdir()) == []  # spilled files are removed

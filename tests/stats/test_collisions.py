@@ -313,14 +313,14 @@ def test_one_128_bit_collision_is_astronomically_significant():
 
 @pytest.mark.parametrize(("observed", "mean"), [(0, 4.66), (4, 4.66), (12, 4.66), (60, 4.66), (3, 1e-6), (1, 1e-29)])
 def test_poisson_tails_match_mpmath(observed, mean):
-    mpmath.mp.dps = 50
-    lam = mpmath.mpf(mean)
-    pmf = [mpmath.exp(-lam) * lam**j / mpmath.factorial(j) for j in range(observed + 1)]
-    upper = 1 - mpmath.fsum(pmf[:observed])  # P(X >= k), 50 digits
-    lower = mpmath.fsum(pmf)  # P(X <= k)
+    with mpmath.workdps(50):
+        lam = mpmath.mpf(mean)
+        pmf = [mpmath.exp(-lam) * lam**j / mpmath.factorial(j) for j in range(observed + 1)]
+        upper = float(1 - mpmath.fsum(pmf[:observed]))  # P(X >= k), 50 digits
+        lower = float(mpmath.fsum(pmf))  # P(X <= k)
     p_upper, p_lower = _poisson_p(observed, mean)
-    assert p_upper == pytest.approx(float(upper), rel=1e-12)
-    assert p_lower == pytest.approx(float(lower), rel=1e-12)
+    assert p_upper == pytest.approx(upper, rel=1e-12)
+    assert p_lower == pytest.approx(lower, rel=1e-12)
 
 
 def test_no_pairs_expected_and_none_seen():
