@@ -110,8 +110,30 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
 @click.option(
     "--checks",
     metavar="LIST",
-    help="Check groups or names, comma-separated: buckets, bits (bit_bias, bit_correlation), or all. "
-    "Default: buckets,bits.",
+    help="Check groups or names, comma-separated: buckets, bits, collisions, avalanche, or check names, or all. "
+    "Default: all of them.",
+)
+@click.option("--avalanche-keys", type=int, default=4096, show_default=True, help="Keys sampled for avalanche.")
+@click.option(
+    "--avalanche-bytes",
+    type=int,
+    default=16,
+    show_default=True,
+    help="Leading bytes of each sampled key whose bits are flipped.",
+)
+@click.option(
+    "--collision-memory",
+    type=TableSize(),
+    default="1g",
+    show_default=True,
+    metavar="BYTES",
+    help="Hash values kept in memory per function for full-width collisions before spilling to disk.",
+)
+@click.option(
+    "--spill-dir",
+    type=click.Path(file_okay=False),
+    metavar="DIR",
+    help="Folder for spilled hash values (default: the system's temporary folder).",
 )
 @click.option("--seed", type=int, default=0, show_default=True, help="Seed of seeded hashes and simulations.")
 @click.option("--json", "json_path", metavar="FILE", help="Write the JSON report to FILE.")
@@ -213,6 +235,10 @@ def audit(
     buckets,
     schemes,
     checks,
+    avalanche_keys,
+    avalanche_bytes,
+    collision_memory,
+    spill_dir,
     seed,
     json_path,
     alpha,
@@ -254,6 +280,10 @@ def audit(
         not all_keys,
         distinct_memory,
         parse_checks(checks),
+        avalanche_keys,
+        avalanche_bytes,
+        collision_memory,
+        spill_dir,
     )
     result = run_audit(list(sources), plan, _source_options(source_kw), threads=threads)
     if json_path:

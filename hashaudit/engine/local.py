@@ -90,6 +90,14 @@ class AuditPlan:
                 raise UsageError(f"unknown check group {group!r}; choose from {', '.join(CHECK_GROUPS)}")
         if not self.checks:
             raise UsageError("no check to run")
+        if self.avalanche_keys < 1:
+            raise UsageError(f"--avalanche-keys must be at least 1, not {self.avalanche_keys}")
+        if not 1 <= self.avalanche_bytes <= 4096:
+            raise UsageError(f"--avalanche-bytes must be between 1 and 4096, not {self.avalanche_bytes}")
+        if self.collision_memory < 0:
+            raise UsageError(f"--collision-memory must not be negative, not {self.collision_memory}")
+        if self.spill_dir is not None and not os.path.isdir(self.spill_dir):
+            raise UsageError(f"--spill-dir {self.spill_dir!r} is not an existing folder")
         for scheme in self.schemes:
             if scheme not in SCHEMES:
                 raise UsageError(f"unknown scheme {scheme!r}; choose one of {', '.join(SCHEMES)}")

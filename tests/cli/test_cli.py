@@ -260,3 +260,17 @@ def test_absurd_table_sizes_are_usage_errors(size, tmp_path):
 def test_tables_that_cannot_fit_in_memory_are_refused(tmp_path):
     code, _, err = run(["audit", str(write(tmp_path, "k.txt", b"a\nb\n")), "-m", "2^32", "-H", "xxh3_64"])
     assert code == 2 and "GiB" in err
+
+
+@pytest.mark.parametrize(
+    ("option", "fragment"),
+    [
+        (["--avalanche-keys", "0"], "--avalanche-keys"),
+        (["--avalanche-bytes", "0"], "--avalanche-bytes"),
+        (["--spill-dir", "/no/such/folder"], "--spill-dir"),
+        (["--checks", "entropy"], "unknown check"),
+    ],
+)
+def test_deep_check_options_are_validated_before_reading(option, fragment, tmp_path):
+    code, _, err = run(["audit", str(write(tmp_path, "k.txt", b"a\nb\n")), "-m", "4", *option])
+    assert code == 2 and fragment in err
