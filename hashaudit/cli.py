@@ -206,6 +206,13 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
     help="Fail above this correlation (phi) between two output bits.",
 )
 @click.option(
+    "--max-collision-excess",
+    type=float,
+    default=0.1,
+    show_default=True,
+    help="Fail above this excess of full-width colliding pairs over the birthday expectation.",
+)
+@click.option(
     "--all-keys",
     is_flag=True,
     help="Count every occurrence; by default each distinct key counts once (repeats are not the hash's fault).",
@@ -247,6 +254,7 @@ def audit(
     max_load_ratio,
     max_bit_bias,
     max_bit_correlation,
+    max_collision_excess,
     all_keys,
     distinct_memory,
     threads,
@@ -270,7 +278,15 @@ def audit(
     from hashaudit.verdict.findings import Thresholds
 
     _refuse_overwriting_inputs([json_path], sources)
-    thresholds = Thresholds(alpha, max_cost_excess, max_empty_excess, max_load_ratio, max_bit_bias, max_bit_correlation)
+    thresholds = Thresholds(
+        alpha,
+        max_cost_excess,
+        max_empty_excess,
+        max_load_ratio,
+        max_bit_bias,
+        max_bit_correlation,
+        collision_excess=max_collision_excess,
+    )
     plan = AuditPlan(
         tuple(hashes) or DEFAULT_HASHES,
         tuple(buckets),
