@@ -213,6 +213,12 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
     help="Fail above this excess of full-width colliding pairs over the birthday expectation.",
 )
 @click.option(
+    "--show-keys",
+    is_flag=True,
+    help="Name up to five keys of each full-width collision group in the reports (reads the input twice). "
+    "Keys are personal data in many dumps: by default no report shows any.",
+)
+@click.option(
     "--all-keys",
     is_flag=True,
     help="Count every occurrence; by default each distinct key counts once (repeats are not the hash's fault).",
@@ -255,6 +261,7 @@ def audit(
     max_bit_bias,
     max_bit_correlation,
     max_collision_excess,
+    show_keys,
     all_keys,
     distinct_memory,
     threads,
@@ -301,7 +308,7 @@ def audit(
         collision_memory,
         spill_dir,
     )
-    result = run_audit(list(sources), plan, _source_options(source_kw), threads=threads)
+    result = run_audit(list(sources), plan, _source_options(source_kw), threads=threads, show_keys=show_keys)
     if json_path:
         write_json(result, json_path)
     if not quiet:

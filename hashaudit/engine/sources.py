@@ -22,6 +22,7 @@ def audit(
     *,
     progress: Callable[[int], None] | None = None,
     threads: int = 0,
+    show_keys: bool = False,
 ) -> AuditResult:
     """Audit the keys of one or more sources (files, or ``"-"`` for standard input).
 
@@ -37,6 +38,9 @@ def audit(
         Called with the number of keys of each batch.
     threads : int
         Hashing threads; 0 = one per core.
+    show_keys : bool
+        Read the input a second time to name up to five keys of each reported full-width collision group. Keys
+        appear in no report otherwise.
 
     Returns
     -------
@@ -65,9 +69,14 @@ def audit(
         batches(), plan, keys=keys, progress=progress, threads=threads, key_estimate=_line_estimate(streams)
     )
     described = tuple({**stream.description, "stats": _stats_dict(stream.stats)} for stream in streams)
-    return AuditResult(
+    final = AuditResult(
         result.verdict, result.keys, result.hashes, described, result.settings, result.run, result.keys_read
     )
+    if show_keys:
+        from hashaudit.engine.showkeys import attach_colliding_keys
+
+        attach_colliding_keys(final, sources, options, plan.seed)
+    return final
 
 
 def _line_estimate(streams: list) -> Callable[[KeyBatch], int | None] | None:

@@ -46,6 +46,20 @@ def _line(verdict: str, members: list[Finding]) -> str:
     return f"{speaker.message}{tail}"
 
 
+def _collision_keys(result: AuditResult, hash_name: str) -> list[str]:
+    """Keys of the largest full-width collision groups, only present when the user asked for them."""
+    out = []
+    for f in result.findings:
+        if f.hash_name != hash_name or f.check != "full_collisions" or f.verdict == "pass":
+            continue
+        for group in f.details.get("largest_groups", [])[:3]:
+            keys = group.get("sample_keys")
+            if keys:
+                shown = ", ".join(repr(k) for k in keys)
+                out.append(f"        {group['hash']} is shared by {group['keys']:,} keys, e.g. {shown}")
+    return out
+
+
 def render(result: AuditResult, *, show_all: bool = False, colour: bool = False) -> str:
     """The report as text: one line per (hash, table) that did not pass (every check with ``show_all``)."""
     lines = []
@@ -86,6 +100,8 @@ def render(result: AuditResult, *, show_all: bool = False, colour: bool = False)
         for verdict, hash_name, table, check, message in rows:
             check_cell = f"{check:<{w_check}}  " if w_check else ""
             lines.append(f"{_tag(verdict, colour)}  {hash_name:<{w_hash}}  {table:<{w_table}}  {check_cell}{message}")
+            if table == "full value":
+                lines.extend(_collision_keys(result, hash_name))
         lines.append("")
     for h in result.hashes:
         tally = {v: sum(1 for f in h.findings if f.verdict == v) for v in ("fail", "warn", "info", "pass")}

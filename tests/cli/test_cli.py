@@ -274,3 +274,20 @@ def test_tables_that_cannot_fit_in_memory_are_refused(tmp_path):
 def test_deep_check_options_are_validated_before_reading(option, fragment, tmp_path):
     code, _, err = run(["audit", str(write(tmp_path, "k.txt", b"a\nb\n")), "-m", "4", *option])
     assert code == 2 and fragment in err
+
+
+def test_keys_appear_only_with_show_keys(tmp_path):
+    import itertools
+
+    crafted = "".join("".join(blocks) + "\n" for blocks in itertools.product(["Aa", "BB"], repeat=6))
+    keys = write(tmp_path, "crafted.txt", crafted.encode())
+    report = tmp_path / "r.json"
+    code, out, _ = run(["audit", str(keys), "-H", "poly31", "--checks", "collisions", "--json", str(report)])
+    assert code == 1 and "AaAa" not in out and "AaAa" not in report.read_text()
+    code, out, _ = run(
+        ["audit", str(keys), "-H", "poly31", "--checks", "collisions", "--show-keys", "--json", str(report)]
+    )
+    assert code == 1 and "'AaAaAaAaAaAa'" in out
+    group = json.loads(report.read_text())["hashes"][0]["checks"][0]["details"]["largest_groups"][0]
+    assert group["keys"] == 64 and len(group["sample_keys"]) == 5
+    assert all(set(k) <= set("AaB") for k in group["sample_keys"])

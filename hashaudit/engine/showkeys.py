@@ -1,0 +1,75 @@
+"""``--show-keys``: find the keys behind the largest full-width collision groups with a second pass over the input.
+
+Reports never show keys unless the user asks (keys in production dumps are often personal data). When asked, the
+audit reads its sources once more, hashes every key with the functions that had collisions, and keeps up to
+``KEYS_PER_GROUP`` distinct keys per reported group, as text (undecodable bytes escaped).
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Sequence
+
+import numpy as np
+
+from hashaudit.hashes.registry import REGISTRY, HashRegistry
+from hashaudit.keys import open_keys
+from hashaudit.keys.options import SourceOptions
+from hashaudit.verdict.result import AuditResult
+
+KEYS_PER_GROUP = 5
+
+
+def _as_int(values: np.ndarray, width: int) -> np.ndarray:
+    """Hash values as Python ints (only for the few candidate rows)."""
+    if values.ndim == 2:
+        return np.array([int(lo) | (int(hi) << 64) for lo, hi in values], dtype=object)
+    return values.astype(object)
+
+
+def attach_colliding_keys(
+    result: AuditResult,
+    sources: Sequence[str | os.PathLike],
+    options: SourceOptions,
+    seed: int,
+    registry: HashRegistry = REGISTRY,
+) -> bool:
+    """Add ``sample_keys`` to each reported collision group of ``result`` (in place); False when the input cannot
+    be read twice (standard input or another non-regular file)."""
+    wanted: dict[str, tuple[dict[int, dict], int]] = {}
+    for audit in result.hashes:
+        for finding in audit.findings:
+            if finding.check != "full_collisions":
+                continue
+            groups = finding.details.get("largest_groups") or []
+            if groups:
+                wanted[audit.name] = ({int(g["hash"], 16): g for g in groups}, audit.width)
+    if not wanted:
+        return True
+    if any(str(s) == "-" or not os.path.isfile(s) for s in sources):
+        for targets, _ in wanted.values():
+            for group in targets.values():
+                group["sample_keys"] = None
+        return False
+    found: dict[str, dict[int, list[bytes]]] = {name: {v: [] for v in targets} for name, (targets, _) in wanted.items()}
+    for source in sources:
+        for batch in open_keys(source, options):
+            for name, (targets, width) in wanted.items():
+                spec = registry.get(name)
+                values = spec.hash_batch(batch, seed if spec.seeded else 0)
+                low = values[:, 0] if values.ndim == 2 else values
+                low_targets = np.array([v & 0xFFFFFFFFFFFFFFFF for v in targets], dtype=np.uint64)
+                rows = np.flatnonzero(np.isin(low, low_targets))
+                if not len(rows):
+                    continue
+                full = _as_int(values[rows], width)
+                for row, value in zip(rows.tolist(), full.tolist(), strict=True):
+                    bucket = found[name].get(value)
+                    if bucket is not None and len(bucket) < KEYS_PER_GROUP:
+                        key = batch.key(row)
+                        if key not in bucket:
+                            bucket.append(key)
+    for name, (targets, _) in wanted.items():
+        for value, group in targets.items():
+            group["sample_keys"] = [k.decode("utf-8", "backslashreplace") for k in found[name][value]]
+    return True
