@@ -9,8 +9,17 @@ CHECK_GROUPS: dict[str, tuple[str, ...]] = {
     "bits": ("bit_bias", "bit_correlation"),
     "collisions": ("full_collisions",),
     "avalanche": ("avalanche", "bit_independence"),
+    "neighbours": (
+        "neighbour_counter",
+        "neighbour_one_char",
+        "neighbour_case",
+        "neighbour_shared_prefix",
+        "neighbour_appended_byte",
+    ),
+    "seeds": ("seed_spread", "seed_independent_collisions"),
 }
-DEFAULT_GROUPS: tuple[str, ...] = ("buckets", "bits", "collisions", "avalanche")
+DEFAULT_GROUPS: tuple[str, ...] = ("buckets", "bits", "collisions", "avalanche", "neighbours")
+"""Every group but ``seeds``, which rehashes the key sample under several seeds and is asked for explicitly."""
 
 
 def parse_checks(text: str | None) -> tuple[str, ...]:

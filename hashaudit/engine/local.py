@@ -227,7 +227,8 @@ def audit_batches(
             hash_seconds[state.spec.name] += time.perf_counter() - t0
 
     distinct = DistinctKeys(plan.distinct_memory) if plan.distinct else None
-    sample = KeySample(plan.avalanche_keys, plan.seed) if "avalanche" in plan.checks else None
+    wants_sample = any(group in plan.checks for group in ("avalanche", "neighbours", "seeds"))
+    sample = KeySample(plan.avalanche_keys, plan.seed) if wants_sample else None
     total = 0
     pool = ThreadPoolExecutor(max_workers=lanes - 1, thread_name_prefix="hashaudit-hash") if lanes > 1 else None
     try:
@@ -340,6 +341,10 @@ def _conclude(
     from hashaudit.stats.avalanche import avalanche_matrix, avalanche_tests
     from hashaudit.stats.bits import bit_tests
     from hashaudit.stats.collisions import collision_tests
+    from hashaudit.stats.neighbours import NeighbourFamily, neighbour_families, neighbour_tests
+    from hashaudit.stats.seeds import seed_runs, seed_tests
+
+    families: list[NeighbourFamily] | None = None
     from hashaudit.stats.fit import bucket_tests
 
     family: list[tuple[str, str | None, int | None, int, FitTest]] = []
@@ -359,7 +364,19 @@ def _conclude(
             collision_result = state.collisions.result()
             for test in collision_tests(collision_result):
                 family.append((state.spec.name, None, None, collision_result.keys, test))
-        if sample is not None and len(sample):
+        if sample is not None and len(sample) and "neighbours" in plan.checks:
+            if families is None:
+                families = neighbour_families(sample, seed=plan.seed)
+            tables = [(t.scheme, t.buckets) for t in state.tables]
+            for _family, test in neighbour_tests(state.spec, families, tables, seed=plan.seed):
+                d = test.details
+                family.append((state.spec.name, d.get("worst_scheme"), d.get("worst_buckets"), d["family_keys"], test))
+        if sample is not None and len(sample) and "seeds" in plan.checks and state.spec.seeded:
+            tables = [(t.scheme, t.buckets) for t in state.tables]
+            runs = seed_runs(state.spec, sample.keys(), tables, null_seed=plan.seed)
+            for test in seed_tests(runs):
+                family.append((state.spec.name, None, None, runs.keys, test))
+        if sample is not None and len(sample) and "avalanche" in plan.checks:
             hash_seed = plan.seed if state.spec.seeded else 0
             matrix = avalanche_matrix(state.spec, sample, seed=hash_seed, max_bytes=plan.avalanche_bytes)
             for test in avalanche_tests(matrix):

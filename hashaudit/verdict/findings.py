@@ -168,8 +168,41 @@ def _p(p: float) -> str:
     return "p < 1e-300" if p < 1e-300 else f"p = {p:.2g}"
 
 
+def _neighbour_sentence(test: FitTest) -> str:
+    d, e = test.details, test.effect
+    family = f"neighbour keys '{d.get('family')}' ({_num(d.get('family_keys', 0))} keys made from yours: {d.get('transformation')})"
+    if e.name == "lookup_cost_excess":
+        return (
+            f"{family}: in {d.get('worst')}, {_num(test.observed)} colliding pairs against {_num(test.expected)} "
+            f"expected; a chained lookup costs {_num(e.observed)} probes against {_num(e.ideal)} ({_excess(e.value)})"
+        )
+    return f"{family}: {_num(test.observed)} full-value colliding pairs against {test.expected:.3g} expected"
+
+
+def _seed_sentence(test: FitTest) -> str:
+    d, e = test.details, test.effect
+    seeds = len(d.get("seeds", []))
+    if test.name == "seed_independent_collisions":
+        return (
+            f"{_num(d.get('keys_in_collisions', 0))} keys of the sample collide under every one of {seeds} seeds "
+            f"({_num(d.get('groups', 0))} groups): crafted keys could flood a table whatever its secret seed — use a "
+            "keyed hash such as siphash24 and follow your security policy"
+        )
+    table = d.get("costliest_table") or {}
+    where = table_label(table.get("scheme"), table.get("buckets"))
+    return (
+        f"changing the seed does not change how the keys spread: over {seeds} seeds the per-seed p-values pile up "
+        f"near 0; in {where} a chained lookup costs {_num(e.observed)} probes (median over seeds) against "
+        f"{_num(e.ideal)} ({_excess(e.value)})"
+    )
+
+
 def _skew_sentence(test: FitTest) -> str:
     e = test.effect
+    if test.name.startswith("neighbour_"):
+        return _neighbour_sentence(test)
+    if test.name.startswith("seed_"):
+        return _seed_sentence(test)
     if e.name == "lookup_cost_excess":
         core = (
             f"a successful chained lookup costs {_num(e.observed)} probes against {_num(e.ideal)} for an ideal hash "
@@ -252,6 +285,11 @@ def judge(tests: list[tuple[str, str | None, int | None, int, FitTest]], thresho
                 f"more even than random ({_p(test.p_lower)}): the keys are structured and the function keeps "
                 "the structure — harmless for a table"
             )
+            if test.name == "seed_spread":
+                sentence = (
+                    f"the seeds give suspiciously alike tables ({_p(test.p_lower)}): the seed may not reach the bits "
+                    "a table uses"
+                )
         else:
             verdict, direction, p_adjusted = "pass", "none", p_up_adj
             sentence = f"consistent with uniform hashing ({_p(test.p_upper)})"

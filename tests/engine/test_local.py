@@ -10,6 +10,7 @@ import pytest
 
 from hashaudit import AuditPlan, KeyBatch, Thresholds, audit, audit_batches
 from hashaudit.errors import UsageError
+from hashaudit.hashes.registry import REGISTRY
 from hashaudit.keys.options import SourceOptions
 from hashaudit.report.json_report import report_dict, schema, to_json
 
@@ -44,14 +45,15 @@ def test_report_validates_against_the_shipped_schema():
     jsonschema.validate(doc, schema())
     assert doc["schema"] == "hashaudit.audit/1"
     names = {c["name"] for h in doc["hashes"] for c in h["checks"]}
-    assert names == {
-        "chi_square", "g_test", "empty_buckets", "colliding_pairs", "max_load", "bit_bias", "bit_correlation",
-        "full_collisions", "avalanche", "bit_independence",
-    }  # fmt: skip  # fmt: skip
+    from hashaudit.engine.checks import CHECK_GROUPS, DEFAULT_GROUPS
+
+    assert names == {name for group in DEFAULT_GROUPS for name in CHECK_GROUPS[group]}  # fmt: skip
     for h in doc["hashes"]:
         for c in h["checks"]:
             if c["name"] in ("bit_bias", "bit_correlation", "full_collisions", "avalanche", "bit_independence"):
                 assert "scheme" not in c and "buckets" not in c  # a check of the full hash value has no table
+            elif c["name"].startswith("neighbour_"):
+                assert ("scheme" in c) == ("buckets" in c)  # placed at its worst component: a table or the full value
             else:
                 assert c["scheme"] in ("mod", "range") and c["buckets"] in (1024, 1021)
 
@@ -99,7 +101,7 @@ def test_too_regular_is_info_never_fail():
 def test_dataframe_has_one_row_per_finding():
     result = audit_batches(batches_of(1000), PLAN)
     frame = result.to_dataframe()
-    assert len(frame) == len(result.findings) == 3 * (4 * 5 + 2 + 1 + 2)
+    assert len(frame) == len(result.findings) == 3 * (4 * 5 + 2 + 1 + 2 + 5)
     assert {"hash", "check", "verdict", "p_value", "p_adjusted", "effect_value"} <= set(frame.columns)
 
 
@@ -189,9 +191,11 @@ def test_distinct_memory_budget_is_a_clear_error():
 def test_check_groups_select_what_runs():
     from hashaudit.engine.checks import parse_checks
 
-    assert parse_checks(None) == ("buckets", "bits", "collisions", "avalanche")
+    everything = ("buckets", "bits", "collisions", "avalanche", "neighbours")
+    assert parse_checks(None) == everything
     assert parse_checks("bit_bias") == ("bits",)
-    assert parse_checks("all") == ("buckets", "bits", "collisions", "avalanche")
+    assert parse_checks("all") == (*everything, "seeds")
+    assert parse_checks("neighbour_case") == ("neighbours",)
     assert parse_checks("bit_independence,chi_square") == ("buckets", "avalanche")
     with pytest.raises(UsageError, match="unknown check 'entropy'"):
         parse_checks("entropy")
@@ -240,3 +244,39 @@ def test_collision_spill_gives_the_same_report(tmp_path):
         audit_batches(batches_of(500), large)
     ).replace(str(1 << 30), "")
     assert list(tmp_path.iterdir()) == []  # spilled files are removed
+
+
+def test_neighbour_families_name_the_family_that_breaks_a_function():
+    """Appending a byte b to a key multiplies poly31's value by 31 and adds b, so appended-byte neighbours of
+    different keys collide fully far more often than the birthday bound allows; xxh3_64 shows nothing."""
+    keys = [b"MF-26-%07d" % i for i in range(400_000, 430_000)]
+    plan = AuditPlan(hashes=("poly31", "xxh3_64"), checks=("neighbours",))
+    result = audit_batches([KeyBatch.from_keys(keys)], plan)
+    verdicts = {(f.hash_name, f.check): f for f in result.findings}
+    failing = verdicts[("poly31", "neighbour_appended_byte")]
+    assert failing.verdict == "fail" and "appended" in failing.message
+    assert all(f.verdict == "pass" for (h, _), f in verdicts.items() if h == "xxh3_64")
+
+
+def test_collisions_that_survive_every_seed_fail():
+    """A seeded function whose seed only mixes poly31's value: "Aa"/"BB" strings collide whatever the seed."""
+    import itertools
+
+    from hashaudit.hashes.fnv import poly31
+    from hashaudit.hashes.registry import HashRegistry, HashSpec
+
+    def seeded_poly31(batch, seed=0):
+        with np.errstate(over="ignore"):
+            x = poly31(batch) ^ np.uint64(seed & 0xFFFFFFFFFFFFFFFF)
+            x = (x ^ (x >> np.uint64(33))) * np.uint64(0xFF51AFD7ED558CCD)  # the MurmurHash3 fmix64 finaliser
+            return x ^ (x >> np.uint64(33))
+
+    registry = HashRegistry([HashSpec("seeded_poly31", 64, True, "kernel", seeded_poly31)])
+    registry.register(REGISTRY.get("siphash24"))
+    crafted = [b"".join(blocks) for blocks in itertools.product([b"Aa", b"BB"], repeat=11)]
+    plan = AuditPlan(hashes=("seeded_poly31", "siphash24"), checks=("seeds",))
+    result = audit_batches([KeyBatch.from_keys(crafted)], plan, registry=registry)
+    verdicts = {(f.hash_name, f.check): f for f in result.findings}
+    flood = verdicts[("seeded_poly31", "seed_independent_collisions")]
+    assert flood.verdict == "fail" and "every one of 8 seeds" in flood.message
+    assert verdicts[("siphash24", "seed_independent_collisions")].verdict == "pass"
