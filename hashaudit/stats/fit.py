@@ -143,7 +143,7 @@ def _morris_g_moments(buckets: int, keys: int) -> tuple[float, float]:
     return mean, buckets * max(var_f - cov_fx**2 / lam, 0.0)
 
 
-def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
+def bucket_tests(result: BucketCountsResult, seed: int = 0, *, with_max_load: bool = True) -> list[FitTest]:
     """Every bucket-count test of fit for one table: chi_square, g_test, empty_buckets, colliding_pairs,
     max_load.
 
@@ -153,6 +153,8 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
         The counts of one (hash, scheme, m).
     seed : int
         Seed of the simulated null for small tables (recorded in each test's ``method``).
+    with_max_load : bool
+        Include ``max_load`` (its distribution is the costly part; callers that only need the other tests skip it).
     """
     n, m = result.keys, result.buckets
     if n == 0:
@@ -174,7 +176,7 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
     max_load_observed = float(counts.max())
     expected_empty = theory.expected_empty_buckets(m, n)
     expected_pairs = theory.expected_colliding_pairs(m, n)
-    expected_max = maxload.expected_max_load(m, n)
+    expected_max = maxload.expected_max_load(m, n) if with_max_load else math.nan
     empty_effect = Effect(
         "empty_excess", (empty - expected_empty) / m, empty / m, expected_empty / m, "fraction of buckets left empty"
     )
@@ -235,14 +237,18 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0) -> list[FitTest]:
         else:
             empty_p = _normal_p(empty, expected_empty, theory.var_empty_buckets(m, n))
             empty_method = "normal with exact mean and variance"
-    k = int(max_load_observed)
-    max_p = (float(maxload.max_load_sf(m, n, k)), float(maxload.max_load_cdf(m, n, k)))
-
-    return [
+    tests = [
         FitTest("chi_square", chi2, float(m - 1), chi2, *chi_p, chi_method, cost_effect, {"degrees_of_freedom": m - 1}),
         FitTest("g_test", g, g_mean, g, *g_p, g_method, cost_effect),
         FitTest("empty_buckets", empty, expected_empty, empty, *empty_p, empty_method, empty_effect),
         FitTest("colliding_pairs", pairs, expected_pairs, pairs, *pairs_p, pairs_method, cost_effect),
+    ]
+    if not with_max_load:
+        return tests
+    k = int(max_load_observed)
+    max_p = (float(maxload.max_load_sf(m, n, k)), float(maxload.max_load_cdf(m, n, k)))
+    return [
+        *tests,
         FitTest(
             "max_load",
             max_load_observed,
