@@ -7,7 +7,7 @@ from hashaudit.errors import UsageError
 CHECK_GROUPS: dict[str, tuple[str, ...]] = {
     "buckets": ("chi_square", "g_test", "empty_buckets", "colliding_pairs", "max_load"),
     "bits": ("bit_bias", "bit_correlation"),
-    "collisions": ("full_collisions",),
+    "collisions": ("full_collisions", "duplicate_keys"),
     "avalanche": ("avalanche", "bit_independence"),
     "neighbours": (
         "neighbour_counter",

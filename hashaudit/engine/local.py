@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 import importlib
+import math
 import os
 import platform
 import sys
@@ -25,10 +26,10 @@ from hashaudit.stats.bits import BitCounts
 from hashaudit.stats.buckets import BucketCounts, BucketCountsResult
 from hashaudit.stats.collisions import FullCollisions
 from hashaudit.stats.distinct import DEFAULT_MEMORY_BYTES, DistinctKeys
-from hashaudit.stats.outcome import FitTest
+from hashaudit.stats.outcome import Effect, FitTest
 from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
 from hashaudit.tables.sizes import auto_sizes
-from hashaudit.verdict.findings import Thresholds, judge, worst_verdict
+from hashaudit.verdict.findings import Finding, Thresholds, judge, worst_verdict
 from hashaudit.verdict.result import AuditResult, HashAudit, TableSummary
 
 HOTTEST_SHOWN = 5
@@ -382,6 +383,8 @@ def _conclude(
             for test in avalanche_tests(matrix):
                 family.append((state.spec.name, None, None, matrix.keys, test))
     findings = judge(family, plan.thresholds)
+    if plan.distinct and "collisions" in plan.checks:
+        findings += [_duplicate_finding(state.spec.name, total, occurrences) for state in states]
     hash_audits = []
     for state in states:
         own = tuple(f for f in findings if f.hash_name == state.spec.name)
@@ -418,6 +421,39 @@ def _conclude(
         "platform": sys.platform,
     }
     return AuditResult(overall, total, tuple(hash_audits), tuple(sources), settings, run, occurrences)
+
+
+def _duplicate_finding(hash_name: str, distinct: int, occurrences: int) -> Finding:
+    """``duplicate_keys``: repeated keys are counted first and kept out of every other check; they are a fact about
+    the input, not the hash, so this finding informs and never fails."""
+    repeats = occurrences - distinct
+    share = repeats / occurrences if occurrences else 0.0
+    effect = Effect("repeated_share", share, float(repeats), 0.0, "share of occurrences repeating an earlier key")
+    message = (
+        f"{repeats:,} of {occurrences:,} keys repeat an earlier key ({100 * share:.1f} %); every check counts each "
+        "distinct key once — repeats are not the hash's fault"
+        if repeats
+        else f"no key repeats: {occurrences:,} distinct keys"
+    )
+    return Finding(
+        hash_name,
+        "duplicate_keys",
+        None,
+        None,
+        distinct,
+        float(repeats),
+        0.0,
+        float(repeats),
+        1.0,
+        1.0,
+        1.0,
+        "exact count through 64-bit key fingerprints (a false match has probability about d^2/2^65)",
+        effect,
+        math.nan,
+        "info" if repeats else "pass",
+        "none",
+        message,
+    )
 
 
 def _summary(result: BucketCountsResult) -> TableSummary:

@@ -50,7 +50,14 @@ def test_report_validates_against_the_shipped_schema():
     assert names == {name for group in DEFAULT_GROUPS for name in CHECK_GROUPS[group]}  # fmt: skip
     for h in doc["hashes"]:
         for c in h["checks"]:
-            if c["name"] in ("bit_bias", "bit_correlation", "full_collisions", "avalanche", "bit_independence"):
+            if c["name"] in (
+                "bit_bias",
+                "bit_correlation",
+                "full_collisions",
+                "duplicate_keys",
+                "avalanche",
+                "bit_independence",
+            ):
                 assert "scheme" not in c and "buckets" not in c  # a check of the full hash value has no table
             elif c["name"].startswith("neighbour_"):
                 assert ("scheme" in c) == ("buckets" in c)  # placed at its worst component: a table or the full value
@@ -101,7 +108,7 @@ def test_too_regular_is_info_never_fail():
 def test_dataframe_has_one_row_per_finding():
     result = audit_batches(batches_of(1000), PLAN)
     frame = result.to_dataframe()
-    assert len(frame) == len(result.findings) == 3 * (4 * 5 + 2 + 1 + 2 + 5)
+    assert len(frame) == len(result.findings) == 3 * (4 * 5 + 2 + 2 + 2 + 5)
     assert {"hash", "check", "verdict", "p_value", "p_adjusted", "effect_value"} <= set(frame.columns)
 
 
@@ -179,6 +186,8 @@ def test_repeats_are_not_counted_against_the_hash():
     every = audit_batches([batch], AuditPlan(hashes=("xxh3_64",), buckets=(1024,), distinct=False))
     assert every.keys == 25_000 and every.verdict == "fail"  # the hot key's bucket holds 20,000 occurrences
     assert report_dict(distinct)["summary"]["repeated_keys"] == 19_999
+    duplicates = next(f for f in distinct.findings if f.check == "duplicate_keys")
+    assert duplicates.verdict == "info" and duplicates.observed == 19_999 and "repeat" in duplicates.message
 
 
 def test_distinct_memory_budget_is_a_clear_error():
@@ -230,7 +239,7 @@ def test_full_collisions_catch_keys_crafted_for_poly31():
     crafted = [b"".join(blocks) for blocks in itertools.product([b"Aa", b"BB"], repeat=10)]
     plan = AuditPlan(hashes=("poly31", "xxh3_64"), checks=("collisions",))
     result = audit_batches([KeyBatch.from_keys(crafted)], plan)
-    by_hash = {f.hash_name: f for f in result.findings}
+    by_hash = {f.hash_name: f for f in result.findings if f.check == "full_collisions"}
     assert by_hash["poly31"].verdict == "fail"
     assert by_hash["poly31"].observed == 1024 * 1023 / 2  # one group of all 1,024 keys
     assert "1,024 distinct keys share their full 32-bit value" in by_hash["poly31"].message
