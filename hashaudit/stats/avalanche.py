@@ -49,19 +49,8 @@ from numba.extending import intrinsic
 from hashaudit.errors import MergeError, UsageError
 from hashaudit.hashes.registry import HashSpec
 from hashaudit.keys.batch import KeyBatch
+from hashaudit.stats._lazy import special
 from hashaudit.stats.outcome import Effect, FitTest
-
-
-class _LazySpecial:
-    """scipy.special on first use: the sample fills while the keys stream, the tests run only after."""
-
-    def __getattr__(self, name: str):  # type: ignore[no-untyped-def]
-        from scipy import special as loaded
-
-        return getattr(loaded, name)
-
-
-special = _LazySpecial()
 
 _MASK64 = (1 << 64) - 1
 _MASK128 = (1 << 128) - 1

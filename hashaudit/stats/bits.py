@@ -58,19 +58,8 @@ import numpy as np
 from numba import int64, njit, uint64
 
 from hashaudit.errors import MergeError, UsageError
+from hashaudit.stats._lazy import special
 from hashaudit.stats.outcome import Effect, FitTest
-
-
-class _LazySpecial:
-    """scipy.special on first use: the accumulator is created before the keys stream, the tests only after."""
-
-    def __getattr__(self, name: str):  # type: ignore[no-untyped-def]
-        from scipy import special as loaded
-
-        return getattr(loaded, name)
-
-
-special = _LazySpecial()
 
 WIDTHS = (32, 64, 128)
 EXACT_BELOW_KEYS = 100  # below this many keys the nulls are simulated and the worst pair's p-value is exact
