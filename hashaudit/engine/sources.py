@@ -59,15 +59,22 @@ def audit(
                     f"reading {what}: give --buckets (table sizes are otherwise derived from the key count, "
                     "which needs a first pass over the input)"
                 )
-        keys = sum(len(b) for s in sources for b in open_keys(s, options))
     streams = [open_keys(s, options) for s in sources]
+    estimate = _line_estimate(streams)
+    batches: Iterator[KeyBatch] = itertools.chain.from_iterable(streams)
+    if plan.needs_key_count():
+        total_bytes = sum(stream.size_bytes or 0 for stream in streams)
+        if estimate is not None and total_bytes > EXACT_COUNT_BYTES:
+            # Large plain key files: the sizes only need the count to the nearest power of two, so estimate it
+            # from the file size and the first batch instead of reading everything twice.
+            first = next(batches, None)
+            if first is not None:
+                keys = estimate(first)
+                batches = itertools.chain([first], batches)
+        if keys is None:
+            keys = sum(len(b) for s in sources for b in open_keys(s, options))
 
-    def batches() -> Iterator[KeyBatch]:
-        yield from itertools.chain.from_iterable(streams)
-
-    result = audit_batches(
-        batches(), plan, keys=keys, progress=progress, threads=threads, key_estimate=_line_estimate(streams)
-    )
+    result = audit_batches(batches, plan, keys=keys, progress=progress, threads=threads, key_estimate=estimate)
     described = tuple({**stream.description, "stats": _stats_dict(stream.stats)} for stream in streams)
     final = AuditResult(
         result.verdict, result.keys, result.hashes, described, result.settings, result.run, result.keys_read
@@ -77,6 +84,9 @@ def audit(
 
         attach_colliding_keys(final, sources, options, plan.seed)
     return final
+
+
+EXACT_COUNT_BYTES = 64 << 20  # below this, table sizes come from an exact count (a cheap first pass)
 
 
 def _line_estimate(streams: list) -> Callable[[KeyBatch], int | None] | None:

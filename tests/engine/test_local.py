@@ -289,3 +289,27 @@ def test_collisions_that_survive_every_seed_fail():
     flood = verdicts[("seeded_poly31", "seed_independent_collisions")]
     assert flood.verdict == "fail" and "every one of 8 seeds" in flood.message
     assert verdicts[("siphash24", "seed_independent_collisions")].verdict == "pass"
+
+
+def test_large_files_estimate_the_key_count_instead_of_reading_twice(tmp_path, monkeypatch):
+    """Table sizes only need the key count to the nearest power of two: for a large plain key file it is estimated
+    from the file size and the first batch, and gives the same tables as an exact count."""
+    import hashaudit.engine.sources as sources_module
+
+    path = tmp_path / "keys.txt"
+    path.write_bytes(b"".join(b"user-%09d\n" % i for i in range(300_000)))
+    plan = AuditPlan(hashes=("xxh3_64",), checks=("buckets",))
+    exact = audit([path], plan)
+    opened = []
+    real_open = sources_module.open_keys
+
+    def counting_open(*args, **kwargs):
+        opened.append(args[0])
+        return real_open(*args, **kwargs)
+
+    monkeypatch.setattr(sources_module, "EXACT_COUNT_BYTES", 0)
+    monkeypatch.setattr(sources_module, "open_keys", counting_open)
+    estimated = audit([path], plan)
+    assert len(opened) == 1  # one pass over the file
+    assert estimated.settings["tables"] == exact.settings["tables"]
+    assert stable(estimated) == stable(exact)
