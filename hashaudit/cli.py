@@ -229,7 +229,7 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
     default="2g",
     show_default=True,
     metavar="BYTES",
-    help="Memory budget of the distinct-key set (16-32 bytes per distinct key).",
+    help="Memory budget of the distinct-key set (11-21 bytes per distinct key).",
 )
 @click.option(
     "--threads",
