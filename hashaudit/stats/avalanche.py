@@ -51,6 +51,7 @@ from hashaudit.hashes.registry import HashSpec
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.stats._lazy import special
 from hashaudit.stats.outcome import Effect, FitTest
+from hashaudit.stats.tails import expected_max_abs_normal
 
 _MASK64 = (1 << 64) - 1
 _MASK128 = (1 << 128) - 1
@@ -645,17 +646,6 @@ def expected_max_bias(trials: np.ndarray) -> float:
     return float(np.trapezoid(-np.expm1(log_cdf), t))
 
 
-def expected_max_abs_normal(scale: float, count: int) -> float:
-    """E max |Z_c| * scale over ``count`` independent standard normals (numerical integration, 4001 points)."""
-    if count <= 0:
-        return 0.0
-    t_high = math.sqrt(2.0 * math.log(2.0 * count)) + 8.0
-    z = np.linspace(0.0, t_high, _EXPECTED_MAX_GRID)
-    with np.errstate(divide="ignore"):  # log(0) at z = 0: the maximum exceeds 0 surely
-        log_cdf = count * np.log1p(-2.0 * special.ndtr(-z))
-    return float(scale * np.trapezoid(-np.expm1(log_cdf), z))
-
-
 def _binomial_two_sided(successes: np.ndarray, trials: np.ndarray) -> np.ndarray:
     """Two-sided exact binomial p-value at 1/2: twice the smaller tail, capped at 1."""
     lower = special.bdtr(successes, trials, 0.5)
@@ -733,7 +723,7 @@ def _bit_independence_test(result: AvalancheResult) -> FitTest:
         "bit_independence_max",
         observed,
         observed,
-        expected_max_abs_normal(1.0 / math.sqrt(n), pairs) if n > 0 else 0.0,
+        expected_max_abs_normal(pairs) / math.sqrt(n) if n > 0 else 0.0,
         "largest |correlation| (phi) between the flips of two output bits",
     )
     details: dict[str, Any] = {

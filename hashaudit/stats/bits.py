@@ -60,6 +60,7 @@ from numba import int64, njit, uint64
 from hashaudit.errors import MergeError, UsageError
 from hashaudit.stats._lazy import special
 from hashaudit.stats.outcome import Effect, FitTest
+from hashaudit.stats.tails import expected_max_abs_normal
 
 WIDTHS = (32, 64, 128)
 EXACT_BELOW_KEYS = 100  # below this many keys the nulls are simulated and the worst pair's p-value is exact
@@ -255,35 +256,6 @@ class BitCounts:
 # --------------------------------------------------------------------------------------------------------
 # Tests of fit
 # --------------------------------------------------------------------------------------------------------
-
-
-def expected_max_abs_normal(count: int) -> float:
-    """Expected largest absolute value among ``count`` independent standard normal variables.
-
-    Parameters
-    ----------
-    count : int
-        Number of variables k, at least 0 (k = 0 gives 0).
-
-    Returns
-    -------
-    float
-        E max_i |Z_i| = ∫_0^∞ (1 − (2Φ(x) − 1)^k) dx, by the trapezoidal rule on a fine grid (error below
-        1e-8 for k up to 10^6).
-
-    References
-    ----------
-    H. A. David, H. N. Nagaraja, Order Statistics, 3rd ed., Wiley 2003, §3.1 (the mean of a maximum from its
-    distribution function); 2Φ(x) − 1 = erf(x/√2) is the distribution function of |Z|.
-    """
-    k = int(count)
-    if k <= 0:
-        return 0.0
-    upper = math.sqrt(2.0 * math.log(k + 1.0)) + 10.0
-    x = np.linspace(0.0, upper, 40001)
-    with np.errstate(divide="ignore"):  # log1p(-1) = -inf at x = 0, where the integrand is exactly 1
-        integrand = -np.expm1(k * np.log1p(-special.erfc(x / math.sqrt(2.0))))
-    return float(np.trapezoid(integrand, x))
 
 
 def _monte_carlo_p(null: np.ndarray, observed: float) -> tuple[float, float]:

@@ -64,6 +64,7 @@ from numba import njit, uint64
 
 from hashaudit.errors import MergeError, UsageError
 from hashaudit.stats.outcome import Effect, FitTest
+from hashaudit.stats.tails import poisson_tails
 
 DEFAULT_MEMORY_BYTES = 1 << 30
 PARTITIONS = 256  # partitions, chosen by the top 8 bits of the value times GOLDEN
@@ -610,15 +611,6 @@ class FullCollisions:
 # --------------------------------------------------------------------------------------------------------
 
 
-def _poisson_p(observed: int, mean: float) -> tuple[float, float]:
-    """P(X ≥ observed) and P(X ≤ observed) for X ~ Poisson(mean)."""
-    from scipy import special  # scipy is slow to import; the accumulator does not need it
-
-    upper = 1.0 if observed <= 0 else float(special.pdtrc(observed - 1, mean))
-    lower = float(special.pdtr(observed, mean))
-    return upper, lower
-
-
 def collision_tests(result: FullCollisionsResult) -> list[FitTest]:
     """The ``full_collisions`` test: colliding pairs of distinct keys against the birthday expectation.
 
@@ -658,7 +650,7 @@ def collision_tests(result: FullCollisionsResult) -> list[FitTest]:
         return []
     expected = result.expected_pairs
     observed = result.colliding_pairs
-    p_upper, p_lower = _poisson_p(observed, expected)
+    p_upper, p_lower = poisson_tails(observed, expected)
     effect = Effect(
         "collision_excess",
         (observed - expected) / max(expected, 1.0),

@@ -42,6 +42,7 @@ from scipy import special
 from hashaudit.stats import maxload, theory
 from hashaudit.stats.buckets import BucketCountsResult
 from hashaudit.stats.outcome import Effect, FitTest
+from hashaudit.stats.tails import poisson_tails
 
 SIMULATION_DRAWS = 9999
 SPARSE_LOAD = 5.0
@@ -101,13 +102,6 @@ def _normal_p(observed: float, mean: float, variance: float) -> tuple[float, flo
         return (1.0 if observed <= mean else 0.0), (1.0 if observed >= mean else 0.0)
     z = (observed - mean) / math.sqrt(variance)
     return float(special.ndtr(-z)), float(special.ndtr(z))
-
-
-def _poisson_p(observed: float, mean: float) -> tuple[float, float]:
-    k = math.floor(observed + 1e-9)
-    upper = 1.0 if k <= 0 else float(special.pdtrc(k - 1, mean))  # P(X >= k)
-    lower = float(special.pdtr(k, mean)) if k >= 0 else 0.0  # P(X <= k)
-    return upper, lower
 
 
 def _use_simulation(buckets: int, keys: int) -> bool:
@@ -202,14 +196,14 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0, *, with_max_load: bo
         # Collisions are rare. X^2 = 2m·pairs/n + m - n exactly, so X^2 and the pairs share the Poisson law of the
         # number of colliding pairs; G depends on the same few collisions and takes that law too (an
         # approximation). Normal laws would turn one ordinary collision into a tiny p-value.
-        pairs_p = _poisson_p(pairs, expected_pairs)
+        pairs_p = poisson_tails(pairs, expected_pairs)
         chi_p = g_p = pairs_p
         g_mean = _morris_g_moments(m, n)[0]
         chi_method = pairs_method = "Poisson law of the colliding pairs (collisions are rare)"
         g_method = "Poisson law of the colliding pairs (collisions are rare; approximation for G)"
         # Keys that land in an already occupied bucket: n - m + empty, rare and nearly Poisson too.
         surplus = n - (m - empty)
-        empty_p = _poisson_p(surplus, _expected_surplus(m, n))
+        empty_p = poisson_tails(surplus, _expected_surplus(m, n))
         empty_method = "Poisson law of the keys landing in occupied buckets (collisions are rare)"
     else:
         chi_mean, chi_var = theory.chi_square_moments(m, n)
@@ -233,7 +227,7 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0, *, with_max_load: bo
         # the pairs are an affine function of X^2: the same p-values
         pairs_p, pairs_method = chi_p, chi_method + " (colliding pairs are an affine function of X^2)"
         if expected_empty < RARE_PAIRS:
-            empty_p, empty_method = _poisson_p(empty, expected_empty), "Poisson approximation"
+            empty_p, empty_method = poisson_tails(empty, expected_empty), "Poisson approximation"
         else:
             empty_p = _normal_p(empty, expected_empty, theory.var_empty_buckets(m, n))
             empty_method = "normal with exact mean and variance"

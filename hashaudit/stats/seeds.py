@@ -55,6 +55,7 @@ from hashaudit.hashes.registry import HashSpec
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.stats.buckets import BucketCounts
 from hashaudit.stats.outcome import Effect, FitTest
+from hashaudit.stats.tails import poisson_tails
 
 DEFAULT_SEEDS: tuple[int, ...] = (1, 2, 3, 4, 5, 6, 7, 8)
 LARGEST_GROUPS = 10  # group sizes shown in the collision details
@@ -427,18 +428,10 @@ def _spread_test(runs: SeedRuns) -> FitTest:
     )
 
 
-def _poisson_p(observed: int, mean: float) -> tuple[float, float]:
-    """P(X ≥ observed) and P(X ≤ observed) for X ~ Poisson(mean)."""
-    from scipy import special
-
-    upper = 1.0 if observed <= 0 else float(special.pdtrc(observed - 1, mean))
-    return upper, float(special.pdtr(observed, mean))
-
-
 def _collision_test(runs: SeedRuns) -> FitTest:
     observed = runs.colliding_pairs
     expected = runs.expected_pairs
-    p_upper, p_lower = _poisson_p(observed, expected)
+    p_upper, p_lower = poisson_tails(observed, expected)
     effect = Effect(
         "collision_excess",
         (observed - expected) / max(expected, 1.0),

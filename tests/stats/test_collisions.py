@@ -29,10 +29,10 @@ from hashaudit.stats.collisions import (
     _count_groups,
     _count_groups_kernel,
     _partition_kernel,
-    _poisson_p,
     _sort_rows,
     collision_tests,
 )
+from hashaudit.stats.tails import poisson_tails
 
 N = 5_000
 
@@ -318,13 +318,13 @@ def test_poisson_tails_match_mpmath(observed, mean):
         pmf = [mpmath.exp(-lam) * lam**j / mpmath.factorial(j) for j in range(observed + 1)]
         upper = float(1 - mpmath.fsum(pmf[:observed]))  # P(X >= k), 50 digits
         lower = float(mpmath.fsum(pmf))  # P(X <= k)
-    p_upper, p_lower = _poisson_p(observed, mean)
+    p_upper, p_lower = poisson_tails(observed, mean)
     assert p_upper == pytest.approx(upper, rel=1e-12)
     assert p_lower == pytest.approx(lower, rel=1e-12)
 
 
 def test_no_pairs_expected_and_none_seen():
-    assert _poisson_p(0, 0.0) == (1.0, 1.0)  # one key: no pair can collide
+    assert poisson_tails(0, 0.0) == (1.0, 1.0)  # one key: no pair can collide
     (test,) = collision_tests(FullCollisions("h", 0, 64).update(np.array([5], dtype=np.uint64)).result())
     assert test.expected == 0.0 and test.p_upper == 1.0 and test.effect.value == 0.0
 
