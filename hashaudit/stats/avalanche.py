@@ -42,13 +42,12 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from llvmlite import ir
-from numba import njit, types, uint64
-from numba.extending import intrinsic
+from numba import njit, uint64
 
 from hashaudit.errors import MergeError, UsageError
 from hashaudit.hashes.registry import HashSpec
 from hashaudit.keys.batch import KeyBatch
+from hashaudit.stats._bitops import popcount
 from hashaudit.stats._lazy import special
 from hashaudit.stats.outcome import Effect, FitTest
 from hashaudit.stats.tails import expected_max_abs_normal
@@ -204,19 +203,6 @@ def _accumulate_kernel(original, flipped, parent, input_bit, keep, width, counts
     return kept
 
 
-@intrinsic
-def _popcount(typingctx, value):  # type: ignore[no-untyped-def]  # pragma: no cover - compiled
-    """Set bits of a uint64 (LLVM's ctpop: one instruction where the CPU has it)."""
-    if not (isinstance(value, types.Integer) and value.bitwidth == 64 and not value.signed):
-        return None
-
-    def codegen(context, builder, signature, args):  # type: ignore[no-untyped-def]
-        function = builder.module.declare_intrinsic("llvm.ctpop", [ir.IntType(64)])
-        return builder.call(function, args)
-
-    return types.uint64(value), codegen
-
-
 @njit(cache=True, nogil=True)
 def _pair_kernel(columns, used_words, pair_counts):  # pragma: no cover - compiled
     """``pair_counts[j, k] += popcount(columns[j] & columns[k])`` for j <= k, mirrored below the diagonal."""
@@ -225,7 +211,7 @@ def _pair_kernel(columns, used_words, pair_counts):  # pragma: no cover - compil
         for k in range(j, width):
             total = uint64(0)
             for t in range(used_words):
-                total += _popcount(columns[j, t] & columns[k, t])
+                total += popcount(columns[j, t] & columns[k, t])
             pair_counts[j, k] += total
             if k != j:
                 pair_counts[k, j] += total

@@ -58,6 +58,7 @@ import numpy as np
 from numba import int64, njit, uint64
 
 from hashaudit.errors import MergeError, UsageError
+from hashaudit.stats._bitops import popcount
 from hashaudit.stats._lazy import special
 from hashaudit.stats.outcome import Effect, FitTest
 from hashaudit.stats.tails import expected_max_abs_normal
@@ -71,15 +72,6 @@ PAIR_DRAWS = 999
 # --------------------------------------------------------------------------------------------------------
 # Kernel
 # --------------------------------------------------------------------------------------------------------
-
-
-@njit(cache=True, nogil=True)
-def _popcount(x):  # pragma: no cover - compiled
-    """Set bits of a uint64 (Hacker's Delight §5-1; LLVM turns it into the popcount instruction)."""
-    x = x - ((x >> uint64(1)) & uint64(0x5555555555555555))
-    x = (x & uint64(0x3333333333333333)) + ((x >> uint64(2)) & uint64(0x3333333333333333))
-    x = (x + (x >> uint64(4))) & uint64(0x0F0F0F0F0F0F0F0F)
-    return (x * uint64(0x0101010101010101)) >> uint64(56)
 
 
 @njit(cache=True, nogil=True)
@@ -120,7 +112,7 @@ def _pair_count_kernel(values, width, counts):  # pragma: no cover - compiled
         for a in range(width):
             plane_a = planes[a]
             for b in range(a, width):
-                counts[a, b] += int64(_popcount(plane_a & planes[b]))
+                counts[a, b] += int64(popcount(plane_a & planes[b]))
 
 
 def _as_values(hashes: np.ndarray, width: int) -> np.ndarray:
