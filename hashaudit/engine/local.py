@@ -242,9 +242,12 @@ def audit_batches(
                 estimate = keys if keys is not None else (key_estimate(batch) if key_estimate else None)
                 if estimate:
                     distinct.reserve(estimate)
+            # the key sample needs only the batch: it fills on a worker while this thread drops the repeats
+            # (a bottom-k sample, so repeated keys count once by construction)
+            sampled = pool.submit(sample.update, batch) if sample is not None and pool is not None else None
+            if sample is not None and pool is None:
+                sample.update(batch)
             first = distinct.update(batch) if distinct is not None else None
-            if sample is not None:
-                sample.update(batch)  # a bottom-k sample: repeated keys count once by construction
             if first is not None and first.all():
                 first = None  # nothing to drop: skip the copy
             if pool is None:
@@ -260,6 +263,8 @@ def audit_batches(
                 work(0, parts[0], masks[0])
                 for future in futures:
                     future.result()
+            if sampled is not None:
+                sampled.result()
             total += n
             if progress is not None:
                 progress(n)
