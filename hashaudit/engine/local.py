@@ -33,8 +33,7 @@ from hashaudit.verdict.findings import Finding, Thresholds, judge, worst_verdict
 from hashaudit.verdict.result import AuditResult, HashAudit, TableSummary
 
 HOTTEST_SHOWN = 5
-LANE_COPY_BYTES = 256 << 20
-LENGTH_KEEPING_FAMILIES = ("one_char",)  # largest table memory a hashing thread may copy for itself
+LANE_COPY_BYTES = 256 << 20  # largest table memory a hashing thread may copy for itself
 
 
 @dataclass(frozen=True)
@@ -375,9 +374,7 @@ def _conclude(
             if families is None:
                 families = neighbour_families(sample, seed=plan.seed)
             tables = [(t.scheme, t.buckets) for t in state.tables]
-            # a function of 64-bit integer keys reads 8 bytes: only the family that keeps key lengths speaks to it
-            usable = [f for f in families if not state.spec.integer_keys or f.name in LENGTH_KEEPING_FAMILIES]
-            for _family, test in neighbour_tests(state.spec, usable, tables, seed=plan.seed):
+            for _family, test in neighbour_tests(state.spec, families, tables, seed=plan.seed):
                 d = test.details
                 family.append((state.spec.name, d.get("worst_scheme"), d.get("worst_buckets"), d["family_keys"], test))
         if sample is not None and len(sample) and "seeds" in plan.checks and state.spec.seeded:

@@ -372,3 +372,15 @@ def test_null_calibration_of_a_seeded_hash():
     # combined p-values are conservative but not degenerate: some are small, many are 1
     assert sum(p < 0.2 for p in p_upper) >= 3 and sum(p == 1.0 for p in p_upper) >= 10
     assert math.isfinite(sum(p_upper))
+
+
+def test_integer_key_functions_get_only_length_keeping_families():
+    """identity reads 8 bytes whatever the key's length: families that change lengths say nothing about it."""
+    from hashaudit.hashes.registry import get_hash
+    from hashaudit.stats.neighbours import LENGTH_KEEPING, neighbour_families, neighbour_tests
+
+    sample = KeyBatch.from_keys([b"%08d" % i for i in range(0, 4000, 7)])
+    families = neighbour_families(sample, seed=3, target=5000)
+    names = {name for name, _ in neighbour_tests(get_hash("identity"), families, [("mod", 1021)])}
+    assert names and names <= LENGTH_KEEPING
+    assert {name for name, _ in neighbour_tests(get_hash("xxh3_64"), families, [("mod", 1021)])} - LENGTH_KEEPING
