@@ -226,10 +226,10 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
 @click.option(
     "--distinct-memory",
     type=TableSize(),
-    default="2g",
+    default="4g",
     show_default=True,
     metavar="BYTES",
-    help="Memory budget of the distinct-key set (11-21 bytes per distinct key).",
+    help="Memory budget of the distinct-key fingerprint store (about 20 bytes per distinct key).",
 )
 @click.option(
     "--threads",

@@ -25,7 +25,7 @@ from hashaudit.stats.avalanche import DEFAULT_MAX_BYTES, DEFAULT_SAMPLE_SIZE, Ke
 from hashaudit.stats.bits import BitCounts
 from hashaudit.stats.buckets import BucketCounts, BucketCountsResult
 from hashaudit.stats.collisions import FullCollisions
-from hashaudit.stats.distinct import DEFAULT_MEMORY_BYTES, DistinctKeys
+from hashaudit.stats.distinct import BYTES_PER_DISTINCT, DEFAULT_MEMORY_BYTES, DistinctBudgetError, DistinctKeys
 from hashaudit.stats.outcome import Effect, FitTest
 from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
 from hashaudit.tables.sizes import auto_sizes
@@ -54,7 +54,7 @@ class AuditPlan:
     distinct : bool
         Count each distinct key once (the hash is not to blame for repeats); False counts every occurrence.
     distinct_memory : int
-        Memory budget in bytes of the distinct-key fingerprint set.
+        Memory budget in bytes of the distinct-key fingerprint table.
     checks : tuple of str
         Check groups to run (``hashaudit.engine.checks.CHECK_GROUPS``).
     avalanche_keys : int
@@ -171,6 +171,7 @@ def audit_batches(
     read_ahead: bool = True,
     threads: int = 0,
     key_estimate: Callable[[KeyBatch], int | None] | None = None,
+    reopen: Callable[[], Iterable[KeyBatch]] | None = None,
 ) -> AuditResult:
     """Audit a stream of key batches.
 
@@ -192,6 +193,10 @@ def audit_batches(
     key_estimate : callable, optional
         Given the first batch, an estimate of the number of keys in the whole input (sizes the distinct-key set
         once instead of growing it); ``keys`` serves when it is given.
+    reopen : callable, optional
+        Returns the same batches again from the start. With it, an input with more distinct keys than
+        ``plan.distinct_memory`` holds is read in several passes, one per part of the fingerprint space;
+        without it, that is a ``UsageError``.
     """
     started = time.perf_counter()
     # The statistics need scipy, which takes a while to import: load it while the keys stream through.
@@ -207,14 +212,18 @@ def audit_batches(
     if len(specs) < lanes and count_bytes > LANE_COPY_BYTES:
         lanes = max(1, len(specs))
     split_keys = len(specs) < lanes
-    lane_states = [
-        [
-            _new_state(spec, plan, pairs, lanes if split_keys else 1)
-            for i, spec in enumerate(specs)
-            if split_keys or i % lanes == lane
+
+    def fresh_states() -> list[list[_HashState]]:
+        return [
+            [
+                _new_state(spec, plan, pairs, lanes if split_keys else 1)
+                for i, spec in enumerate(specs)
+                if split_keys or i % lanes == lane
+            ]
+            for lane in range(lanes)
         ]
-        for lane in range(lanes)
-    ]
+
+    lane_states = fresh_states()
     hash_seconds = {spec.name: 0.0 for spec in specs}
 
     def work(lane: int, batch: KeyBatch, first: np.ndarray | None) -> None:
@@ -227,25 +236,29 @@ def audit_batches(
                 accumulator.update(values)
             hash_seconds[state.spec.name] += time.perf_counter() - t0
 
-    distinct = DistinctKeys(plan.distinct_memory) if plan.distinct else None
     wants_sample = any(group in plan.checks for group in ("avalanche", "neighbours", "seeds"))
     sample = KeySample(plan.avalanche_keys, plan.seed) if wants_sample else None
-    total = 0
     pool = ThreadPoolExecutor(max_workers=lanes - 1, thread_name_prefix="hashaudit-hash") if lanes > 1 else None
-    try:
-        for batch in prefetch(batches) if read_ahead else batches:
+    estimated: list[int | None] = [keys]
+
+    def one_pass(stream: Iterable[KeyBatch], distinct: DistinctKeys | None, sampling: bool) -> int:
+        """Feed every batch of ``stream`` to the accumulators (only first occurrences when ``distinct`` is given,
+        and among them only the keys of its part); returns the number of keys read."""
+        read = 0
+        for batch in prefetch(stream) if read_ahead else stream:
             n = len(batch)
             if n == 0:
                 continue
-            if distinct is not None and total == 0:
-                estimate = keys if keys is not None else (key_estimate(batch) if key_estimate else None)
-                if estimate:
-                    distinct.reserve(estimate)
+            if read == 0 and estimated[0] is None and key_estimate is not None:
+                estimated[0] = key_estimate(batch)
+            if distinct is not None and read == 0 and estimated[0]:
+                distinct.reserve(estimated[0] // distinct.parts)
             # the key sample needs only the batch: it fills on a worker while this thread drops the repeats
             # (a bottom-k sample, so repeated keys count once by construction)
-            sampled = pool.submit(sample.update, batch) if sample is not None and pool is not None else None
-            if sample is not None and pool is None:
-                sample.update(batch)
+            filling = sample if sampling else None
+            sampled = pool.submit(filling.update, batch) if filling is not None and pool is not None else None
+            if filling is not None and pool is None:
+                filling.update(batch)
             first = distinct.update(batch) if distinct is not None else None
             if first is not None and first.all():
                 first = None  # nothing to drop: skip the copy
@@ -264,23 +277,71 @@ def audit_batches(
                     future.result()
             if sampled is not None:
                 sampled.result()
-            total += n
-            if progress is not None:
+            read += n
+            if progress is not None and sampling:
                 progress(n)
+        return read
+
+    # With more distinct keys than --distinct-memory holds, the input is read once per part of the fingerprint
+    # space (when it can be read again): each pass keeps a part's fingerprints only, and every accumulator adds
+    # up over the passes, so the result is the same as in one pass.
+    parts = 1
+    stream: Iterable[KeyBatch] = batches
+    try:
+        while True:
+            distinct_total = 0
+            try:
+                occurrences = 0
+                for part in range(parts):
+                    distinct = DistinctKeys(plan.distinct_memory, part, parts) if plan.distinct else None
+                    read = one_pass(stream if part == 0 else reopen(), distinct, sampling=part == 0)  # type: ignore[misc]
+                    occurrences = occurrences or read
+                    distinct_total += distinct.distinct_ if distinct is not None else 0
+                    del distinct
+                break
+            except DistinctBudgetError as full:
+                if reopen is None:
+                    raise UsageError(
+                        f"{full} (an input that can be read again, such as a file, would be read in several passes)"
+                    ) from None
+                parts *= _more_parts(full, estimated[0], plan.distinct_memory)
+                if parts > MAX_PARTS:
+                    raise UsageError(f"{full}; even {MAX_PARTS} passes over the input would not do") from None
+                for lane in lane_states:
+                    for state in lane:
+                        if state.collisions is not None:
+                            state.collisions.close()
+                lane_states[:] = fresh_states()
+                hash_seconds = dict.fromkeys(hash_seconds, 0.0)
+                if sample is not None:
+                    sample = KeySample(plan.avalanche_keys, plan.seed)
+                stream = reopen()
     finally:
         if pool is not None:
             pool.shutdown(wait=True)
-    if total == 0:
+    if occurrences == 0:
         raise UsageError("no keys to audit")
-    occurrences = total
-    if distinct is not None:
-        total = distinct.distinct_
+    total = distinct_total if plan.distinct else occurrences
     if split_keys:
         states = _merge_lanes(lane_states)
     else:
         order = [spec.name for spec in specs]
         states = sorted((st for lane in lane_states for st in lane), key=lambda st: order.index(st.spec.name))
-    return _conclude(states, plan, total, occurrences, sources, started, hash_seconds, sample)
+    settings_parts = parts
+    return _conclude(states, plan, total, occurrences, sources, started, hash_seconds, sample, settings_parts)
+
+
+MAX_PARTS = 1 << 12
+
+
+def _more_parts(full: DistinctBudgetError, estimate: int | None, budget: int) -> int:
+    """By how much to multiply the number of parts after ``full``: enough for the distinct keys projected from the
+    share of the input read so far (with a quarter to spare), and at least twice as many."""
+    factor = 2
+    if estimate and full.keys_seen:
+        projected = full.distinct * max(1.0, estimate / full.keys_seen) * BYTES_PER_DISTINCT * 1.25
+        factor = max(2, 1 << max(0, math.ceil(projected / budget) - 1).bit_length())
+    return factor
 
 
 def _available_memory_bytes() -> int | None:
@@ -343,6 +404,7 @@ def _conclude(
     started: float,
     hash_seconds: dict[str, float],
     sample: KeySample | None = None,
+    passes: int = 1,
 ) -> AuditResult:
     from hashaudit.stats.avalanche import avalanche_matrix, avalanche_tests
     from hashaudit.stats.bits import bit_tests
@@ -423,6 +485,7 @@ def _conclude(
         "seconds": round(seconds, 3),
         "keys_per_second": round(total / seconds) if seconds > 0 else None,
         "hash_seconds": {k: round(v, 3) for k, v in hash_seconds.items()},
+        "passes": passes,  # reads of the input: more than one when the distinct keys outgrew --distinct-memory
         "platform": sys.platform,
     }
     return AuditResult(overall, total, tuple(hash_audits), tuple(sources), settings, run, occurrences)
@@ -452,7 +515,7 @@ def _duplicate_finding(hash_name: str, distinct: int, occurrences: int) -> Findi
         1.0,
         1.0,
         1.0,
-        "exact count through 64-bit key fingerprints (a false match has probability about d^2/2^65)",
+        "exact count through 128-bit key fingerprints (a false match has probability about d^2/2^129)",
         effect,
         math.nan,
         "info" if repeats else "pass",

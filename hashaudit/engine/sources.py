@@ -74,7 +74,21 @@ def audit(
         if keys is None:
             keys = sum(len(b) for s in sources for b in open_keys(s, options))
 
-    result = audit_batches(batches, plan, keys=keys, progress=progress, threads=threads, key_estimate=estimate)
+    readable_again = all(str(s) != "-" and os.path.isfile(s) for s in sources)
+
+    def reopen() -> Iterator[KeyBatch]:
+        streams[:] = [open_keys(s, options) for s in sources]  # the report describes the last complete read
+        return itertools.chain.from_iterable(streams)
+
+    result = audit_batches(
+        batches,
+        plan,
+        keys=keys,
+        progress=progress,
+        threads=threads,
+        key_estimate=estimate,
+        reopen=reopen if readable_again else None,
+    )
     described = tuple({**stream.description, "stats": _stats_dict(stream.stats)} for stream in streams)
     final = AuditResult(
         result.verdict, result.keys, result.hashes, described, result.settings, result.run, result.keys_read

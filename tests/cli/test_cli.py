@@ -291,3 +291,20 @@ def test_keys_appear_only_with_show_keys(tmp_path):
     group = json.loads(report.read_text())["hashes"][0]["checks"][0]["details"]["largest_groups"][0]
     assert group["keys"] == 64 and len(group["sample_keys"]) == 5
     assert all(set(k) <= set("AaB") for k in group["sample_keys"])
+
+
+def test_a_file_with_more_distinct_keys_than_the_budget_is_read_in_parts(tmp_path):
+    """``--distinct-memory 4m`` cannot hold 400,000 distinct keys' fingerprints: a file is read in several passes
+    with the same results; standard input cannot be read again, so it stops with exit 2 and one line."""
+    path = tmp_path / "many.txt"
+    path.write_text("".join(f"order-{i}\n" for i in range(400_000)) + "order-7\n")
+    base = ["audit", "-H", "xxh3_64", "-m", "2^16", "--checks", "buckets,collisions", "--json", "-"]
+    code_one, one, _ = run([*base[:-1], str(tmp_path / "one.json"), str(path)])
+    code_parts, _, _ = run([*base[:-1], str(tmp_path / "parts.json"), "--distinct-memory", "4m", str(path)])
+    one_doc = json.loads((tmp_path / "one.json").read_text())
+    parts_doc = json.loads((tmp_path / "parts.json").read_text())
+    assert code_one == code_parts == 0
+    assert parts_doc["run"]["passes"] >= 2 and one_doc["run"]["passes"] == 1
+    assert parts_doc["hashes"] == one_doc["hashes"] and parts_doc["summary"]["repeated_keys"] == 1
+    code, out, err = run(["audit", "-H", "xxh3_64", "-m", "2^16", "--distinct-memory", "4m", "-"], path.read_bytes())
+    assert code == 2 and err.count("\n") == 1 and "--all-keys" in err and "several passes" in err

@@ -191,8 +191,8 @@ def test_repeats_are_not_counted_against_the_hash():
 
 
 def test_distinct_memory_budget_is_a_clear_error():
-    values = np.arange(100_000, dtype=np.uint64)
-    plan = AuditPlan(hashes=("identity",), buckets=(1024,), distinct_memory=1 << 18)
+    values = np.arange(1_000_000, dtype=np.uint64)
+    plan = AuditPlan(hashes=("identity",), buckets=(1024,), distinct_memory=4 << 20)
     with pytest.raises(UsageError, match="--all-keys"):
         audit_batches([KeyBatch.from_uint64(values)], plan)
 
@@ -313,3 +313,21 @@ def test_large_files_estimate_the_key_count_instead_of_reading_twice(tmp_path, m
     assert len(opened) == 1  # one pass over the file
     assert estimated.settings["tables"] == exact.settings["tables"]
     assert stable(estimated) == stable(exact)
+
+
+def test_more_distinct_keys_than_the_budget_are_read_in_parts():
+    """With a 4 MiB budget, 700,000 distinct keys (about 14 MB of fingerprints) need several passes over the input;
+    the results are the same as in one pass with room to spare (only the run metadata differs)."""
+    rng = np.random.default_rng(12)
+    values = rng.integers(0, 700_000, size=1_000_000, dtype=np.uint64) * np.uint64(0x9E3779B97F4A7C15)
+    batches = [KeyBatch.from_uint64(part) for part in np.array_split(values, 5)]
+    plan = AuditPlan(hashes=("xxh3_64", "crc32"), buckets=(4096,), seed=3)
+    one = audit_batches(batches, plan)
+    small = AuditPlan(hashes=("xxh3_64", "crc32"), buckets=(4096,), seed=3, distinct_memory=4 << 20)
+    several = audit_batches(batches, small, reopen=lambda: iter(batches))
+    assert one.run["passes"] == 1 and several.run["passes"] >= 4
+    assert several.keys == one.keys == len(np.unique(values)) and several.keys_read == one.keys_read == len(values)
+    strip = lambda result: {k: v for k, v in report_dict(result).items() if k not in ("run", "settings")}  # noqa: E731
+    assert json.dumps(strip(several), sort_keys=True) == json.dumps(strip(one), sort_keys=True)
+    with pytest.raises(UsageError, match="several passes"):
+        audit_batches(batches, small)  # without a way to read the input again
