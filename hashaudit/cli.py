@@ -110,8 +110,8 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
 @click.option(
     "--checks",
     metavar="LIST",
-    help="Check groups or names, comma-separated: buckets, bits, collisions, avalanche, or check names, or all. "
-    "Default: all of them.",
+    help="Check groups or names, comma-separated: buckets, bits, collisions, avalanche, neighbours, seeds, tables, "
+    "or check names, or all. Default: all but seeds.",
 )
 @click.option("--avalanche-keys", type=int, default=4096, show_default=True, help="Keys sampled for avalanche.")
 @click.option(
@@ -213,6 +213,34 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
     help="Fail above this excess of full-width colliding pairs over the birthday expectation.",
 )
 @click.option(
+    "--max-probe-excess",
+    type=float,
+    default=0.1,
+    show_default=True,
+    help="Fail above this relative excess of probes per lookup in a simulated table over an ideal hash.",
+)
+@click.option(
+    "--table-kind",
+    "table_kinds",
+    multiple=True,
+    type=click.Choice(["chaining", "linear", "quadratic", "double", "robin-hood"]),
+    help="Simulated table organisation for probe_cost (repeatable). Default: all five.",
+)
+@click.option(
+    "--load",
+    "loads",
+    multiple=True,
+    type=float,
+    metavar="L",
+    help="Load factor at which simulated lookups are measured (repeatable). Default: 0.25 0.5 0.75 0.9 0.95.",
+)
+@click.option(
+    "--table-slots",
+    type=TableSize(),
+    metavar="M",
+    help="Slots of the simulated tables. Default: the largest power of two up to 2^18 that the keys fill.",
+)
+@click.option(
     "--show-keys",
     is_flag=True,
     help="Name up to five keys of each full-width collision group in the reports (reads the input twice). "
@@ -261,6 +289,10 @@ def audit(
     max_bit_bias,
     max_bit_correlation,
     max_collision_excess,
+    max_probe_excess,
+    table_kinds,
+    loads,
+    table_slots,
     show_keys,
     all_keys,
     distinct_memory,
@@ -282,6 +314,7 @@ def audit(
     from hashaudit.hashes.registry import DEFAULT_HASHES
     from hashaudit.report.json_report import write_json
     from hashaudit.report.terminal import render
+    from hashaudit.tables.simulate import DEFAULT_LOADS, TABLE_KINDS
     from hashaudit.verdict.findings import Thresholds
 
     _refuse_overwriting_inputs([json_path], sources)
@@ -293,6 +326,7 @@ def audit(
         max_bit_bias,
         max_bit_correlation,
         collision_excess=max_collision_excess,
+        probe_cost_excess=max_probe_excess,
     )
     plan = AuditPlan(
         tuple(hashes) or DEFAULT_HASHES,
@@ -307,6 +341,9 @@ def audit(
         avalanche_bytes,
         collision_memory,
         spill_dir,
+        table_kinds=tuple(table_kinds) or TABLE_KINDS,
+        loads=tuple(loads) or DEFAULT_LOADS,
+        table_slots=table_slots,
     )
     result = run_audit(list(sources), plan, _source_options(source_kw), threads=threads, show_keys=show_keys)
     if json_path:

@@ -17,8 +17,9 @@ CHECK_GROUPS: dict[str, tuple[str, ...]] = {
         "neighbour_appended_byte",
     ),
     "seeds": ("seed_spread", "seed_independent_collisions"),
+    "tables": ("probe_cost",),
 }
-DEFAULT_GROUPS: tuple[str, ...] = ("buckets", "bits", "collisions", "avalanche", "neighbours")
+DEFAULT_GROUPS: tuple[str, ...] = ("buckets", "bits", "collisions", "avalanche", "neighbours", "tables")
 """Every group but ``seeds``, which rehashes the key sample under several seeds and is asked for explicitly."""
 
 

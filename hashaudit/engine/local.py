@@ -27,7 +27,9 @@ from hashaudit.stats.buckets import BucketCounts, BucketCountsResult
 from hashaudit.stats.collisions import FullCollisions
 from hashaudit.stats.distinct import BYTES_PER_DISTINCT, DEFAULT_MEMORY_BYTES, DistinctBudgetError, DistinctKeys
 from hashaudit.stats.outcome import Effect, FitTest
+from hashaudit.tables.prefix import FirstValues
 from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
+from hashaudit.tables.simulate import DEFAULT_LOADS, TABLE_KINDS, kind_fits, simulate
 from hashaudit.tables.sizes import auto_sizes
 from hashaudit.verdict.findings import Finding, Thresholds, judge, worst_verdict
 from hashaudit.verdict.result import AuditResult, HashAudit, TableSummary
@@ -65,6 +67,13 @@ class AuditPlan:
         Bytes of hash values the full-width collision count keeps in memory per hash before spilling to disk.
     spill_dir : str or None
         Folder for spilled hash values (default: the system's temporary folder).
+    table_kinds : tuple of str
+        Simulated table organisations for ``probe_cost`` (``hashaudit.tables.simulate.TABLE_KINDS``).
+    loads : tuple of float
+        Load factors at which simulated lookups are measured.
+    table_slots : int or None
+        Slots of the simulated tables; None = the largest power of two the first distinct keys fill to the
+        highest load, at most ``AUTO_TABLE_SLOTS``.
     """
 
     hashes: tuple[str, ...] = DEFAULT_HASHES
@@ -79,6 +88,9 @@ class AuditPlan:
     avalanche_bytes: int = DEFAULT_MAX_BYTES
     collision_memory: int = 1 << 30
     spill_dir: str | None = None
+    table_kinds: tuple[str, ...] = TABLE_KINDS
+    loads: tuple[float, ...] = DEFAULT_LOADS
+    table_slots: int | None = None
 
     def __post_init__(self) -> None:
         if not self.hashes:
@@ -99,6 +111,21 @@ class AuditPlan:
             raise UsageError(f"--collision-memory must not be negative, not {self.collision_memory}")
         if self.spill_dir is not None and not os.path.isdir(self.spill_dir):
             raise UsageError(f"--spill-dir {self.spill_dir!r} is not an existing folder")
+        object.__setattr__(self, "table_kinds", tuple(dict.fromkeys(self.table_kinds)))
+        object.__setattr__(self, "loads", tuple(sorted(set(self.loads))))
+        for kind in self.table_kinds:
+            kind_fits(kind, 1 << 10)  # raises on an unknown kind
+        if not self.table_kinds:
+            raise UsageError("no --table-kind to simulate")
+        if not self.loads or not all(0 < x < 1 for x in self.loads):
+            raise UsageError(
+                f"--load takes load factors between 0 and 1 (exclusive), not {', '.join(map(str, self.loads))}"
+            )
+        if self.table_slots is not None and not MIN_TABLE_SLOTS <= self.table_slots <= MAX_TABLE_SLOTS:
+            raise UsageError(
+                f"--table-slots must be between {MIN_TABLE_SLOTS:,} and 2^{MAX_TABLE_SLOTS.bit_length() - 1}, "
+                f"not {self.table_slots:,}"
+            )
         for scheme in self.schemes:
             if scheme not in SCHEMES:
                 raise UsageError(f"unknown scheme {scheme!r}; choose one of {', '.join(SCHEMES)}")
@@ -132,6 +159,21 @@ class AuditPlan:
                 pairs.append(("mask" if is_power_of_two(m) else "mod", m))
         return list(dict.fromkeys(pairs))
 
+    def simulated_keys(self) -> int:
+        """How many of the first distinct keys' values the simulations keep (0 when they do not run)."""
+        if "tables" not in self.checks:
+            return 0
+        return int(max(self.loads) * (self.table_slots or AUTO_TABLE_SLOTS))
+
+    def simulated_slots(self, keys: int) -> int | None:
+        """Slots of the simulated tables given the keys kept, or None when too few keys fill the smallest table."""
+        if self.table_slots is not None:
+            return self.table_slots if int(max(self.loads) * self.table_slots) <= keys else None
+        slots = AUTO_TABLE_SLOTS
+        while slots >= MIN_TABLE_SLOTS and int(max(self.loads) * slots) > keys:
+            slots //= 2
+        return slots if slots >= MIN_TABLE_SLOTS else None
+
     def needs_key_count(self) -> bool:
         """True when table sizes depend on the number of keys."""
         return not self.buckets and "buckets" in self.checks
@@ -143,6 +185,7 @@ class _HashState:
     tables: list[BucketCounts]
     bits: BitCounts | None = None
     collisions: FullCollisions | None = None
+    first_values: FirstValues | None = None
 
     def streams(self) -> list[BucketCounts | BitCounts | FullCollisions]:
         """Every accumulator fed with this hash's values."""
@@ -157,7 +200,8 @@ def _new_state(spec: HashSpec, plan: AuditPlan, pairs: list[tuple[str, int]], la
     if "collisions" in plan.checks:
         budget = plan.collision_memory // lanes  # each lane keeps its share in memory, then spills to disk
         collisions = FullCollisions(spec.name, plan.seed, spec.width, budget, plan.spill_dir)
-    return _HashState(spec, tables, bits, collisions)
+    first_values = FirstValues(plan.simulated_keys()) if plan.simulated_keys() else None
+    return _HashState(spec, tables, bits, collisions, first_values)
 
 
 def audit_batches(
@@ -226,7 +270,7 @@ def audit_batches(
     lane_states = fresh_states()
     hash_seconds = {spec.name: 0.0 for spec in specs}
 
-    def work(lane: int, batch: KeyBatch, first: np.ndarray | None) -> None:
+    def work(lane: int, batch: KeyBatch, first: np.ndarray | None, offset: int) -> None:
         for state in lane_states[lane]:
             t0 = time.perf_counter()
             values = state.spec.hash_batch(batch, plan.seed if state.spec.seeded else 0)
@@ -234,6 +278,10 @@ def audit_batches(
                 values = values[first]
             for accumulator in state.streams():
                 accumulator.update(values)
+            if state.first_values is not None:
+                where = np.flatnonzero(first) if first is not None else np.arange(len(batch))
+                low = values[:, 0] if values.ndim == 2 else values  # tables place 128-bit values by the low word
+                state.first_values.update(low, offset + where)
             hash_seconds[state.spec.name] += time.perf_counter() - t0
 
     wants_sample = any(group in plan.checks for group in ("avalanche", "neighbours", "seeds"))
@@ -263,16 +311,19 @@ def audit_batches(
             if first is not None and first.all():
                 first = None  # nothing to drop: skip the copy
             if pool is None:
-                work(0, batch, first)
+                work(0, batch, first, read)
             else:
                 if split_keys:
                     bounds = [n * lane // lanes for lane in range(lanes + 1)]
                     parts = [batch.slice(bounds[i], bounds[i + 1]) for i in range(lanes)]
                     masks = [None if first is None else first[bounds[i] : bounds[i + 1]] for i in range(lanes)]
                 else:
+                    bounds = [0] * (lanes + 1)
                     parts, masks = [batch] * lanes, [first] * lanes
-                futures = [pool.submit(work, lane, parts[lane], masks[lane]) for lane in range(1, lanes)]
-                work(0, parts[0], masks[0])
+                futures = [
+                    pool.submit(work, lane, parts[lane], masks[lane], read + bounds[lane]) for lane in range(1, lanes)
+                ]
+                work(0, parts[0], masks[0], read)
                 for future in futures:
                     future.result()
             if sampled is not None:
@@ -332,6 +383,33 @@ def audit_batches(
 
 
 MAX_PARTS = 1 << 12
+AUTO_TABLE_SLOTS = 1 << 18
+MIN_TABLE_SLOTS = 1 << 10
+MAX_TABLE_SLOTS = 1 << 30
+
+
+def _table_tests(state: _HashState, plan: AuditPlan) -> list[tuple[str, str | None, int | None, int, FitTest]]:
+    """``probe_cost`` of every table kind, on the values of the first distinct keys."""
+    from hashaudit.stats.probes import ideal_cells, probe_tests
+
+    assert state.first_values is not None
+    values = state.first_values.values()
+    slots = plan.simulated_slots(len(values))
+    if slots is None:
+        return []
+    scheme = next(
+        (s for s in plan.schemes if s in ("mod", "range") or is_power_of_two(slots)),
+        "mask" if is_power_of_two(slots) else "mod",
+    )
+    out: list[tuple[str, str | None, int | None, int, FitTest]] = []
+    for kind in plan.table_kinds:
+        if kind_fits(kind, slots) is not None:
+            continue
+        cells = simulate(values, state.spec.width, kind, slots, scheme, plan.loads)
+        ideal = ideal_cells(state.spec.width, kind, slots, scheme, plan.loads, plan.seed)
+        for test in probe_tests(cells, ideal, scheme):
+            out.append((state.spec.name, scheme, slots, cells[-1].keys, test))
+    return out
 
 
 def _more_parts(full: DistinctBudgetError, estimate: int | None, budget: int) -> int:
@@ -392,6 +470,8 @@ def _merge_lanes(lane_states: list[list[_HashState]]) -> list[_HashState]:
         for mine, theirs in zip(merged, other, strict=True):
             for accumulator, twin in zip(mine.streams(), theirs.streams(), strict=True):
                 accumulator.merge(twin)  # type: ignore[arg-type]
+            if mine.first_values is not None and theirs.first_values is not None:
+                mine.first_values.merge(theirs.first_values)
     return merged
 
 
@@ -449,6 +529,8 @@ def _conclude(
             matrix = avalanche_matrix(state.spec, sample, seed=hash_seed, max_bytes=plan.avalanche_bytes)
             for test in avalanche_tests(matrix):
                 family.append((state.spec.name, None, None, matrix.keys, test))
+        if state.first_values is not None:
+            family.extend(_table_tests(state, plan))
     findings = judge(family, plan.thresholds)
     if plan.distinct and "collisions" in plan.checks:
         findings += [_duplicate_finding(state.spec.name, total, occurrences) for state in states]

@@ -42,6 +42,8 @@ class Thresholds:
         Largest correlation (phi) between the flips of two output bits.
     collision_excess : float
         Full-width colliding pairs over the birthday expectation, (observed - expected) / max(expected, 1).
+    probe_cost_excess : float
+        Relative extra probes per lookup in a simulated table over an ideal hash (0.1 = 10 % more).
     """
 
     alpha: float = 0.01
@@ -53,6 +55,7 @@ class Thresholds:
     avalanche_bias_max: float = 0.15
     bit_independence_max: float = 0.05
     collision_excess: float = 0.1
+    probe_cost_excess: float = 0.1
 
     def __post_init__(self) -> None:
         if not 0 < self.alpha < 1:
@@ -99,12 +102,15 @@ class Finding:
 
     @property
     def table(self) -> str:
-        """Short label of the table, e.g. ``mask 2^16`` or ``mod 65521``."""
-        return table_label(self.scheme, self.buckets)
+        """Short label of the table, e.g. ``mask 2^16`` or ``mod 65521`` (``linear mask 2^16`` for a simulated
+        table)."""
+        label = table_label(self.scheme, self.buckets)
+        return f"{self.details['table_kind']} {label}" if "table_kind" in self.details else label
 
     def to_dict(self) -> dict:
         """JSON-able form (the check entry of the report)."""
         where = {} if self.scheme is None else {"scheme": self.scheme, "buckets": self.buckets}
+        where.update({k: self.details[k] for k in ("table_kind", "load") if k in self.details})
         return {
             "name": self.check,
             **where,
@@ -230,6 +236,13 @@ def _skew_sentence(test: FitTest) -> str:
             f"{_num(d.get('keys_in_collisions', 0))} distinct keys share their full {d.get('width')}-bit value "
             f"({_num(d.get('groups', 0))} groups): {_num(test.observed)} colliding pairs against "
             f"{test.expected:.3g} expected by the birthday bound"
+        )
+    if e.name == "probe_cost_excess":
+        d = test.details
+        search = "a successful" if d.get("search") == "hit" else "an unsuccessful"
+        return (
+            f"{d.get('table_kind')} table of {_num(d.get('slots', 0))} slots at load {d.get('load')}: {search} lookup "
+            f"costs {_num(e.observed)} probes against {_num(e.ideal)} for an ideal hash ({_excess(e.value)})"
         )
     if e.name == "avalanche_bias_max":
         d = test.details

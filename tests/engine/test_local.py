@@ -61,6 +61,9 @@ def test_report_validates_against_the_shipped_schema():
                 assert "scheme" not in c and "buckets" not in c  # a check of the full hash value has no table
             elif c["name"].startswith("neighbour_"):
                 assert ("scheme" in c) == ("buckets" in c)  # placed at its worst component: a table or the full value
+            elif c["name"] == "probe_cost":  # a simulated table: the first scheme that fits its power-of-two size
+                assert c["scheme"] == "mod" and c["buckets"] == 4096 and c["load"] in (0.25, 0.5, 0.75, 0.9, 0.95)
+                assert c["table_kind"] in ("chaining", "linear", "quadratic", "double", "robin-hood")
             else:
                 assert c["scheme"] in ("mod", "range") and c["buckets"] in (1024, 1021)
 
@@ -108,7 +111,7 @@ def test_too_regular_is_info_never_fail():
 def test_dataframe_has_one_row_per_finding():
     result = audit_batches(batches_of(1000), PLAN)
     frame = result.to_dataframe()
-    assert len(frame) == len(result.findings) == 3 * (4 * 5 + 2 + 2 + 2 + 5)
+    assert len(frame) == len(result.findings) == 3 * (4 * 5 + 2 + 2 + 2 + 5 + 5)  # + probe_cost of five kinds
     assert {"hash", "check", "verdict", "p_value", "p_adjusted", "effect_value"} <= set(frame.columns)
 
 
@@ -201,9 +204,10 @@ def test_check_groups_select_what_runs():
     from hashaudit.engine.checks import parse_checks
 
     everything = ("buckets", "bits", "collisions", "avalanche", "neighbours")
-    assert parse_checks(None) == everything
+    assert parse_checks(None) == (*everything, "tables")
     assert parse_checks("bit_bias") == ("bits",)
-    assert parse_checks("all") == (*everything, "seeds")
+    assert parse_checks("all") == (*everything, "seeds", "tables")
+    assert parse_checks("probe_cost") == ("tables",)
     assert parse_checks("neighbour_case") == ("neighbours",)
     assert parse_checks("bit_independence,chi_square") == ("buckets", "avalanche")
     with pytest.raises(UsageError, match="unknown check 'entropy'"):
