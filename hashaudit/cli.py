@@ -111,7 +111,7 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
     "--checks",
     metavar="LIST",
     help="Check groups or names, comma-separated: buckets, bits, collisions, avalanche, neighbours, seeds, tables, "
-    "or check names, or all. Default: all but seeds.",
+    "growth, tags, or check names, or all. Default: all but seeds, growth and tags (--tag-bits adds tags).",
 )
 @click.option("--avalanche-keys", type=int, default=4096, show_default=True, help="Keys sampled for avalanche.")
 @click.option(
@@ -241,6 +241,42 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
     help="Slots of the simulated tables. Default: the largest power of two up to 2^18 that the keys fill.",
 )
 @click.option(
+    "--growth",
+    "growth",
+    multiple=True,
+    metavar="FACTOR@LOAD",
+    help="Growth policy replayed by growth_cost (repeatable), e.g. 2@0.75 (double when three quarters full) or "
+    "1.5@0.875. Default: 2@0.75.",
+)
+@click.option(
+    "--growth-start",
+    type=TableSize(),
+    default="16",
+    show_default=True,
+    metavar="M",
+    help="Slots of a growing table before its first resize.",
+)
+@click.option(
+    "--max-order-ratio",
+    type=float,
+    default=4.0,
+    show_default=True,
+    help="Fail when building a growing table from the keys in some order costs more than this many times a "
+    "random order.",
+)
+@click.option(
+    "--tag-bits",
+    metavar="N[@SHIFT]",
+    help="Tag bits a table keeps beside each slot, from bit SHIFT (default: the top N bits); runs tag_bits.",
+)
+@click.option(
+    "--max-tag-excess",
+    type=float,
+    default=0.25,
+    show_default=True,
+    help="Fail above this relative excess of false tag matches per lookup over an ideal hash.",
+)
+@click.option(
     "--show-keys",
     is_flag=True,
     help="Name up to five keys of each full-width collision group in the reports (reads the input twice). "
@@ -293,6 +329,11 @@ def audit(
     table_kinds,
     loads,
     table_slots,
+    growth,
+    growth_start,
+    max_order_ratio,
+    tag_bits,
+    max_tag_excess,
     show_keys,
     all_keys,
     distinct_memory,
@@ -314,6 +355,8 @@ def audit(
     from hashaudit.hashes.registry import DEFAULT_HASHES
     from hashaudit.report.json_report import write_json
     from hashaudit.report.terminal import render
+    from hashaudit.stats.tags import parse_tag_bits
+    from hashaudit.tables.growth import parse_growth
     from hashaudit.tables.simulate import DEFAULT_LOADS, TABLE_KINDS
     from hashaudit.verdict.findings import Thresholds
 
@@ -327,7 +370,12 @@ def audit(
         max_bit_correlation,
         collision_excess=max_collision_excess,
         probe_cost_excess=max_probe_excess,
+        order_cost_ratio=max_order_ratio,
+        tag_match_excess=max_tag_excess,
     )
+    selected = parse_checks(checks)
+    if tag_bits and "tags" not in selected:
+        selected = (*selected, "tags")
     plan = AuditPlan(
         tuple(hashes) or DEFAULT_HASHES,
         tuple(buckets),
@@ -336,7 +384,7 @@ def audit(
         thresholds,
         not all_keys,
         distinct_memory,
-        parse_checks(checks),
+        selected,
         avalanche_keys,
         avalanche_bytes,
         collision_memory,
@@ -344,6 +392,8 @@ def audit(
         table_kinds=tuple(table_kinds) or TABLE_KINDS,
         loads=tuple(loads) or DEFAULT_LOADS,
         table_slots=table_slots,
+        growth=tuple(parse_growth(text, growth_start) for text in growth or ("2@0.75",)),
+        tag_bits=parse_tag_bits(tag_bits) if tag_bits else (7, None),
     )
     result = run_audit(list(sources), plan, _source_options(source_kw), threads=threads, show_keys=show_keys)
     if json_path:

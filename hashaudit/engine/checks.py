@@ -18,6 +18,8 @@ CHECK_GROUPS: dict[str, tuple[str, ...]] = {
     ),
     "seeds": ("seed_spread", "seed_independent_collisions"),
     "tables": ("probe_cost",),
+    "growth": ("growth_cost", "order_hazard"),
+    "tags": ("tag_bits",),
 }
 DEFAULT_GROUPS: tuple[str, ...] = ("buckets", "bits", "collisions", "avalanche", "neighbours", "tables")
 """Every group but ``seeds``, which rehashes the key sample under several seeds and is asked for explicitly."""

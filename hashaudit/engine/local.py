@@ -27,6 +27,7 @@ from hashaudit.stats.buckets import BucketCounts, BucketCountsResult
 from hashaudit.stats.collisions import FullCollisions
 from hashaudit.stats.distinct import BYTES_PER_DISTINCT, DEFAULT_MEMORY_BYTES, DistinctBudgetError, DistinctKeys
 from hashaudit.stats.outcome import Effect, FitTest
+from hashaudit.tables.growth import GrowthPolicy, insertion_orders, replay_growth
 from hashaudit.tables.prefix import FirstValues
 from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
 from hashaudit.tables.simulate import DEFAULT_LOADS, TABLE_KINDS, kind_fits, simulate
@@ -74,6 +75,10 @@ class AuditPlan:
     table_slots : int or None
         Slots of the simulated tables; None = the largest power of two the first distinct keys fill to the
         highest load, at most ``AUTO_TABLE_SLOTS``.
+    growth : tuple of GrowthPolicy
+        Growth policies replayed by ``growth_cost``; the first also by ``order_hazard``.
+    tag_bits : (int, int or None)
+        Tag bits kept beside each slot and the position of the lowest (None: the top bits), for ``tag_bits``.
     """
 
     hashes: tuple[str, ...] = DEFAULT_HASHES
@@ -91,6 +96,8 @@ class AuditPlan:
     table_kinds: tuple[str, ...] = TABLE_KINDS
     loads: tuple[float, ...] = DEFAULT_LOADS
     table_slots: int | None = None
+    growth: tuple[GrowthPolicy, ...] = (GrowthPolicy(),)
+    tag_bits: tuple[int, int | None] = (7, None)
 
     def __post_init__(self) -> None:
         if not self.hashes:
@@ -117,6 +124,8 @@ class AuditPlan:
             kind_fits(kind, 1 << 10)  # raises on an unknown kind
         if not self.table_kinds:
             raise UsageError("no --table-kind to simulate")
+        if not self.growth:
+            raise UsageError("no --growth policy to replay")
         if not self.loads or not all(0 < x < 1 for x in self.loads):
             raise UsageError(
                 f"--load takes load factors between 0 and 1 (exclusive), not {', '.join(map(str, self.loads))}"
@@ -161,7 +170,7 @@ class AuditPlan:
 
     def simulated_keys(self) -> int:
         """How many of the first distinct keys' values the simulations keep (0 when they do not run)."""
-        if "tables" not in self.checks:
+        if not {"tables", "growth", "tags"} & set(self.checks):
             return 0
         return int(max(self.loads) * (self.table_slots or AUTO_TABLE_SLOTS))
 
@@ -250,6 +259,12 @@ def audit_batches(
     lanes = _lane_count(threads, len(specs))
     count_bytes = 8 * sum(m for _, m in pairs)  # one int64 per bucket per table, for one hash
     _check_memory(count_bytes * len(specs), pairs)
+    if "tags" in plan.checks:  # a layout whose tag overlaps the position bits is a usage error: say so before reading
+        from hashaudit.stats.tags import check_tag_layout
+
+        for spec in specs:
+            for scheme, m in pairs or [("mask", AUTO_TABLE_SLOTS)]:
+                check_tag_layout(spec.width, scheme, m, *plan.tag_bits)
     # With several hashes, each lane owns some of them; with one, lanes split each batch and own a copy of
     # the tables, merged at the end (merging counts is exact, so the result is bit-identical to one lane).
     # Copies are only made while they are small.
@@ -390,7 +405,7 @@ MAX_TABLE_SLOTS = 1 << 30
 
 def _table_tests(state: _HashState, plan: AuditPlan) -> list[tuple[str, str | None, int | None, int, FitTest]]:
     """``probe_cost`` of every table kind, on the values of the first distinct keys."""
-    from hashaudit.stats.probes import ideal_cells, probe_tests
+    from hashaudit.stats.probes import growth_tests, ideal_cells, ideal_replay, probe_tests
 
     assert state.first_values is not None
     values = state.first_values.values()
@@ -402,14 +417,60 @@ def _table_tests(state: _HashState, plan: AuditPlan) -> list[tuple[str, str | No
         "mask" if is_power_of_two(slots) else "mod",
     )
     out: list[tuple[str, str | None, int | None, int, FitTest]] = []
-    for kind in plan.table_kinds:
+    name, width = state.spec.name, state.spec.width
+    for kind in plan.table_kinds if "tables" in plan.checks else ():
         if kind_fits(kind, slots) is not None:
             continue
-        cells = simulate(values, state.spec.width, kind, slots, scheme, plan.loads)
-        ideal = ideal_cells(state.spec.width, kind, slots, scheme, plan.loads, plan.seed)
+        cells = simulate(values, width, kind, slots, scheme, plan.loads)
+        ideal = ideal_cells(width, kind, slots, scheme, plan.loads, plan.seed)
         for test in probe_tests(cells, ideal, scheme):
-            out.append((state.spec.name, scheme, slots, cells[-1].keys, test))
+            out.append((name, scheme, slots, cells[-1].keys, test))
+    if "tags" in plan.checks:
+        from hashaudit.stats.tags import tag_tests
+
+        positions = [(t.scheme, t.buckets) for t in state.tables] or [(scheme, slots)]
+        for where, m in positions:
+            for test in tag_tests(values, width, where, m, *plan.tag_bits):
+                out.append((name, where, m, len(values), test))
+    if "growth" in plan.checks:  # every kept key: growth decides the sizes
+        for kind in plan.table_kinds:
+            for i, policy in enumerate(plan.growth):
+                if kind == "quadratic" and not policy.powers_of_two:
+                    continue
+                grown = replay_growth(values, width, kind, policy, scheme)
+                ideal_growth = ideal_replay(width, kind, policy, scheme, len(values), plan.seed)
+                for test in growth_tests(grown, ideal_growth):
+                    out.append((name, _scheme_of(grown.slots, scheme), grown.slots, len(values), test))
+                if i == 0 and kind != "chaining":  # order cannot change a chained table's total work
+                    test = order_hazard(values, width, kind, policy, scheme, grown.slots, plan.seed)
+                    out.append((name, _scheme_of(grown.slots, scheme), grown.slots, len(values), test))
     return out
+
+
+def _scheme_of(slots: int, scheme: str) -> str:
+    return scheme if is_power_of_two(slots) or scheme in ("mod", "range") else "mod"
+
+
+RANDOM_ORDERS = 8
+
+
+def order_hazard(
+    values: np.ndarray, width: int, kind: str, policy: GrowthPolicy, scheme: str, slots: int, seed: int
+) -> FitTest:
+    """Replay the keys in every order of ``insertion_orders`` (and ``RANDOM_ORDERS`` random ones) into a growing
+    table and test the totals."""
+    from hashaudit.stats.probes import order_tests
+
+    def work(order: np.ndarray) -> int:
+        replay = replay_growth(values, width, kind, policy, scheme, order=order, measure_moments=False)
+        return replay.insert_probes + replay.rehash_probes
+
+    orders = insertion_orders(values, width, slots, scheme, seed)
+    rng = np.random.default_rng([seed, len(values), 0x0D3F])
+    random_totals = [work(rng.permutation(len(values))) for _ in range(RANDOM_ORDERS)]
+    totals = {name: work(order) for name, order in orders.items() if name != "random"}
+    (test,) = order_tests(kind, policy.label, totals, random_totals)
+    return test
 
 
 def _more_parts(full: DistinctBudgetError, estimate: int | None, budget: int) -> int:

@@ -29,10 +29,12 @@ import numpy as np
 
 from hashaudit.stats._lazy import LazyModule
 from hashaudit.stats.outcome import Effect, FitTest
+from hashaudit.tables.growth import GrowthPolicy, GrowthResult, replay_growth
 from hashaudit.tables.simulate import ProbeCell, simulate
 
 stats = LazyModule("scipy.stats")
 
+MIN_MOMENT_SLOTS = 1 << 10
 THEORY_KIND = {"chaining": "chaining", "linear": "linear", "quadratic": "quadratic", "double": "double"}
 
 
@@ -49,6 +51,21 @@ def ideal_cells(width: int, kind: str, slots: int, scheme: str, loads: tuple[flo
     """The same simulation with uniformly random values (seeded; cached, so several hash functions of one width
     share it)."""
     return list(_ideal_cached(int(width), kind, int(slots), scheme, tuple(loads), int(seed)))
+
+
+@functools.lru_cache(maxsize=64)
+def _ideal_replay_cached(
+    width: int, kind: str, policy: GrowthPolicy, scheme: str, keys: int, seed: int
+) -> GrowthResult:
+    bits = min(width, 64)
+    rng = np.random.default_rng([seed, bits, keys, sum(map(ord, kind + policy.label)), 0x6E0])
+    values = rng.integers(0, (1 << bits) - 1, size=keys, dtype=np.uint64, endpoint=True)
+    return replay_growth(values, width, kind, policy, scheme)
+
+
+def ideal_replay(width: int, kind: str, policy: GrowthPolicy, scheme: str, keys: int, seed: int) -> GrowthResult:
+    """``replay_growth`` of as many random values (seeded; cached across hash functions of one width)."""
+    return _ideal_replay_cached(int(width), kind, policy, scheme, int(keys), int(seed))
 
 
 def _theory(kind: str, load: float) -> dict[str, float | None]:
@@ -101,19 +118,13 @@ def probe_tests(cells: list[ProbeCell], ideal: list[ProbeCell], scheme: str) -> 
     if not cells:
         return []
     by_load = {c.load: c for c in ideal}
+    pairs = [(cell, by_load[cell.load]) for cell in cells]
     rows = []
-    worst: tuple[float, ProbeCell, ProbeCell, str, float] | None = None
-    p_up, p_low = [], []
-    for cell in cells:
-        twin = by_load[cell.load]
+    for cell, twin in pairs:
         theory = _theory(cell.kind, cell.load)
         row: dict = {"load": cell.load, "keys": cell.keys}
         for search in ("hit", "miss"):
             mine, best = getattr(cell, f"{search}_mean"), getattr(twin, f"{search}_mean")
-            t, up, low = _welch(getattr(cell, f"{search}_regions"), getattr(twin, f"{search}_regions"))
-            p_up.append(up)
-            p_low.append(low)
-            excess = (mine - best) / best
             formula = theory[search]
             row[search] = {
                 "mean": mine,
@@ -125,15 +136,11 @@ def probe_tests(cells: list[ProbeCell], ideal: list[ProbeCell], scheme: str) -> 
                 "theory_mean": formula,
                 "ratio_to_ideal": mine / best,
                 "ratio_to_theory": None if formula is None else mine / formula,
-                "t": t if math.isfinite(t) else None,
             }
-            if worst is None or excess > worst[0]:
-                worst = (excess, cell, twin, search, t)
         row["insert_probes"] = cell.insert_probes
         row["insert_worst"] = cell.insert_worst
         rows.append(row)
-    assert worst is not None
-    excess, cell, twin, search, t = worst
+    excess, cell, twin, search, t, p_up, p_low = _worst_cell(pairs)
     k = len(p_up)
     mine, best = getattr(cell, f"{search}_mean"), getattr(twin, f"{search}_mean")
     lookup = "successful" if search == "hit" else "unsuccessful"
@@ -153,6 +160,133 @@ def probe_tests(cells: list[ProbeCell], ideal: list[ProbeCell], scheme: str) -> 
             float(t) if math.isfinite(t) else 0.0,
             best,
             mine,
+            min(1.0, k * min(p_up)),
+            min(1.0, k * min(p_low)),
+            method,
+            effect,
+            details,
+        )
+    ]
+
+
+def _worst_cell(
+    pairs: list[tuple[ProbeCell, ProbeCell]],
+) -> tuple[float, ProbeCell, ProbeCell, str, float, list[float], list[float]]:
+    """Over (observed, ideal) cell pairs: the largest relative excess with its cell, search and t, and every
+    cell's upper and lower p-values."""
+    worst: tuple[float, ProbeCell, ProbeCell, str, float] | None = None
+    p_up, p_low = [], []
+    for cell, twin in pairs:
+        for search in ("hit", "miss"):
+            mine, best = getattr(cell, f"{search}_mean"), getattr(twin, f"{search}_mean")
+            t, up, low = _welch(getattr(cell, f"{search}_regions"), getattr(twin, f"{search}_regions"))
+            p_up.append(up)
+            p_low.append(low)
+            excess = (mine - best) / best
+            if worst is None or excess > worst[0]:
+                worst = (excess, cell, twin, search, t)
+    assert worst is not None
+    return (*worst, p_up, p_low)
+
+
+def growth_tests(observed: GrowthResult, ideal: GrowthResult) -> list[FitTest]:
+    """The ``growth_cost`` test: lookups at each worst moment of a growing table (just before a resize, and the
+    final table), against the same replay with random values.
+
+    Moments in tables of fewer than ``MIN_MOMENT_SLOTS`` slots are reported but not tested (too few regions).
+    The effect is the largest relative excess of probes per lookup over those moments (``probe_cost_excess``).
+    """
+    pairs = [
+        (mine, best)
+        for mine, best in zip(observed.moments, ideal.moments, strict=True)
+        if mine.slots >= MIN_MOMENT_SLOTS
+    ]
+    if not pairs:
+        return []
+    excess, cell, twin, search, t, p_up, p_low = _worst_cell(pairs)
+    k = len(p_up)
+    mine, best = getattr(cell, f"{search}_mean"), getattr(twin, f"{search}_mean")
+    lookup = "successful" if search == "hit" else "unsuccessful"
+    details = {
+        "table_kind": observed.kind,
+        "load": round(cell.load, 6),
+        "search": search,
+        "slots": cell.slots,
+        "moment": "final table" if cell is observed.moments[-1] else "just before a resize",
+        "growth": observed.to_dict(),
+        "ideal": {
+            "moments": [{"slots": m.slots, "hit_mean": m.hit_mean, "miss_mean": m.miss_mean} for m in ideal.moments],
+            "insert_probes": ideal.insert_probes,
+            "rehash_probes": ideal.rehash_probes,
+        },
+    }
+    method = f"Welch t on region means at each worst moment against random values, Bonferroni over {k}"
+    effect = Effect("probe_cost_excess", excess, mine, best, f"probes per {lookup} lookup")
+    return [
+        FitTest(
+            "growth_cost",
+            float(t) if math.isfinite(t) else 0.0,
+            best,
+            mine,
+            min(1.0, k * min(p_up)),
+            min(1.0, k * min(p_low)),
+            method,
+            effect,
+            details,
+        )
+    ]
+
+
+def order_tests(kind: str, policy: str, totals: dict[str, int], random_totals: list[int]) -> list[FitTest]:
+    """The ``order_hazard`` test: total probes to build a growing table from the keys in each order, against
+    random orders.
+
+    Parameters
+    ----------
+    kind, policy : str
+        Table kind and growth policy (``FACTOR@LOAD``).
+    totals : dict
+        Total probes (insertions and rehashes) per named order (``hashaudit.tables.growth.ORDERS`` but random).
+    random_totals : list of int
+        Totals of several random orders (the reference distribution; at least 3).
+
+    Returns
+    -------
+    list of FitTest
+        One test. The effect ``order_cost_ratio`` is the costliest order's total over the mean random total;
+        p-values come from a Student t prediction interval of the random totals (``len - 1`` degrees of freedom),
+        Bonferroni over the orders.
+    """
+    r = len(random_totals)
+    mean = float(np.mean(random_totals))
+    sd = float(np.std(random_totals, ddof=1)) * math.sqrt(1 + 1 / r)
+    p_up, p_low = [], []
+    rows = {}
+    for name, total in totals.items():
+        t = (total - mean) / sd if sd > 0 else math.copysign(math.inf, total - mean) if total != mean else 0.0
+        p_up.append(float(stats.t.sf(t, r - 1)))
+        p_low.append(float(stats.t.cdf(t, r - 1)))
+        rows[name] = {"total_probes": int(total), "ratio_to_random": total / mean}
+    worst = max(totals, key=lambda name: totals[name])
+    ratio = totals[worst] / mean
+    k = len(totals)
+    effect = Effect("order_cost_ratio", ratio, float(totals[worst]), mean, "probes to build the table, all keys")
+    details = {
+        "table_kind": kind,
+        "growth": policy,
+        "worst_order": worst,
+        "orders": rows,
+        "random_orders": r,
+        "random_mean": mean,
+    }
+    method = f"Student t prediction interval of {r} random orders, Bonferroni over {k} orders"
+    t_worst = (totals[worst] - mean) / sd if sd > 0 else 0.0
+    return [
+        FitTest(
+            "order_hazard",
+            t_worst,
+            mean,
+            float(totals[worst]),
             min(1.0, k * min(p_up)),
             min(1.0, k * min(p_low)),
             method,

@@ -83,15 +83,16 @@ def kind_fits(kind: str, slots: int) -> str | None:
 
 
 # ------------------------------------------------------------------------------------------------------------
-# kernels (each inserts keys [start, stop) of ``homes`` and returns the probes spent and the largest insertion)
+# kernels (each inserts keys order[start:stop] and returns the probes spent and the largest insertion)
 # ------------------------------------------------------------------------------------------------------------
 
 
 @njit(cache=True, nogil=True)
-def _insert_chaining(homes, start, stop, lengths, cost):  # pragma: no cover - compiled
+def _insert_chaining(homes, order, start, stop, lengths, cost):  # pragma: no cover - compiled
     total = 0
     worst = 0
-    for i in range(start, stop):
+    for j in range(start, stop):
+        i = order[j]
         b = homes[i]
         lengths[b] += 1
         c = lengths[b]
@@ -103,11 +104,12 @@ def _insert_chaining(homes, start, stop, lengths, cost):  # pragma: no cover - c
 
 
 @njit(cache=True, nogil=True)
-def _insert_linear(homes, start, stop, slots, cost):  # pragma: no cover - compiled
+def _insert_linear(homes, order, start, stop, slots, cost):  # pragma: no cover - compiled
     m = slots.shape[0]
     total = 0
     worst = 0
-    for i in range(start, stop):
+    for j in range(start, stop):
+        i = order[j]
         p = homes[i]
         c = 1
         while slots[p] >= 0:
@@ -124,11 +126,12 @@ def _insert_linear(homes, start, stop, slots, cost):  # pragma: no cover - compi
 
 
 @njit(cache=True, nogil=True)
-def _insert_robin_hood(homes, start, stop, slots):  # pragma: no cover - compiled
+def _insert_robin_hood(homes, order, start, stop, slots):  # pragma: no cover - compiled
     m = slots.shape[0]
     total = 0
     worst = 0
-    for i in range(start, stop):
+    for j in range(start, stop):
+        i = order[j]
         current = i
         p = homes[i]
         d = 0
@@ -157,11 +160,12 @@ def _insert_robin_hood(homes, start, stop, slots):  # pragma: no cover - compile
 
 
 @njit(cache=True, nogil=True)
-def _insert_quadratic(homes, start, stop, slots, cost):  # pragma: no cover - compiled
+def _insert_quadratic(homes, order, start, stop, slots, cost):  # pragma: no cover - compiled
     mask = slots.shape[0] - 1
     total = 0
     worst = 0
-    for i in range(start, stop):
+    for j in range(start, stop):
+        i = order[j]
         p = homes[i]
         c = 1
         while slots[p] >= 0:
@@ -176,11 +180,12 @@ def _insert_quadratic(homes, start, stop, slots, cost):  # pragma: no cover - co
 
 
 @njit(cache=True, nogil=True)
-def _insert_double(homes, steps, start, stop, slots, cost):  # pragma: no cover - compiled
+def _insert_double(homes, steps, order, start, stop, slots, cost):  # pragma: no cover - compiled
     m = slots.shape[0]
     total = 0
     worst = 0
-    for i in range(start, stop):
+    for j in range(start, stop):
+        i = order[j]
         p = homes[i]
         s = steps[i]
         c = 1
@@ -370,6 +375,37 @@ def _summary(hist: np.ndarray) -> tuple[float, float, float]:
     return mean, p99, worst
 
 
+def new_table(kind: str, slots: int) -> np.ndarray:
+    """An empty table: chain lengths for chaining, else slots holding key indices (-1 = empty)."""
+    return np.zeros(slots, dtype=np.int64) if kind == "chaining" else np.full(slots, -1, dtype=np.int64)
+
+
+def insert_keys(
+    kind: str,
+    homes: np.ndarray,
+    steps: np.ndarray,
+    order: np.ndarray,
+    start: int,
+    stop: int,
+    table: np.ndarray,
+    cost: np.ndarray,
+) -> tuple[int, int]:
+    """Insert keys ``order[start:stop]`` (indices into ``homes``, ``steps`` and ``cost``); returns the probes spent
+    and the costliest insertion. ``cost[i]`` becomes key i's successful-search cost (not for Robin Hood, whose keys
+    move: see ``hit_histogram``)."""
+    if kind == "chaining":
+        spent, high = _insert_chaining(homes, order, start, stop, table, cost)
+    elif kind == "linear":
+        spent, high = _insert_linear(homes, order, start, stop, table, cost)
+    elif kind == "robin-hood":
+        spent, high = _insert_robin_hood(homes, order, start, stop, table)
+    elif kind == "quadratic":
+        spent, high = _insert_quadratic(homes, order, start, stop, table, cost)
+    else:
+        spent, high = _insert_double(homes, steps, order, start, stop, table, cost)
+    return int(spent), int(high)
+
+
 def double_steps(values: np.ndarray, width: int, slots: int) -> np.ndarray:
     """The double-hashing step of every value: from the upper half of the value, odd for a power-of-two table and
     in [1, m-1] for a prime one."""
@@ -377,6 +413,64 @@ def double_steps(values: np.ndarray, width: int, slots: int) -> np.ndarray:
     if is_power_of_two(slots):
         return ((upper | np.uint64(1)) & np.uint64(slots - 1)).astype(np.int64)
     return (np.uint64(1) + upper % np.uint64(slots - 1)).astype(np.int64)
+
+
+def measure(
+    kind: str,
+    load: float,
+    homes: np.ndarray,
+    table: np.ndarray,
+    cost: np.ndarray,
+    present: np.ndarray,
+    insert_probes: int = 0,
+    insert_worst: int = 0,
+) -> ProbeCell:
+    """Lookup costs in a filled table; ``present`` are the indices of the keys in it."""
+    slots = len(table)
+    stride = max(1, slots // MISS_STARTS)
+    region_of_home = homes[present] * REGIONS // slots
+    keys_per_region = np.bincount(region_of_home, minlength=REGIONS)
+    if kind == "robin-hood":
+        hits = np.zeros(slots + 2, dtype=np.int64)
+        hit_sums = np.zeros(REGIONS, dtype=np.int64)
+        _robin_hood_hits(homes, table, hits, hit_sums)
+    else:
+        hits = np.bincount(cost[present])
+        hit_sums = np.bincount(region_of_home, weights=cost[present], minlength=REGIONS)
+    misses = np.zeros(slots + 2, dtype=np.int64)
+    miss_sums = np.zeros(REGIONS, dtype=np.int64)
+    if kind == "chaining":
+        _misses_chaining(table, stride, misses, miss_sums)
+    elif kind == "linear":
+        _misses_linear(table, stride, misses, miss_sums)
+    elif kind == "robin-hood":
+        _misses_robin_hood(homes, table, stride, misses, miss_sums)
+    elif kind == "quadratic":
+        _misses_quadratic(table, stride, misses, miss_sums)
+    else:
+        _misses_double(table, stride, is_power_of_two(slots), misses, miss_sums)
+    starts_per_region = np.bincount(np.arange(0, slots, stride) * REGIONS // slots, minlength=REGIONS)
+    hit_mean, hit_p99, hit_max = _summary(hits)
+    miss_mean, miss_p99, miss_max = _summary(misses)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        hit_regions = hit_sums / keys_per_region
+        miss_regions = miss_sums / starts_per_region
+    return ProbeCell(
+        kind,
+        load,
+        len(present),
+        slots,
+        hit_mean,
+        hit_p99,
+        hit_max,
+        miss_mean,
+        miss_p99,
+        miss_max,
+        insert_probes,
+        insert_worst,
+        hit_regions,
+        miss_regions,
+    )
 
 
 def simulate(
@@ -422,73 +516,17 @@ def simulate(
     values = np.ascontiguousarray(values[: usable[-1][1]], dtype=np.uint64)
     homes = bucket_index(values, scheme, slots, width).astype(np.int64)
     cost = np.zeros(len(values), dtype=np.int64)
-    stride = max(1, slots // MISS_STARTS)
-    if kind == "chaining":
-        table = np.zeros(slots, dtype=np.int64)
-    else:
-        table = np.full(slots, -1, dtype=np.int64)
-    steps = double_steps(values, width, slots) if kind == "double" else None
+    table = new_table(kind, slots)
+    steps = double_steps(values, width, slots) if kind == "double" else np.zeros(0, dtype=np.int64)
+    order = np.arange(len(values), dtype=np.int64)
     cells = []
     done = 0
     probes = 0
     worst = 0
     for load, n in usable:
-        if kind == "chaining":
-            spent, high = _insert_chaining(homes, done, n, table, cost)
-        elif kind == "linear":
-            spent, high = _insert_linear(homes, done, n, table, cost)
-        elif kind == "robin-hood":
-            spent, high = _insert_robin_hood(homes, done, n, table)
-        elif kind == "quadratic":
-            spent, high = _insert_quadratic(homes, done, n, table, cost)
-        else:
-            spent, high = _insert_double(homes, steps, done, n, table, cost)
+        spent, high = insert_keys(kind, homes, steps, order, done, n, table, cost)
         done = n
-        probes += int(spent)
-        worst = max(worst, int(high))
-        region_of_home = homes[:n] * REGIONS // slots
-        keys_per_region = np.bincount(region_of_home, minlength=REGIONS)
-        hit_sums = np.zeros(REGIONS, dtype=np.int64)
-        if kind == "robin-hood":
-            hits = np.zeros(slots + 2, dtype=np.int64)
-            _robin_hood_hits(homes, table, hits, hit_sums)
-        else:
-            hits = np.bincount(cost[:n])
-            hit_sums = np.bincount(region_of_home, weights=cost[:n], minlength=REGIONS)
-        misses = np.zeros(slots + 2, dtype=np.int64)
-        miss_sums = np.zeros(REGIONS, dtype=np.int64)
-        if kind == "chaining":
-            _misses_chaining(table, stride, misses, miss_sums)
-        elif kind == "linear":
-            _misses_linear(table, stride, misses, miss_sums)
-        elif kind == "robin-hood":
-            _misses_robin_hood(homes, table, stride, misses, miss_sums)
-        elif kind == "quadratic":
-            _misses_quadratic(table, stride, misses, miss_sums)
-        else:
-            _misses_double(table, stride, is_power_of_two(slots), misses, miss_sums)
-        starts_per_region = np.bincount(np.arange(0, slots, stride) * REGIONS // slots, minlength=REGIONS)
-        hit_mean, hit_p99, hit_max = _summary(hits)
-        miss_mean, miss_p99, miss_max = _summary(misses)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            hit_regions = hit_sums / keys_per_region
-            miss_regions = miss_sums / starts_per_region
-        cells.append(
-            ProbeCell(
-                kind,
-                load,
-                n,
-                slots,
-                hit_mean,
-                hit_p99,
-                hit_max,
-                miss_mean,
-                miss_p99,
-                miss_max,
-                probes,
-                worst,
-                hit_regions,
-                miss_regions,
-            )
-        )
+        probes += spent
+        worst = max(worst, high)
+        cells.append(measure(kind, load, homes, table, cost, order[:n], probes, worst))
     return cells

@@ -44,6 +44,10 @@ class Thresholds:
         Full-width colliding pairs over the birthday expectation, (observed - expected) / max(expected, 1).
     probe_cost_excess : float
         Relative extra probes per lookup in a simulated table over an ideal hash (0.1 = 10 % more).
+    order_cost_ratio : float
+        Probes to build a growing table from keys in some order, over the same in random order.
+    tag_match_excess : float
+        Relative extra false tag matches per lookup over an ideal hash (0.25 = a quarter more).
     """
 
     alpha: float = 0.01
@@ -56,6 +60,8 @@ class Thresholds:
     bit_independence_max: float = 0.05
     collision_excess: float = 0.1
     probe_cost_excess: float = 0.1
+    order_cost_ratio: float = 4.0
+    tag_match_excess: float = 0.25
 
     def __post_init__(self) -> None:
         if not 0 < self.alpha < 1:
@@ -170,6 +176,15 @@ def _excess(relative: float) -> str:
     return f"{_num(relative + 1)}× the ideal" if relative >= 1 else f"{100 * relative:+.1f} %"
 
 
+ORDER_WORDS = {
+    "source": "in source order",
+    "iteration_2x": "in the slot order of a same-hash table twice its size (a copy of a bigger table)",
+    "iteration_1x": "in the slot order of a same-hash table of its size (a copy)",
+    "iteration_half": "in the slot order of a same-hash table half its size",
+    "sorted_by_hash": "sorted by hash value",
+}
+
+
 def _p(p: float) -> str:
     return "p < 1e-300" if p < 1e-300 else f"p = {p:.2g}"
 
@@ -236,6 +251,32 @@ def _skew_sentence(test: FitTest) -> str:
             f"{_num(d.get('keys_in_collisions', 0))} distinct keys share their full {d.get('width')}-bit value "
             f"({_num(d.get('groups', 0))} groups): {_num(test.observed)} colliding pairs against "
             f"{test.expected:.3g} expected by the birthday bound"
+        )
+    if e.name == "tag_match_excess":
+        d = test.details
+        return (
+            f"tag bits {d.get('tag_shift')}..{d.get('tag_shift', 0) + d.get('tag_bits', 0) - 1}: a lookup meets "
+            f"{e.observed:.3g} false tag matches against {e.ideal:.3g} for an ideal hash ({_excess(e.value)}; the "
+            f"commonest tag holds {100 * d.get('worst_tag_share', 0):.2f} % of the keys, "
+            f"{d.get('dependence_ratio') or 1:.2f}× the matches its bucket and tag shares alone explain)"
+        )
+    if e.name == "order_cost_ratio":
+        d = test.details
+        worst = ORDER_WORDS.get(d.get("worst_order", ""), d.get("worst_order"))
+        return (
+            f"building a growing {d.get('table_kind')} table ({d.get('growth')}) from the keys {worst} costs "
+            f"{_num(e.observed)} probes, {_num(e.value)}× a random order — copy tables in random order, size the "
+            "target before filling it, or give each table its own seed"
+        )
+    if e.name == "probe_cost_excess" and test.name == "growth_cost":
+        d = test.details
+        g = d.get("growth", {})
+        search = "a successful" if d.get("search") == "hit" else "an unsuccessful"
+        return (
+            f"growing {d.get('table_kind')} table ({g.get('policy')}, {g.get('resizes')} resizes moving "
+            f"{_num(g.get('keys_moved', 0))} keys, {_num(g.get('slots', 0))} slots at the end): {d.get('moment')} "
+            f"at {_num(d.get('slots', 0))} slots, {search} lookup costs {_num(e.observed)} probes against "
+            f"{_num(e.ideal)} for an ideal hash ({_excess(e.value)})"
         )
     if e.name == "probe_cost_excess":
         d = test.details

@@ -308,3 +308,46 @@ def test_a_file_with_more_distinct_keys_than_the_budget_is_read_in_parts(tmp_pat
     assert parts_doc["hashes"] == one_doc["hashes"] and parts_doc["summary"]["repeated_keys"] == 1
     code, out, err = run(["audit", "-H", "xxh3_64", "-m", "2^16", "--distinct-memory", "4m", "-"], path.read_bytes())
     assert code == 2 and err.count("\n") == 1 and "--all-keys" in err and "several passes" in err
+
+
+@pytest.mark.parametrize(
+    ("args", "words"),
+    [
+        (["--growth", "double"], "FACTOR@LOAD"),
+        (["--growth", "2@1.2"], "between 0 and 1"),
+        (["--load", "1.5"], "--load"),
+        (["--table-slots", "100"], "--table-slots"),
+        (["--tag-bits", "7x"], "--tag-bits"),
+        (["--tag-bits", "8@0", "-m", "2^16", "-s", "mask"], "overlap"),
+    ],
+)
+def test_table_options_refuse_bad_values_in_one_line(random_keys, args, words):
+    code, out, err = run(["audit", str(random_keys), "-H", "xxh3_64", *args])
+    assert code == 2 and err.count("\n") == 1 and words in err and "Traceback" not in err
+
+
+def test_simulated_tables_growth_and_tags_reach_the_json(random_keys, tmp_path):
+    report = tmp_path / "tables.json"
+    code, _, _ = run(
+        [
+            "audit", str(random_keys), "-H", "xxh3_64", "--checks", "tables,growth", "--tag-bits", "7",
+            "--table-kind", "linear", "--table-kind", "robin-hood", "--load", "0.5", "--load", "0.9",
+            "--growth", "2@0.875", "--json", str(report),
+        ]
+    )  # fmt: skip
+    doc = json.loads(report.read_text())
+    checks = doc["hashes"][0]["checks"]
+    kinds = {(c["name"], c.get("table_kind")) for c in checks}
+    assert kinds == {("probe_cost", "linear"), ("probe_cost", "robin-hood"), ("growth_cost", "linear"),
+                     ("growth_cost", "robin-hood"), ("order_hazard", "linear"), ("order_hazard", "robin-hood"),
+                     ("tag_bits", None)}  # fmt: skip
+    probe = next(c for c in checks if c["name"] == "probe_cost")
+    assert [row["load"] for row in probe["details"]["loads"]] == [0.5, 0.9]
+    assert probe["buckets"] == 1 << 15 and probe["load"] in (0.5, 0.9)  # 30,000 keys fill 2^15 slots to 0.9
+    growth = next(c for c in checks if c["name"] == "growth_cost")
+    assert growth["details"]["growth"]["policy"] == "2@0.875"
+    assert code in (0, 1)
+    if CONTRACT.exists():
+        import subprocess
+
+        assert subprocess.run([sys.executable, str(CONTRACT), str(report)], capture_output=True).returncode == 0
