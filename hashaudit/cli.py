@@ -46,6 +46,49 @@ def _debug_requested(argv: list[str] | None = None) -> bool:
     return "--debug" in args or os.environ.get("HASHAUDIT_DEBUG") == "1"
 
 
+def source_options(command):  # type: ignore[no-untyped-def]
+    """The options that say how records of a source become keys (shared by ``audit`` and ``plan``)."""
+    for option in reversed(_SOURCE_OPTIONS):
+        command = option(command)
+    return command
+
+
+_SOURCE_OPTIONS = [
+    click.option(
+        "--format",
+        "input_format",
+        default="auto",
+        show_default=True,
+        type=click.Choice(["auto", "lines", "csv", "tsv", "jsonl"]),
+        help="Input format (auto: by suffix).",
+    ),
+    click.option(
+        "--column",
+        "-c",
+        multiple=True,
+        metavar="NAME|INDEX",
+        help="CSV/TSV column by name or 0-based index (repeatable: composite key).",
+    ),
+    click.option("--join", default="|", show_default=True, metavar="SEP", help="Separator of composite keys."),
+    click.option("--field", "-f", metavar="PATH", help="JSON Lines field, dotted path (user.id)."),
+    click.option("--delimiter", metavar="CHAR", help="CSV delimiter (default , for csv, tab for tsv)."),
+    click.option("--no-header", is_flag=True, help="CSV/TSV files have no header row (columns by index)."),
+    click.option(
+        "--key-format",
+        default="bytes",
+        show_default=True,
+        type=click.Choice(["bytes", "hex", "base64", "int"]),
+        help="How a key's text becomes bytes; int = decimal, hashed as 8-byte little-endian.",
+    ),
+    click.option("--keep-cr", is_flag=True, help="Keep a CR before the LF as part of the key."),
+    click.option("--skip-empty", is_flag=True, help="Skip empty keys instead of hashing them."),
+    click.option("--raw-bytes", is_flag=True, help="Accept keys that are not UTF-8 text (binary dumps)."),
+    click.option("--strip", is_flag=True, help="Strip leading and trailing ASCII whitespace from keys."),
+    click.option("--lowercase", is_flag=True, help="ASCII-lowercase keys."),
+    click.option("--pattern", metavar="REGEX", help="Hash only the first group of REGEX's match in each key."),
+]
+
+
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(package_name="hashaudit")
 @click.option("--debug", is_flag=True, help="Show the traceback of an error.")
@@ -137,38 +180,7 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
 )
 @click.option("--seed", type=int, default=0, show_default=True, help="Seed of seeded hashes and simulations.")
 @click.option("--json", "json_path", metavar="FILE", help="Write the JSON report to FILE.")
-@click.option(
-    "--format",
-    "input_format",
-    default="auto",
-    show_default=True,
-    type=click.Choice(["auto", "lines", "csv", "tsv", "jsonl"]),
-    help="Input format (auto: by suffix).",
-)
-@click.option(
-    "--column",
-    "-c",
-    multiple=True,
-    metavar="NAME|INDEX",
-    help="CSV/TSV column by name or 0-based index (repeatable: composite key).",
-)
-@click.option("--join", default="|", show_default=True, metavar="SEP", help="Separator of composite keys.")
-@click.option("--field", "-f", metavar="PATH", help="JSON Lines field, dotted path (user.id).")
-@click.option("--delimiter", metavar="CHAR", help="CSV delimiter (default , for csv, tab for tsv).")
-@click.option("--no-header", is_flag=True, help="CSV/TSV files have no header row (columns by index).")
-@click.option(
-    "--key-format",
-    default="bytes",
-    show_default=True,
-    type=click.Choice(["bytes", "hex", "base64", "int"]),
-    help="How a key's text becomes bytes; int = decimal, hashed as 8-byte little-endian.",
-)
-@click.option("--keep-cr", is_flag=True, help="Keep a CR before the LF as part of the key.")
-@click.option("--skip-empty", is_flag=True, help="Skip empty keys instead of hashing them.")
-@click.option("--raw-bytes", is_flag=True, help="Accept keys that are not UTF-8 text (binary dumps).")
-@click.option("--strip", is_flag=True, help="Strip leading and trailing ASCII whitespace from keys.")
-@click.option("--lowercase", is_flag=True, help="ASCII-lowercase keys.")
-@click.option("--pattern", metavar="REGEX", help="Hash only the first group of REGEX's match in each key.")
+@source_options
 @click.option("--alpha", type=float, default=0.01, show_default=True, help="Family-wise error rate (Holm).")
 @click.option(
     "--max-cost-excess",
@@ -405,29 +417,122 @@ def audit(
 
 
 @cli.command()
-@click.option("--keys", "-n", "n_keys", required=True, type=TableSize(), help="Number of keys.")
+@click.argument("sources", nargs=-1, metavar="[SOURCE...]")
+@click.option("--keys", "-n", "n_keys", type=TableSize(), help="Number of keys (or give SOURCE to count them).")
 @click.option("--buckets", "-m", type=TableSize(), help="Table size.")
 @click.option("--load", "load_factor", type=float, help="Target load factor n/m (instead of --buckets).")
+@click.option(
+    "--target",
+    metavar="NAME=VALUE",
+    help="Recommend a table meeting this: mean-hit, mean-miss, p99-hit or p99-miss (probes), or no-collision "
+    "(probability).",
+)
+@click.option(
+    "--table-kind",
+    default="linear",
+    show_default=True,
+    type=click.Choice(["chaining", "linear", "quadratic", "double", "robin-hood"]),
+    help="Table organisation the recommendation is for.",
+)
+@click.option(
+    "--sizes",
+    default="pow2",
+    show_default=True,
+    type=click.Choice(["pow2", "prime", "any"]),
+    help="Table sizes to choose from.",
+)
+@click.option("--hash", "-H", "hash_name", metavar="NAME", help="Hash whose values of SOURCE's keys are simulated.")
+@click.option("--hash-width", type=int, help="Bits of the hash value, for its birthday bound (default: -H's width).")
+@click.option("--seed", type=int, default=0, show_default=True, help="Seed of the simulations.")
 @click.option("--json", "json_path", metavar="FILE", help="Write the plan as JSON to FILE ('-' for stdout).")
+@source_options
 @click.option("--debug", is_flag=True, help="Show the traceback of an error.")
-def plan(n_keys, buckets, load_factor, json_path, debug):  # type: ignore[no-untyped-def]
-    """What simple uniform hashing predicts for N keys in a table: collisions, empty buckets, probes."""
-    from hashaudit.stats.theory import plan_capacity
+def plan(
+    sources, n_keys, buckets, load_factor, target, table_kind, sizes, hash_name, hash_width, seed, json_path, debug,
+    **source_kw,
+):  # type: ignore[no-untyped-def]  # fmt: skip
+    """What simple uniform hashing predicts for N keys in a table, and the table that meets a target.
 
+    With SOURCE, the keys are counted (distinct keys) and the recommended table is also simulated with their hash
+    values under -H (default xxh3_64), beside the theory and an ideal hash.
+    """
+    from hashaudit.stats.theory import plan_capacity
+    from hashaudit.tables.planner import parse_target, recommend
+
+    _refuse_overwriting_inputs([json_path], sources)
+    values, value_width = None, 64
+    if sources:
+        n_keys, values, value_width = _measure_keys(sources, hash_name or "xxh3_64", seed, source_kw)
+        hash_width = hash_width or value_width
+    elif hash_name:
+        from hashaudit.hashes.registry import REGISTRY
+
+        hash_width = hash_width or REGISTRY.get(hash_name).width
+    if n_keys is None:
+        raise UsageError("give --keys N, or a SOURCE whose keys are counted")
     if n_keys < 1:
         raise UsageError(f"--keys must be at least 1, not {n_keys}")
     if buckets is not None and buckets < 1:
         raise UsageError(f"--buckets must be a positive integer, not {buckets}")
+    if hash_width is not None and not 1 <= hash_width <= 512:
+        raise UsageError(f"--hash-width must be between 1 and 512 bits, not {hash_width}")
+    advice = None
+    if target:
+        if buckets is not None or load_factor is not None:
+            raise UsageError("give --target, or one of --buckets and --load, not both")
+        advice = recommend(n_keys, table_kind, parse_target(target), sizes, hash_width, values, value_width, seed)
+        buckets = advice["slots"]
+    elif buckets is None and load_factor is None:
+        raise UsageError("give one of --buckets, --load or --target")
     capacity = plan_capacity(n_keys, buckets=buckets, load_factor=load_factor)
     data = capacity.to_dict()
+    if advice is not None:
+        data["recommendation"] = advice
+    elif hash_width is not None:
+        from hashaudit.stats.theory import keys_for_even_odds, p_no_collision
+
+        data["hash_width"] = {
+            "bits": hash_width,
+            "keys_for_even_odds": keys_for_even_odds(2.0**hash_width),
+            "p_no_full_collision": p_no_collision(2.0**hash_width, n_keys),
+        }
     if json_path:
         text = json.dumps(data, indent=2, allow_nan=False) + "\n"
         if json_path == "-":
             click.echo(text, nl=False)
             return
-        with open(json_path, "w", encoding="utf-8") as f:
-            f.write(text)
+        from hashaudit.report.json_report import write_text_atomically
+
+        write_text_atomically(json_path, text)
     click.echo(_plan_text(data))
+
+
+def _measure_keys(sources: tuple[str, ...], hash_name: str, seed: int, source_kw: dict):  # type: ignore[no-untyped-def]
+    """Distinct keys of the sources, and the hash values of the first ``PLAN_VALUES`` of them."""
+    import numpy as np
+
+    from hashaudit.hashes.registry import REGISTRY
+    from hashaudit.keys import open_keys
+    from hashaudit.stats.distinct import DistinctKeys
+
+    spec = REGISTRY.get(hash_name)
+    store = DistinctKeys()
+    kept: list[np.ndarray] = []
+    held = 0
+    for source in sources:
+        for batch in open_keys(source, _source_options(source_kw)):
+            first = store.update(batch)
+            if held < PLAN_VALUES:
+                values = spec.hash_batch(batch, seed if spec.seeded else 0)[first]
+                values = values[:, 0] if values.ndim == 2 else values
+                kept.append(values[: PLAN_VALUES - held])
+                held += len(kept[-1])
+    if store.distinct_ == 0:
+        raise UsageError("no keys to plan for")
+    return store.distinct_, np.concatenate(kept), spec.width
+
+
+PLAN_VALUES = 1 << 22
 
 
 def _plan_text(d: dict) -> str:
@@ -448,6 +553,36 @@ def _plan_text(d: dict) -> str:
     ]
     for kind in ("chaining", "linear", "quadratic", "double"):
         rows.append(f"    {kind:<31}{cell(probes[kind]['hit']):>8}  {cell(probes[kind]['miss']):>8}")
+    advice = d.get("recommendation")
+    if advice is not None:
+        goal = advice["target"]
+        limit = (
+            ""
+            if advice["max_load"] is None
+            else f"; maximum load factor {advice['max_load']:.3f} ({advice['found_by']})"
+        )
+        rows += [
+            "",
+            f"recommendation for {goal['name']} = {goal['value']:g}, {advice['table_kind']} table: "
+            f"{advice['slots']:,} slots (load {advice['load']:.3f}{limit})",
+            "  probes per lookup       mean hit   p99 hit  mean miss  p99 miss",
+        ]
+        theory = advice["theory"]
+        rows.append(f"    theory              {cell(theory['hit']):>9}  {'':>8}  {cell(theory['miss']):>9}")
+        for label, sim in (("ideal hash (sim.)", advice["ideal"]), ("your keys (sim.)", advice["measured"])):
+            if sim is not None:
+                rows.append(
+                    f"    {label:<20}{sim['hit_mean']:>9.3f}  {sim['hit_p99']:>8.0f}  {sim['miss_mean']:>9.3f}  "
+                    f"{sim['miss_p99']:>8.0f}   ({sim['keys']:,} keys in {sim['slots']:,} slots)"
+                )
+    width = (advice or {}).get("hash_width") or d.get("hash_width")
+    if width is not None:
+        rows += [
+            "",
+            f"whole {width['bits']}-bit hash value: even odds of two keys sharing it at {width['keys_for_even_odds']:,} "
+            "keys; probability that none of these keys share it "
+            + (f"{width['p_no_full_collision']:.6g}" if width["p_no_full_collision"] > 0 else "below 1e-300"),
+        ]
     return "\n".join(rows)
 
 

@@ -39,8 +39,12 @@ def to_json(result: AuditResult) -> str:
 
 def write_json(result: AuditResult, path: str | os.PathLike) -> None:
     """Write the report atomically (a temporary file renamed into place), so a failed write loses nothing."""
+    write_text_atomically(path, to_json(result))
+
+
+def write_text_atomically(path: str | os.PathLike, text: str) -> None:
+    """Write ``text`` to ``path`` through a temporary file renamed into place; one-line ``InputError`` on failure."""
     target = Path(path)
-    text = to_json(result)
     directory = target.parent if str(target.parent) else Path(".")
     if not directory.is_dir():
         raise InputError(f"cannot write report {str(path)!r}: folder {str(directory)!r} does not exist")

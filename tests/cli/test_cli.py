@@ -351,3 +351,21 @@ def test_simulated_tables_growth_and_tags_reach_the_json(random_keys, tmp_path):
         import subprocess
 
         assert subprocess.run([sys.executable, str(CONTRACT), str(report)], capture_output=True).returncode == 0
+
+
+def test_plan_command_with_a_source(tmp_path):
+    keys = tmp_path / "keys.txt"
+    keys.write_text("".join(f"crate-{i:06d}\n" for i in range(50_000)) + "crate-000001\n")
+    code, out, err = run(
+        ["plan", str(keys), "-H", "murmur3_32", "--target", "p99-miss=20", "--json", str(tmp_path / "p.json")]
+    )
+    assert code == 0, err
+    doc = json.loads((tmp_path / "p.json").read_text())
+    advice = doc["recommendation"]
+    assert advice["keys"] == doc["keys"] == 50_000  # distinct keys: the repeat counts once
+    assert advice["measured"] is not None and advice["hash_width"]["bits"] == 32
+    assert "your keys (sim.)" in out and "recommendation for p99-miss = 20" in out
+    code, _, err = run(["plan", "--target", "mean-miss=4"])
+    assert code == 2 and "--keys" in err
+    code, _, err = run(["plan", "--keys", "100", "--target", "mean-miss=4", "--load", "0.5"])
+    assert code == 2 and "not both" in err
