@@ -75,9 +75,10 @@ def render(result: AuditResult, *, show_all: bool = False, colour: bool = False)
         )
     elif result.settings.get("count") == "all":
         counted = f"{result.keys:,} keys (every occurrence counted)"
+    tables = len(result.settings.get("tables", []))
     lines.append(
-        f"hashaudit: {counted} from {sources}; {len(result.hashes)} hash functions, "
-        f"{len(result.settings.get('tables', []))} tables each"
+        f"hashaudit: {counted} from {sources}; {len(result.hashes)} hash functions"
+        + (f", {tables} tables each" if tables else "")
     )
     lines.append(
         f"verdict: {_tag(result.verdict, colour).strip()}   "
