@@ -237,7 +237,13 @@ def growth_tests(observed: GrowthResult, ideal: GrowthResult) -> list[FitTest]:
     ]
 
 
-def order_tests(kind: str, policy: str, totals: dict[str, int], random_totals: list[int]) -> list[FitTest]:
+def order_tests(
+    kind: str,
+    policy: str,
+    totals: dict[str, int],
+    random_totals: list[int],
+    worst_insertions: dict[str, int] | None = None,
+) -> list[FitTest]:
     """The ``order_hazard`` test: total probes to build a growing table from the keys in each order, against
     random orders.
 
@@ -249,6 +255,8 @@ def order_tests(kind: str, policy: str, totals: dict[str, int], random_totals: l
         Total probes (insertions and rehashes) per named order (``hashaudit.tables.growth.ORDERS`` but random).
     random_totals : list of int
         Totals of several random orders (the reference distribution; at least 3).
+    worst_insertions : dict, optional
+        The costliest single insertion (or rehash move) per named order, for the details.
 
     Returns
     -------
@@ -267,6 +275,8 @@ def order_tests(kind: str, policy: str, totals: dict[str, int], random_totals: l
         p_up.append(float(stats.t.sf(t, r - 1)))
         p_low.append(float(stats.t.cdf(t, r - 1)))
         rows[name] = {"total_probes": int(total), "ratio_to_random": total / mean}
+        if worst_insertions is not None:
+            rows[name]["worst_insertion"] = int(worst_insertions[name])
     worst = max(totals, key=lambda name: totals[name])
     ratio = totals[worst] / mean
     k = len(totals)
