@@ -26,7 +26,8 @@ import numpy as np
 
 from hashaudit.errors import UsageError
 from hashaudit.tables.schemes import bucket_index, is_power_of_two
-from hashaudit.tables.simulate import ProbeCell, double_steps, insert_keys, is_prime, measure, new_table
+from hashaudit.tables.simulate import ProbeCell, double_steps, insert_keys, measure, new_table
+from hashaudit.tables.sizes import is_prime, prime_above
 
 SLOT_BYTES = 16  # a hash-table slot holding a pointer to the entry and its stored hash: common practice
 ORDERS = ("source", "random", "iteration_2x", "iteration_1x", "iteration_half", "sorted_by_hash")
@@ -57,12 +58,12 @@ class GrowthPolicy:
         return self.factor == 2.0 and is_power_of_two(self.start)
 
     def first_size(self) -> int:
-        return self.start if self.powers_of_two else _next_prime(self.start)
+        return self.start if self.powers_of_two else prime_above(self.start)
 
     def next_size(self, slots: int) -> int:
         if self.powers_of_two:
             return 2 * slots
-        return _next_prime(max(slots + 1, math.ceil(slots * self.factor)))
+        return prime_above(max(slots + 1, math.ceil(slots * self.factor)))
 
 
 def parse_growth(text: str, start: int = 16) -> GrowthPolicy:
@@ -74,13 +75,6 @@ def parse_growth(text: str, start: int = 16) -> GrowthPolicy:
         return GrowthPolicy(start, float(match.group(1)), float(match.group(2)))
     except ValueError:
         raise UsageError(f"--growth takes FACTOR@LOAD such as 2@0.75 or 1.5@0.875, not {text!r}") from None
-
-
-def _next_prime(n: int) -> int:
-    n = max(n, 2)
-    while not is_prime(n):
-        n += 1
-    return n
 
 
 def _scheme_for(slots: int, scheme: str) -> str:

@@ -24,7 +24,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from hashaudit.errors import UsageError
-from hashaudit.tables.simulate import TABLE_KINDS, is_prime, simulate
+from hashaudit.tables.simulate import TABLE_KINDS, simulate
+from hashaudit.tables.sizes import prime_above
 
 TARGETS = ("mean-hit", "mean-miss", "p99-hit", "p99-miss", "no-collision")
 SIZE_FAMILIES = ("pow2", "prime", "any")
@@ -114,10 +115,7 @@ def table_size(keys: int, load: float, family: str) -> int:
     if family == "pow2":
         return 1 << (need - 1).bit_length()
     if family == "prime":
-        m = max(need, 2)
-        while not is_prime(m):
-            m += 1
-        return m
+        return prime_above(need)
     return need
 
 

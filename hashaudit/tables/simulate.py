@@ -40,35 +40,12 @@ from numba import njit, uint64
 
 from hashaudit.errors import UsageError
 from hashaudit.tables.schemes import bucket_index, is_power_of_two
+from hashaudit.tables.sizes import is_prime
 
 TABLE_KINDS = ("chaining", "linear", "quadratic", "double", "robin-hood")
 DEFAULT_LOADS = (0.25, 0.5, 0.75, 0.9, 0.95)
 MISS_STARTS = 1 << 20  # unsuccessful lookups measured from at most this many home slots
 REGIONS = 64  # the table is cut into this many runs of slots, whose mean costs give the sampling error
-
-
-def is_prime(m: int) -> bool:
-    """Deterministic Miller-Rabin for m < 3.3e24 (the first 13 primes as bases)."""
-    if m < 2:
-        return False
-    small = (2, 3, 5, 7, 11, 13, 17, 19, 23, 29, 31, 37, 41)
-    for p in small:
-        if m % p == 0:
-            return m == p
-    d, s = m - 1, 0
-    while d % 2 == 0:
-        d, s = d // 2, s + 1
-    for a in small:
-        x = pow(a, d, m)
-        if x in (1, m - 1):
-            continue
-        for _ in range(s - 1):
-            x = x * x % m
-            if x == m - 1:
-                break
-        else:
-            return False
-    return True
 
 
 def kind_fits(kind: str, slots: int) -> str | None:

@@ -44,6 +44,14 @@ def prime_below(n: int) -> int:
     return candidate
 
 
+def prime_above(n: int) -> int:
+    """The smallest prime ≥ n."""
+    candidate = max(n, 2)
+    while not is_prime(candidate):
+        candidate += 1
+    return candidate
+
+
 def auto_sizes(keys: int) -> tuple[list[int], list[int]]:
     """Default table sizes for ``keys`` keys: powers of two at load factors near 0.5, 1 and 2, and a prime near
     the load factor 1 size. Returns ``(powers_of_two, primes)``; sizes are capped at ``MAX_AUTO_BUCKETS``."""

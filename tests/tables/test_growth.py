@@ -32,7 +32,7 @@ def test_other_factors_use_prime_sizes(values):
     result = replay_growth(values[:20_000], 64, "double", parse_growth("1.5@0.875"))
     sizes = [m.slots for m in result.moments]
     assert sizes[0] == 17 and all(b >= 1.5 * a for a, b in zip(sizes, sizes[1:], strict=False))
-    from hashaudit.tables.simulate import is_prime
+    from hashaudit.tables.sizes import is_prime
 
     assert all(is_prime(s) for s in sizes)
     with pytest.raises(UsageError, match="power-of-two"):

@@ -14,7 +14,8 @@ import pytest
 from hashaudit.errors import UsageError
 from hashaudit.stats.theory import expected_probes
 from hashaudit.tables.prefix import FirstValues
-from hashaudit.tables.simulate import TABLE_KINDS, double_steps, is_prime, kind_fits, simulate
+from hashaudit.tables.simulate import TABLE_KINDS, double_steps, kind_fits, simulate
+from hashaudit.tables.sizes import is_prime
 
 
 @pytest.fixture(scope="module")
