@@ -154,7 +154,8 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
     "--checks",
     metavar="LIST",
     help="Check groups or names, comma-separated: buckets, bits, collisions, avalanche, neighbours, seeds, tables, "
-    "growth, tags, or check names, or all. Default: all but seeds, growth and tags (--tag-bits adds tags).",
+    "growth, tags, shards, or check names, or all. Default: all but seeds, growth, tags and shards (--tag-bits and "
+    "--shards add theirs).",
 )
 @click.option("--avalanche-keys", type=int, default=4096, show_default=True, help="Keys sampled for avalanche.")
 @click.option(
@@ -289,6 +290,41 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
     help="Fail above this relative excess of false tag matches per lookup over an ideal hash.",
 )
 @click.option(
+    "--shards",
+    "shards",
+    multiple=True,
+    type=int,
+    metavar="N",
+    help="Shard, partition or node count (repeatable); runs the shard checks: balance, movement, hot keys.",
+)
+@click.option(
+    "--shard-scheme",
+    "shard_schemes",
+    multiple=True,
+    type=click.Choice(["mod", "jump", "rendezvous", "ring"]),
+    help="How a hash value picks a shard (repeatable). Default: mod.",
+)
+@click.option("--vnodes", type=int, default=160, show_default=True, help="Virtual nodes per shard on a ring.")
+@click.option(
+    "--shard-weights",
+    metavar="W1,W2,...",
+    help="Capacity weight of each shard (rendezvous and ring), comma-separated.",
+)
+@click.option(
+    "--max-shard-imbalance",
+    type=float,
+    default=0.05,
+    show_default=True,
+    help="Fail when the hottest shard's distinct keys exceed an ideal hash's expected maximum by more than this.",
+)
+@click.option(
+    "--max-movement-excess",
+    type=float,
+    default=0.1,
+    show_default=True,
+    help="Fail when adding a shard moves this much more of the keys than an ideal hash under the same scheme.",
+)
+@click.option(
     "--show-keys",
     is_flag=True,
     help="Name up to five keys of each full-width collision group in the reports (reads the input twice). "
@@ -346,6 +382,12 @@ def audit(
     max_order_ratio,
     tag_bits,
     max_tag_excess,
+    shards,
+    shard_schemes,
+    vnodes,
+    shard_weights,
+    max_shard_imbalance,
+    max_movement_excess,
     show_keys,
     all_keys,
     distinct_memory,
@@ -384,10 +426,14 @@ def audit(
         probe_cost_excess=max_probe_excess,
         order_cost_ratio=max_order_ratio,
         tag_match_excess=max_tag_excess,
+        shard_imbalance=max_shard_imbalance,
+        movement_excess=max_movement_excess,
     )
     selected = parse_checks(checks)
     if tag_bits and "tags" not in selected:
         selected = (*selected, "tags")
+    if shards and "shards" not in selected:
+        selected = (*selected, "shards")
     plan = AuditPlan(
         tuple(hashes) or DEFAULT_HASHES,
         tuple(buckets),
@@ -405,7 +451,11 @@ def audit(
         loads=tuple(loads) or DEFAULT_LOADS,
         table_slots=table_slots,
         growth=tuple(parse_growth(text, growth_start) for text in growth or ("2@0.75",)),
-        tag_bits=parse_tag_bits(tag_bits) if tag_bits else (7, None),
+        tag_bits=parse_tag_bits(tag_bits) if tag_bits else None,
+        shards=tuple(shards),
+        shard_schemes=tuple(shard_schemes) or ("mod",),
+        vnodes=vnodes,
+        shard_weights=_weights(shard_weights),
     )
     result = run_audit(list(sources), plan, _source_options(source_kw), threads=threads, show_keys=show_keys)
     if json_path:
@@ -505,6 +555,15 @@ def plan(
 
         write_text_atomically(json_path, text)
     click.echo(_plan_text(data))
+
+
+def _weights(text: str | None) -> tuple[float, ...]:
+    if not text:
+        return ()
+    try:
+        return tuple(float(w) for w in text.split(","))
+    except ValueError:
+        raise UsageError(f"--shard-weights takes numbers separated by commas, not {text!r}") from None
 
 
 def _measure_keys(sources: tuple[str, ...], hash_name: str, seed: int, source_kw: dict):  # type: ignore[no-untyped-def]

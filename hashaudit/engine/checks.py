@@ -20,6 +20,7 @@ CHECK_GROUPS: dict[str, tuple[str, ...]] = {
     "tables": ("probe_cost",),
     "growth": ("growth_cost", "order_hazard"),
     "tags": ("tag_bits",),
+    "shards": ("shard_balance", "shard_movement", "hot_keys", "load_attribution"),
 }
 DEFAULT_GROUPS: tuple[str, ...] = ("buckets", "bits", "collisions", "avalanche", "neighbours", "tables")
 """Every group but ``seeds``, which rehashes the key sample under several seeds and is asked for explicitly."""

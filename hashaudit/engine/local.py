@@ -26,12 +26,16 @@ from hashaudit.stats.bits import BitCounts
 from hashaudit.stats.buckets import BucketCounts, BucketCountsResult
 from hashaudit.stats.collisions import FullCollisions
 from hashaudit.stats.distinct import BYTES_PER_DISTINCT, DEFAULT_MEMORY_BYTES, DistinctBudgetError, DistinctKeys
+from hashaudit.stats.heavy import HeavyKeys
 from hashaudit.stats.outcome import Effect, FitTest
+from hashaudit.stats.shards import ShardCounts, balance_tests, movement_tests
 from hashaudit.tables.growth import GrowthPolicy, insertion_orders, replay_growth
 from hashaudit.tables.prefix import FirstValues
 from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
+from hashaudit.tables.shards import DEFAULT_VNODES, ShardLayout
 from hashaudit.tables.simulate import DEFAULT_LOADS, TABLE_KINDS, kind_fits, simulate
 from hashaudit.tables.sizes import auto_sizes
+from hashaudit.verdict.attribution import load_findings
 from hashaudit.verdict.findings import Finding, Thresholds, judge, worst_verdict
 from hashaudit.verdict.result import AuditResult, HashAudit, TableSummary
 
@@ -77,8 +81,18 @@ class AuditPlan:
         highest load, at most ``AUTO_TABLE_SLOTS``.
     growth : tuple of GrowthPolicy
         Growth policies replayed by ``growth_cost``; the first also by ``order_hazard``.
-    tag_bits : (int, int or None)
+    tag_bits : (int, int or None) or None
         Tag bits kept beside each slot and the position of the lowest (None: the top bits), for ``tag_bits``.
+        None: seven top bits when the ``tags`` group is asked for alone; left out of a longer list such as
+        ``all`` (a layout is a property of the user's table).
+    shards : tuple of int
+        Shard counts N for the ``shards`` checks (balance, movement, hot keys).
+    shard_schemes : tuple of str
+        ``mod``, ``jump``, ``rendezvous``, ``ring`` (``hashaudit.tables.shards``).
+    vnodes : int
+        Virtual nodes per shard on a ring.
+    shard_weights : tuple of float
+        Capacity weights, one per shard (rendezvous and ring), for every N given.
     """
 
     hashes: tuple[str, ...] = DEFAULT_HASHES
@@ -97,7 +111,11 @@ class AuditPlan:
     loads: tuple[float, ...] = DEFAULT_LOADS
     table_slots: int | None = None
     growth: tuple[GrowthPolicy, ...] = (GrowthPolicy(),)
-    tag_bits: tuple[int, int | None] = (7, None)
+    tag_bits: tuple[int, int | None] | None = None
+    shards: tuple[int, ...] = ()
+    shard_schemes: tuple[str, ...] = ("mod",)
+    vnodes: int = DEFAULT_VNODES
+    shard_weights: tuple[float, ...] = ()
 
     def __post_init__(self) -> None:
         if not self.hashes:
@@ -126,6 +144,20 @@ class AuditPlan:
             raise UsageError("no --table-kind to simulate")
         if not self.growth:
             raise UsageError("no --growth policy to replay")
+        object.__setattr__(self, "shards", tuple(dict.fromkeys(self.shards)))
+        object.__setattr__(self, "shard_schemes", tuple(dict.fromkeys(self.shard_schemes)))
+        if "tags" in self.checks and self.tag_bits is None:
+            if self.checks == ("tags",):
+                object.__setattr__(self, "tag_bits", (7, None))
+            else:
+                object.__setattr__(self, "checks", tuple(g for g in self.checks if g != "tags"))
+        if "shards" in self.checks and not self.shards:
+            if self.checks == ("shards",):
+                raise UsageError("the shard checks need --shards N")
+            object.__setattr__(self, "checks", tuple(g for g in self.checks if g != "shards"))  # e.g. from "all"
+        for n in self.shards:
+            for scheme in self.shard_schemes:
+                ShardLayout(scheme, n, self.shard_weights, self.vnodes)  # raises on a bad combination
         if not self.loads or not all(0 < x < 1 for x in self.loads):
             raise UsageError(
                 f"--load takes load factors between 0 and 1 (exclusive), not {', '.join(map(str, self.loads))}"
@@ -195,6 +227,7 @@ class _HashState:
     bits: BitCounts | None = None
     collisions: FullCollisions | None = None
     first_values: FirstValues | None = None
+    shards: list[ShardCounts] = field(default_factory=list)
 
     def streams(self) -> list[BucketCounts | BitCounts | FullCollisions]:
         """Every accumulator fed with this hash's values."""
@@ -210,7 +243,12 @@ def _new_state(spec: HashSpec, plan: AuditPlan, pairs: list[tuple[str, int]], la
         budget = plan.collision_memory // lanes  # each lane keeps its share in memory, then spills to disk
         collisions = FullCollisions(spec.name, plan.seed, spec.width, budget, plan.spill_dir)
     first_values = FirstValues(plan.simulated_keys()) if plan.simulated_keys() else None
-    return _HashState(spec, tables, bits, collisions, first_values)
+    shards = [
+        ShardCounts(spec.name, spec.width, ShardLayout(scheme, n, plan.shard_weights, plan.vnodes))
+        for n in plan.shards
+        for scheme in plan.shard_schemes
+    ]
+    return _HashState(spec, tables, bits, collisions, first_values, shards if "shards" in plan.checks else [])
 
 
 def audit_batches(
@@ -264,7 +302,7 @@ def audit_batches(
 
         for spec in specs:
             for scheme, m in pairs or [("mask", AUTO_TABLE_SLOTS)]:
-                check_tag_layout(spec.width, scheme, m, *plan.tag_bits)
+                check_tag_layout(spec.width, scheme, m, *(plan.tag_bits or (7, None)))
     # With several hashes, each lane owns some of them; with one, lanes split each batch and own a copy of
     # the tables, merged at the end (merging counts is exact, so the result is bit-identical to one lane).
     # Copies are only made while they are small.
@@ -289,8 +327,13 @@ def audit_batches(
         for state in lane_states[lane]:
             t0 = time.perf_counter()
             values = state.spec.hash_batch(batch, plan.seed if state.spec.seeded else 0)
+            if loading[0]:  # every occurrence, once (in the first pass over the input)
+                for shard_counts in state.shards:
+                    shard_counts.add_load(values)
             if first is not None:
                 values = values[first]
+            for shard_counts in state.shards:
+                shard_counts.update(values)
             for accumulator in state.streams():
                 accumulator.update(values)
             if state.first_values is not None:
@@ -299,6 +342,8 @@ def audit_batches(
                 state.first_values.update(low, offset + where)
             hash_seconds[state.spec.name] += time.perf_counter() - t0
 
+    loading = [True]
+    heavy = HeavyKeys() if "shards" in plan.checks else None
     wants_sample = any(group in plan.checks for group in ("avalanche", "neighbours", "seeds"))
     sample = KeySample(plan.avalanche_keys, plan.seed) if wants_sample else None
     pool = ThreadPoolExecutor(max_workers=lanes - 1, thread_name_prefix="hashaudit-hash") if lanes > 1 else None
@@ -308,6 +353,7 @@ def audit_batches(
         """Feed every batch of ``stream`` to the accumulators (only first occurrences when ``distinct`` is given,
         and among them only the keys of its part); returns the number of keys read."""
         read = 0
+        loading[0] = sampling
         for batch in prefetch(stream) if read_ahead else stream:
             n = len(batch)
             if n == 0:
@@ -322,6 +368,8 @@ def audit_batches(
             sampled = pool.submit(filling.update, batch) if filling is not None and pool is not None else None
             if filling is not None and pool is None:
                 filling.update(batch)
+            if heavy is not None and sampling:
+                heavy.update(batch)
             first = distinct.update(batch) if distinct is not None else None
             if first is not None and first.all():
                 first = None  # nothing to drop: skip the copy
@@ -381,6 +429,8 @@ def audit_batches(
                 hash_seconds = dict.fromkeys(hash_seconds, 0.0)
                 if sample is not None:
                     sample = KeySample(plan.avalanche_keys, plan.seed)
+                if heavy is not None:
+                    heavy = HeavyKeys()
                 stream = reopen()
     finally:
         if pool is not None:
@@ -394,7 +444,7 @@ def audit_batches(
         order = [spec.name for spec in specs]
         states = sorted((st for lane in lane_states for st in lane), key=lambda st: order.index(st.spec.name))
     settings_parts = parts
-    return _conclude(states, plan, total, occurrences, sources, started, hash_seconds, sample, settings_parts)
+    return _conclude(states, plan, total, occurrences, sources, started, hash_seconds, sample, settings_parts, heavy)
 
 
 MAX_PARTS = 1 << 12
@@ -430,7 +480,7 @@ def _table_tests(state: _HashState, plan: AuditPlan) -> list[tuple[str, str | No
 
         positions = [(t.scheme, t.buckets) for t in state.tables] or [(scheme, slots)]
         for where, m in positions:
-            for test in tag_tests(values, width, where, m, *plan.tag_bits):
+            for test in tag_tests(values, width, where, m, *(plan.tag_bits or (7, None))):
                 out.append((name, where, m, len(values), test))
     if "growth" in plan.checks:  # every kept key: growth decides the sizes
         for kind in plan.table_kinds:
@@ -534,6 +584,8 @@ def _merge_lanes(lane_states: list[list[_HashState]]) -> list[_HashState]:
         for mine, theirs in zip(merged, other, strict=True):
             for accumulator, twin in zip(mine.streams(), theirs.streams(), strict=True):
                 accumulator.merge(twin)  # type: ignore[arg-type]
+            for shard_counts, shard_twin in zip(mine.shards, theirs.shards, strict=True):
+                shard_counts.merge(shard_twin)
             if mine.first_values is not None and theirs.first_values is not None:
                 mine.first_values.merge(theirs.first_values)
     return merged
@@ -549,6 +601,7 @@ def _conclude(
     hash_seconds: dict[str, float],
     sample: KeySample | None = None,
     passes: int = 1,
+    heavy: HeavyKeys | None = None,
 ) -> AuditResult:
     from hashaudit.stats.avalanche import avalanche_matrix, avalanche_tests
     from hashaudit.stats.bits import bit_tests
@@ -595,9 +648,15 @@ def _conclude(
                 family.append((state.spec.name, None, None, matrix.keys, test))
         if state.first_values is not None:
             family.extend(_table_tests(state, plan))
+    for state in states:
+        for shard_counts in state.shards:
+            for test in [*balance_tests(shard_counts), *movement_tests(shard_counts)]:
+                family.append((state.spec.name, None, None, int(shard_counts.distinct_.sum()), test))
     findings = judge(family, plan.thresholds)
     if plan.distinct and "collisions" in plan.checks:
         findings += [_duplicate_finding(state.spec.name, total, occurrences) for state in states]
+    if heavy is not None:
+        findings += load_findings(states, heavy, plan.thresholds, plan.seed)
     hash_audits = []
     for state in states:
         own = tuple(f for f in findings if f.hash_name == state.spec.name)

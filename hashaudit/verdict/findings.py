@@ -48,6 +48,10 @@ class Thresholds:
         Probes to build a growing table from keys in some order, over the same in random order.
     tag_match_excess : float
         Relative extra false tag matches per lookup over an ideal hash (0.25 = a quarter more).
+    shard_imbalance : float
+        Hottest shard's distinct keys over its expected maximum under an ideal hash, minus one (0.05 = 5 % over).
+    movement_excess : float
+        Relative extra keys that move when a shard is added, over an ideal hash under the same scheme.
     """
 
     alpha: float = 0.01
@@ -62,6 +66,8 @@ class Thresholds:
     probe_cost_excess: float = 0.1
     order_cost_ratio: float = 4.0
     tag_match_excess: float = 0.25
+    shard_imbalance: float = 0.05
+    movement_excess: float = 0.1
 
     def __post_init__(self) -> None:
         if not 0 < self.alpha < 1:
@@ -110,13 +116,17 @@ class Finding:
     def table(self) -> str:
         """Short label of the table, e.g. ``mask 2^16`` or ``mod 65521`` (``linear mask 2^16`` for a simulated
         table)."""
+        if "shard_scheme" in self.details:
+            return f"{self.details['shard_scheme']} {self.details['shards']} shards"
         label = table_label(self.scheme, self.buckets)
         return f"{self.details['table_kind']} {label}" if "table_kind" in self.details else label
 
     def to_dict(self) -> dict:
         """JSON-able form (the check entry of the report)."""
         where = {} if self.scheme is None else {"scheme": self.scheme, "buckets": self.buckets}
-        where.update({k: self.details[k] for k in ("table_kind", "load") if k in self.details})
+        where.update(
+            {k: self.details[k] for k in ("table_kind", "load", "shards", "shard_scheme") if k in self.details}
+        )
         return {
             "name": self.check,
             **where,
@@ -251,6 +261,20 @@ def _skew_sentence(test: FitTest) -> str:
             f"{_num(d.get('keys_in_collisions', 0))} distinct keys share their full {d.get('width')}-bit value "
             f"({_num(d.get('groups', 0))} groups): {_num(test.observed)} colliding pairs against "
             f"{test.expected:.3g} expected by the birthday bound"
+        )
+    if e.name == "shard_imbalance":
+        d = test.details
+        return (
+            f"{d.get('shard_scheme')} over {d.get('shards')} shards: the hottest shard {d.get('hottest_shard')} holds "
+            f"{_num(d.get('hottest_keys', 0))} distinct keys, {e.observed:.3f}× its share against an expected "
+            f"maximum of {e.ideal:.3f}× for an ideal hash ({_excess(e.value)}; χ² = {_num(test.statistic)} on "
+            f"{_num(test.expected)} df)"
+        )
+    if e.name == "movement_excess":
+        d = test.details
+        return (
+            f"{d.get('shard_scheme')}: going from {d.get('shards')} to {d.get('shards', 0) + 1} shards moves "
+            f"{_pct(e.observed)} of the keys against {_pct(e.ideal)} for an ideal hash under this scheme"
         )
     if e.name == "tag_match_excess":
         d = test.details

@@ -206,7 +206,10 @@ def test_check_groups_select_what_runs():
     everything = ("buckets", "bits", "collisions", "avalanche", "neighbours")
     assert parse_checks(None) == (*everything, "tables")
     assert parse_checks("bit_bias") == ("bits",)
-    assert parse_checks("all") == (*everything, "seeds", "tables", "growth", "tags")
+    assert parse_checks("all") == (*everything, "seeds", "tables", "growth", "tags", "shards")
+    assert "shards" not in AuditPlan(checks=parse_checks("all")).checks  # all, but no --shards: nothing to shard
+    with pytest.raises(UsageError, match="--shards"):
+        AuditPlan(checks=("shards",))
     assert parse_checks("probe_cost") == ("tables",)
     assert parse_checks("neighbour_case") == ("neighbours",)
     assert parse_checks("bit_independence,chi_square") == ("buckets", "avalanche")
