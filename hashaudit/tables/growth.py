@@ -9,8 +9,9 @@ final table: slots, bytes, lookup costs, resizes, keys moved and probes spent.
 (insertions and rehashes). Under linear probing, the order matters a great deal when keys arrive grouped by home
 slot of a table using the same hash: copying one table into another walks the source in slot order, and while the
 target is smaller than the source, successive sweeps of the source's slots land on top of each other in the
-target's first slots and build runs whose cost grows quadratically. Keys sorted by hash value do the same. A
-random order is the reference.
+target's first slots and build runs whose cost grows quadratically. Keys sorted by hash value do the same when
+the table places keys by their top bits (``high``, ``range``); under ``mask`` that order is as good as random. A
+random order is the reference. Such replays can cost billions of probes, so a replay may stop at a probe limit.
 
 Sizes: a factor of 2 from a power-of-two start keeps powers of two (home slots by ``mask``, or the audit's own
 scheme); any other factor rounds each size up to a prime and places keys by ``mod``.
@@ -29,6 +30,7 @@ from hashaudit.tables.schemes import bucket_index, is_power_of_two
 from hashaudit.tables.simulate import ProbeCell, double_steps, insert_keys, measure, new_table
 from hashaudit.tables.sizes import is_prime, prime_above
 
+CHUNK = 4096  # keys inserted between two looks at the probe limit
 SLOT_BYTES = 16  # a hash-table slot holding a pointer to the entry and its stored hash: common practice
 ORDERS = ("source", "random", "iteration_2x", "iteration_1x", "iteration_half", "sorted_by_hash")
 
@@ -100,6 +102,9 @@ class GrowthResult:
         Probes spent inserting the keys, and moving them at rehashes.
     insert_worst : int
         The costliest single insertion (rehash moves included).
+    stopped : bool
+        True when the replay stopped at its probe limit before inserting every key (the probes are then a lower
+        bound of the full replay's).
     moments : list of ProbeCell
         Lookup costs at each worst moment (just before a resize) and in the final table, last.
     """
@@ -115,6 +120,7 @@ class GrowthResult:
     rehash_probes: int
     insert_worst: int
     moments: list[ProbeCell] = field(default_factory=list)
+    stopped: bool = False
 
     def to_dict(self) -> dict:
         """JSON-able form (moments without their region means)."""
@@ -165,6 +171,7 @@ def replay_growth(
     scheme: str = "mask",
     order: np.ndarray | None = None,
     measure_moments: bool = True,
+    probe_limit: int | None = None,
 ) -> GrowthResult:
     """Insert ``values`` (in ``order``, default their own) into a table growing by ``policy``.
 
@@ -182,6 +189,8 @@ def replay_growth(
         A permutation of the values' indices: the order of insertion.
     measure_moments : bool
         Measure lookups at each worst moment (False: only count the work, for order replays).
+    probe_limit : int, optional
+        Stop once insertions and rehashes have spent more probes than this (``stopped`` is then True).
     """
     if kind == "quadratic" and not policy.powers_of_two:
         raise UsageError("quadratic probing needs power-of-two sizes: use a growth factor of 2 from a power of two")
@@ -212,11 +221,16 @@ def replay_growth(
             resizes += 1
             moved += len(walk)
             continue
-        stop = min(n, inserted + room)
+        stop = min(n, inserted + room, inserted + CHUNK if probe_limit is not None else n)
         spent, high = insert_keys(kind, homes, steps, order, inserted, stop, table, cost)
         insert_probes += spent
         worst = max(worst, high)
         inserted = stop
+        if probe_limit is not None and insert_probes + rehash_probes > probe_limit:
+            return GrowthResult(
+                kind, policy.label, inserted, slots, slots * SLOT_BYTES, resizes, moved, insert_probes,
+                rehash_probes, worst, moments, stopped=True,
+            )  # fmt: skip
     if measure_moments:
         moments.append(measure(kind, inserted / slots, homes, table, cost, order[:inserted]))
     return GrowthResult(

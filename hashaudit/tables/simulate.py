@@ -45,6 +45,7 @@ from hashaudit.tables.sizes import is_prime
 TABLE_KINDS = ("chaining", "linear", "quadratic", "double", "robin-hood")
 DEFAULT_LOADS = (0.25, 0.5, 0.75, 0.9, 0.95)
 MISS_STARTS = 1 << 20  # unsuccessful lookups measured from at most this many home slots
+HISTOGRAM_BINS = 1 << 16  # probe counts from here on share the last bin (the mean and maximum stay exact)
 REGIONS = 64  # the table is cut into this many runs of slots, whose mean costs give the sampling error
 
 
@@ -188,22 +189,26 @@ def _robin_hood_hits(homes, slots, hist, regions):  # pragma: no cover - compile
             d = p - homes[resident]
             if d < 0:
                 d += m
-            hist[d + 1] += 1
+            hist[min(d + 1, hist.shape[0] - 1)] += 1
             regions[homes[resident] * regions.shape[0] // m] += d + 1
 
 
 @njit(cache=True, nogil=True)
 def _misses_chaining(lengths, stride, hist, regions):  # pragma: no cover - compiled
+    worst = 0
     m = lengths.shape[0]
     for b in range(0, m, stride):
         c = max(lengths[b], 1)
-        hist[c] += 1
+        hist[min(c, hist.shape[0] - 1)] += 1
+        worst = max(worst, c)
         regions[b * regions.shape[0] // m] += c
+    return worst
 
 
 @njit(cache=True, nogil=True)
 def _misses_linear(slots, stride, hist, regions):  # pragma: no cover - compiled
     """From every ``stride``-th slot: probes to the first empty slot, included (one backward scan)."""
+    worst = 0
     m = slots.shape[0]
     empty = 0
     while slots[empty] >= 0:
@@ -219,12 +224,15 @@ def _misses_linear(slots, stride, hist, regions):  # pragma: no cover - compiled
         else:
             run = 0
         if p % stride == 0:
-            hist[run + 1] += 1
+            hist[min(run + 1, hist.shape[0] - 1)] += 1
+            worst = max(worst, run + 1)
             regions[p * regions.shape[0] // m] += run + 1
+    return worst
 
 
 @njit(cache=True, nogil=True)
 def _misses_robin_hood(homes, slots, stride, hist, regions):  # pragma: no cover - compiled
+    worst = 0
     m = slots.shape[0]
     for s in range(0, m, stride):
         p = s
@@ -244,12 +252,15 @@ def _misses_robin_hood(homes, slots, stride, hist, regions):  # pragma: no cover
                 p = 0
             d += 1
             c += 1
-        hist[c] += 1
+        hist[min(c, hist.shape[0] - 1)] += 1
+        worst = max(worst, c)
         regions[s * regions.shape[0] // m] += c
+    return worst
 
 
 @njit(cache=True, nogil=True)
 def _misses_quadratic(slots, stride, hist, regions):  # pragma: no cover - compiled
+    worst = 0
     m = slots.shape[0]
     mask = m - 1
     for s in range(0, slots.shape[0], stride):
@@ -258,8 +269,10 @@ def _misses_quadratic(slots, stride, hist, regions):  # pragma: no cover - compi
         while slots[p] >= 0:
             p = (p + c) & mask
             c += 1
-        hist[c] += 1
+        hist[min(c, hist.shape[0] - 1)] += 1
+        worst = max(worst, c)
         regions[s * regions.shape[0] // m] += c
+    return worst
 
 
 @njit(cache=True, nogil=True)
@@ -273,6 +286,7 @@ def _splitmix(x):  # pragma: no cover - compiled
 @njit(cache=True, nogil=True)
 def _misses_double(slots, stride, power_of_two, hist, regions):  # pragma: no cover - compiled
     """Absent keys start at every ``stride``-th slot with a step from SplitMix64 of the slot (fixed sequence)."""
+    worst = 0
     m = slots.shape[0]
     for s in range(0, m, stride):
         r = _splitmix(uint64(s))
@@ -287,8 +301,10 @@ def _misses_double(slots, stride, power_of_two, hist, regions):  # pragma: no co
             if p >= m:
                 p -= m
             c += 1
-        hist[c] += 1
+        hist[min(c, hist.shape[0] - 1)] += 1
+        worst = max(worst, c)
         regions[s * regions.shape[0] // m] += c
+    return worst
 
 
 # ------------------------------------------------------------------------------------------------------------
@@ -339,17 +355,14 @@ class ProbeCell:
         return {k: v for k, v in asdict(self).items() if not k.endswith("_regions")}
 
 
-def _summary(hist: np.ndarray) -> tuple[float, float, float]:
-    """Mean, 99th percentile and maximum of a histogram of probe counts (``hist[c]`` lookups cost c probes)."""
-    total = int(hist.sum())
-    if total == 0:
+def _summary(hist: np.ndarray, total: float, worst: float) -> tuple[float, float, float]:
+    """Mean, 99th percentile and maximum of probe counts: ``hist[c]`` lookups cost c probes (the last bin holds
+    every cost from there on), ``total`` is the exact sum of the costs and ``worst`` the exact maximum."""
+    count = int(hist.sum())
+    if count == 0:
         return float("nan"), float("nan"), float("nan")
-    costs = np.arange(len(hist), dtype=np.float64)
-    mean = float((hist * costs).sum() / total)
-    cumulative = np.cumsum(hist)
-    p99 = float(np.searchsorted(cumulative, 0.99 * total))
-    worst = float(np.flatnonzero(hist)[-1])
-    return mean, p99, worst
+    p99 = float(np.searchsorted(np.cumsum(hist), 0.99 * count))
+    return total / count, p99, worst
 
 
 def new_table(kind: str, slots: int) -> np.ndarray:
@@ -407,28 +420,34 @@ def measure(
     stride = max(1, slots // MISS_STARTS)
     region_of_home = homes[present] * REGIONS // slots
     keys_per_region = np.bincount(region_of_home, minlength=REGIONS)
+    bins = min(slots + 2, HISTOGRAM_BINS)
     if kind == "robin-hood":
-        hits = np.zeros(slots + 2, dtype=np.int64)
+        hits = np.zeros(bins, dtype=np.int64)
         hit_sums = np.zeros(REGIONS, dtype=np.int64)
         _robin_hood_hits(homes, table, hits, hit_sums)
     else:
         hits = np.bincount(cost[present])
         hit_sums = np.bincount(region_of_home, weights=cost[present], minlength=REGIONS)
-    misses = np.zeros(slots + 2, dtype=np.int64)
+    misses = np.zeros(bins, dtype=np.int64)
     miss_sums = np.zeros(REGIONS, dtype=np.int64)
     if kind == "chaining":
-        _misses_chaining(table, stride, misses, miss_sums)
+        miss_worst = _misses_chaining(table, stride, misses, miss_sums)
     elif kind == "linear":
-        _misses_linear(table, stride, misses, miss_sums)
+        miss_worst = _misses_linear(table, stride, misses, miss_sums)
     elif kind == "robin-hood":
-        _misses_robin_hood(homes, table, stride, misses, miss_sums)
+        miss_worst = _misses_robin_hood(homes, table, stride, misses, miss_sums)
     elif kind == "quadratic":
-        _misses_quadratic(table, stride, misses, miss_sums)
+        miss_worst = _misses_quadratic(table, stride, misses, miss_sums)
     else:
-        _misses_double(table, stride, is_power_of_two(slots), misses, miss_sums)
+        miss_worst = _misses_double(table, stride, is_power_of_two(slots), misses, miss_sums)
     starts_per_region = np.bincount(np.arange(0, slots, stride) * REGIONS // slots, minlength=REGIONS)
-    hit_mean, hit_p99, hit_max = _summary(hits)
-    miss_mean, miss_p99, miss_max = _summary(misses)
+    if kind == "robin-hood":
+        occupied = np.flatnonzero(table >= 0)
+        hit_worst = float(((occupied - homes[table[occupied]]) % slots).max() + 1) if len(occupied) else 0.0
+    else:
+        hit_worst = float(cost[present].max()) if len(present) else 0.0
+    hit_mean, hit_p99, hit_max = _summary(hits, float(hit_sums.sum()), hit_worst)
+    miss_mean, miss_p99, miss_max = _summary(misses, float(miss_sums.sum()), float(miss_worst))
     with np.errstate(invalid="ignore", divide="ignore"):
         hit_regions = hit_sums / keys_per_region
         miss_regions = miss_sums / starts_per_region

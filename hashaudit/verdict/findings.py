@@ -289,7 +289,8 @@ def _skew_sentence(test: FitTest) -> str:
         worst = ORDER_WORDS.get(d.get("worst_order", ""), d.get("worst_order"))
         return (
             f"building a growing {d.get('table_kind')} table ({d.get('growth')}) from the keys {worst} costs "
-            f"{_num(e.observed)} probes, {_num(e.value)}× a random order — copy tables in random order, size the "
+            f"{'over ' if d.get('worst_order') in d.get('stopped_orders', []) else ''}{_num(e.observed)} probes, "
+            f"{'over ' if d.get('worst_order') in d.get('stopped_orders', []) else ''}{_num(e.value)}× a random order — copy tables in random order, size the "
             "target before filling it, or give each table its own seed"
         )
     if e.name == "probe_cost_excess" and test.name == "growth_cost":
