@@ -55,6 +55,11 @@ def source_options(command):  # type: ignore[no-untyped-def]
 
 _SOURCE_OPTIONS = [
     click.option(
+        "--weight-column",
+        metavar="COLUMN|PATH",
+        help="CSV/TSV column or JSON Lines path of each record's weight (requests, bytes) for the shard loads.",
+    ),
+    click.option(
         "--format",
         "input_format",
         default="auto",
@@ -113,6 +118,7 @@ def _source_options(kw: dict):  # type: ignore[no-untyped-def]
         strip=kw["strip"],
         lowercase=kw["lowercase"],
         pattern=kw["pattern"],
+        weight=kw.get("weight_column"),
     )
 
 

@@ -9,6 +9,10 @@ identifiers of the kinds its systems hash into tables and shards:
 ``dock_codes.txt``        short dock-slot codes, two letters and two digits (``KD07``)
 ``manifests.csv``         manifests: id, depot, handheld serial, route path, weight (composite keys)
 ``scanner_events.jsonl.gz``  scanner events as gzipped JSON Lines with a nested serial and an API path
+``tracking_lookups.csv``  a day of parcel-tracking lookups: parcel id, berth slot, response bytes. One parcel is
+                          hot (a harbour dashboard polls it: 14 % of the lookups, big responses), and berth slots
+                          are numbered by the yard system in steps of 64 (the skew-prone family: ``identity`` +
+                          ``mod`` puts every slot on one shard of 8)
 
 Run ``python sample_keys/generate.py``; the output is byte-identical on every run.
 """
@@ -76,6 +80,22 @@ def scanner_events(rng: np.random.Generator) -> bytes:
     return gzip.compress(text, compresslevel=9, mtime=0)
 
 
+def tracking_lookups(rng: np.random.Generator) -> str:
+    parcels = [f"MF-P-{int(x):07d}" for x in rng.choice(np.arange(1, 10_000_000), size=20_000, replace=False)]
+    hot = parcels[4242]
+    weights = 1.0 / np.arange(1, len(parcels) + 1) ** 0.6  # a mild popularity tail
+    weights /= weights.sum()
+    lines = ["parcel,berth_slot,bytes"]
+    for i in range(80_000):
+        if i % 7 == 3:  # the dashboard's poll: one lookup in seven
+            parcel, size = hot, int(rng.integers(40_000, 60_000))
+        else:
+            parcel, size = parcels[int(rng.choice(len(parcels), p=weights))], int(rng.gamma(3.0, 400.0))
+        berth = 64 * int(rng.integers(1, 40_000))
+        lines.append(f"{parcel},{berth},{size}")
+    return "\n".join(lines) + "\n"
+
+
 def main() -> None:
     rng = np.random.default_rng(SEED)
     (HERE / "orders.txt").write_text("\n".join(orders(rng)) + "\n", encoding="ascii")
@@ -83,6 +103,7 @@ def main() -> None:
     (HERE / "dock_codes.txt").write_text("\n".join(dock_codes()) + "\n", encoding="ascii")
     (HERE / "manifests.csv").write_text(manifests(rng), encoding="ascii")
     (HERE / "scanner_events.jsonl.gz").write_bytes(scanner_events(rng))
+    (HERE / "tracking_lookups.csv").write_text(tracking_lookups(rng), encoding="ascii")
 
 
 if __name__ == "__main__":

@@ -329,7 +329,7 @@ def audit_batches(
             values = state.spec.hash_batch(batch, plan.seed if state.spec.seeded else 0)
             if loading[0]:  # every occurrence, once (in the first pass over the input)
                 for shard_counts in state.shards:
-                    shard_counts.add_load(values)
+                    shard_counts.add_load(values, batch.weights)
             if first is not None:
                 values = values[first]
             for shard_counts in state.shards:
@@ -369,7 +369,7 @@ def audit_batches(
             if filling is not None and pool is None:
                 filling.update(batch)
             if heavy is not None and sampling:
-                heavy.update(batch)
+                heavy.update(batch, batch.weights)
             first = distinct.update(batch) if distinct is not None else None
             if first is not None and first.all():
                 first = None  # nothing to drop: skip the copy

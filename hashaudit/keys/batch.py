@@ -18,16 +18,21 @@ class KeyBatch:
         All key bytes, back to back.
     offsets : numpy.ndarray of int64, length n + 1
         Start of each key in ``data``; ``offsets[0]`` need not be 0 (a slice of a larger buffer).
+    weights : numpy.ndarray of float64, optional
+        A weight per key (requests, bytes) from a source's weight column; None: every key weighs one.
     """
 
     data: np.ndarray
     offsets: np.ndarray
+    weights: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         if self.data.dtype != np.uint8 or self.data.ndim != 1:
             raise TypeError("KeyBatch.data must be a 1-d uint8 array")
         if self.offsets.dtype != np.int64 or self.offsets.ndim != 1 or len(self.offsets) < 1:
             raise TypeError("KeyBatch.offsets must be a 1-d int64 array of length n + 1")
+        if self.weights is not None and (self.weights.dtype != np.float64 or self.weights.shape != (len(self),)):
+            raise TypeError("KeyBatch.weights must be a float64 array with one weight per key")
 
     def __len__(self) -> int:
         return len(self.offsets) - 1
@@ -53,7 +58,8 @@ class KeyBatch:
 
     def slice(self, start: int, stop: int) -> KeyBatch:
         """Keys ``start`` to ``stop`` (zero-copy)."""
-        return KeyBatch(self.data, self.offsets[start : stop + 1])
+        weights = None if self.weights is None else self.weights[start:stop]
+        return KeyBatch(self.data, self.offsets[start : stop + 1], weights)
 
     @classmethod
     def from_keys(cls, keys: Sequence[bytes] | Iterable[bytes]) -> KeyBatch:

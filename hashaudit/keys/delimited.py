@@ -12,6 +12,7 @@ import csv
 import io
 from collections.abc import Iterator
 
+import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.csv as pa_csv
@@ -92,6 +93,17 @@ def resolve_columns(columns: tuple[str, ...], names: list[str], header: bool, na
     return resolved
 
 
+def _weights(column: pa.ChunkedArray, name: str, rows: int, label: str | None) -> np.ndarray:
+    """The weight column as float64: every value present, finite and not negative, else a one-line error."""
+    values = column.to_numpy(zero_copy_only=False)
+    bad = np.flatnonzero(~np.isfinite(values) | (values < 0)) if len(values) else np.zeros(0, np.int64)
+    if len(bad):
+        i = int(bad[0])
+        what = "is empty" if column.null_count and np.isnan(values[i]) else f"is {values[i]!r}"
+        raise InputError(f"{name} row {rows + i + 1}: weight {label!r} {what}; weights are numbers of at least 0")
+    return np.ascontiguousarray(values, dtype=np.float64)
+
+
 def read_delimited(
     stream: Readable, name: str, fmt: str, options: SourceOptions, stats: SourceStats
 ) -> Iterator[RecordBatch]:
@@ -128,14 +140,20 @@ def read_delimited(
         return
     names = first if options.header else [f"f{i}" for i in range(len(first))]
     columns = resolve_columns(options.columns, names, options.header, name)
-    wanted = list(dict.fromkeys(columns))
+    weight = None
+    if options.weight is not None:
+        (weight,) = resolve_columns((options.weight,), names, options.header, name)
+        if weight in columns:
+            raise UsageError(f"--weight-column {options.weight!r} is also a key column")
+    wanted = list(dict.fromkeys(columns + ([weight] if weight else [])))
     reader_options = pa_csv.ReadOptions(block_size=CSV_BLOCK_BYTES, autogenerate_column_names=not options.header)
     parse_options = pa_csv.ParseOptions(
         delimiter=delimiter, quote_char='"' if quoted else False, newlines_in_values=quoted
     )
-    convert_options = pa_csv.ConvertOptions(
-        column_types={c: pa.large_binary() for c in wanted}, include_columns=wanted, strings_can_be_null=False
-    )
+    types = {c: pa.large_binary() for c in columns}
+    if weight is not None:
+        types[weight] = pa.float64()
+    convert_options = pa_csv.ConvertOptions(column_types=types, include_columns=wanted, strings_can_be_null=False)
     separator = pa.scalar(options.join.encode("utf-8"), pa.large_binary())
     rows = 0
     try:
@@ -145,10 +163,12 @@ def read_delimited(
             parts = [p.fill_null(b"") if p.null_count else p for p in parts]
             joined = parts[0] if len(parts) == 1 else pc.binary_join_element_wise(*parts, separator)
             keys = KeyBatch.from_arrow(joined)
+            weights = _weights(table.column(weight), name, rows, options.weight) if weight is not None else None
             stats.records += len(keys)
             for start in range(0, len(keys), options.batch_keys):
                 stop = min(start + options.batch_keys, len(keys))
-                yield RecordBatch(keys.slice(start, stop), rows + start + 1)
+                part = None if weights is None else weights[start:stop]
+                yield RecordBatch(keys.slice(start, stop), rows + start + 1, None, part)
             rows += len(keys)
     except pa.ArrowException as exc:
         detail = " ".join(str(exc).split())

@@ -51,8 +51,22 @@ def _kind(value: Any) -> str:
     return _JSON_KINDS.get(type(value), "a number")
 
 
+def _weight(record: Any, path: list[str], name: str, line_no: int) -> float:
+    """The number at ``path`` of a record, at least 0; a one-line error naming the line otherwise."""
+    value = record
+    for part in path:
+        if not isinstance(value, dict) or part not in value:
+            raise InputError(f"{name} line {line_no}: no weight {'.'.join(path)!r}")
+        value = value[part]
+    if isinstance(value, bool) or not isinstance(value, int | float) or not (0 <= value < float("inf")):
+        raise InputError(
+            f"{name} line {line_no}: weight {'.'.join(path)!r} is {_kind(value)}, not a number of at least 0"
+        )
+    return float(value)
+
+
 def read_jsonl(
-    stream: Readable, name: str, field: str, stats: SourceStats, batch_keys: int = 1 << 20
+    stream: Readable, name: str, field: str, stats: SourceStats, batch_keys: int = 1 << 20, weight: str | None = None
 ) -> Iterator[RecordBatch]:
     """Yield the value at ``field`` (a dotted path) of every record of a JSON Lines stream.
 
@@ -69,6 +83,8 @@ def read_jsonl(
         ``null``.
     batch_keys : int
         Most lines per batch.
+    weight : str, optional
+        Dotted path of each record's weight (a number of at least 0).
 
     Yields
     ------
@@ -81,12 +97,14 @@ def read_jsonl(
         A line that is not JSON, or a record without the field (both naming the line).
     """
     path = split_field_path(field)
+    weight_path = split_field_path(weight) if weight is not None else None
     decode = json.JSONDecoder().raw_decode
     for block in read_lines(stream, name, check_text=True, batch_keys=batch_keys, hint=None):
         # The block is valid UTF-8 (read_lines checked it) and split at LFs: decode it once, not line by line.
         texts = b"\n".join(block.keys.to_list()).decode("utf-8").split("\n")
         keys = []
         records = []
+        weights: list[float] = []
         blank = 0
         for offset, text in enumerate(texts):
             body = text.strip(_JSON_SPACE)
@@ -103,6 +121,7 @@ def read_jsonl(
                 raise InputError(f"{name} line {line_no}: not valid JSON: {exc.msg} (column {exc.colno})") from None
             except (ValueError, RecursionError) as exc:
                 raise InputError(f"{name} line {line_no}: not valid JSON: {exc}") from None
+            record = value
             for depth, part in enumerate(path):
                 if not isinstance(value, dict):
                     where = "the record" if depth == 0 else repr(".".join(path[:depth]))
@@ -117,7 +136,14 @@ def read_jsonl(
                 continue
             keys.append(value_bytes(value))
             records.append(line_no)
+            if weight_path is not None:
+                weights.append(_weight(record, weight_path, name, line_no))
         stats.records += len(texts) - blank
         stats.skip("blank_line", blank)
         if keys:
-            yield RecordBatch(KeyBatch.from_keys(keys), records[0], np.asarray(records, dtype=np.int64))
+            yield RecordBatch(
+                KeyBatch.from_keys(keys),
+                records[0],
+                np.asarray(records, dtype=np.int64),
+                np.asarray(weights, dtype=np.float64) if weight_path is not None else None,
+            )

@@ -45,6 +45,9 @@ class SourceOptions:
         counted and skipped).
     batch_keys : int
         Target number of keys per batch.
+    weight : str or None
+        Delimited files: the column (name or 0-based index) holding each record's weight; JSON Lines: its dotted
+        path. Weights are non-negative numbers (requests, bytes) that the load checks add up.
     """
 
     format: str = "auto"
@@ -61,3 +64,4 @@ class SourceOptions:
     lowercase: bool = False
     pattern: str | None = None
     batch_keys: int = 1 << 20
+    weight: str | None = None

@@ -52,11 +52,14 @@ class RecordBatch:
         1-based number of the record of key 0.
     records : numpy.ndarray of int64 or None
         Record number of every key when they are not ``first_record, first_record + 1, ...``.
+    weights : numpy.ndarray of float64 or None
+        Weight of every key, when the source has a weight column.
     """
 
     keys: KeyBatch
     first_record: int
     records: np.ndarray | None = None
+    weights: np.ndarray | None = None
 
     def record_of(self, index: int) -> int:
         """1-based record number of key ``index``."""
@@ -67,7 +70,8 @@ class RecordBatch:
     def subset(self, keys: KeyBatch, kept: np.ndarray | None) -> RecordBatch:
         """The batch after a step that kept only the keys at positions ``kept`` (None: all of them)."""
         if kept is None:
-            return RecordBatch(keys, self.first_record, self.records)
+            return RecordBatch(keys, self.first_record, self.records, self.weights)
+        weights = None if self.weights is None else self.weights[kept]
         if self.records is None:
-            return RecordBatch(keys, self.first_record, self.first_record + kept.astype(np.int64))
-        return RecordBatch(keys, self.first_record, self.records[kept])
+            return RecordBatch(keys, self.first_record, self.first_record + kept.astype(np.int64), weights)
+        return RecordBatch(keys, self.first_record, self.records[kept], weights)

@@ -45,6 +45,8 @@ def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
             raise InputError(f"{name}: --field is required for JSON Lines (the dotted path of the key, e.g. user.id)")
     elif options.field is not None:
         raise UsageError(f"--field applies to JSON Lines sources, but {name} is read as {fmt} (use --format jsonl)")
+    if options.weight is not None and fmt not in (*_DELIMITED, "jsonl"):
+        raise UsageError(f"--weight-column applies to csv, tsv and JSON Lines sources, but {name} is read as {fmt}")
 
 
 class KeyStream:
@@ -93,6 +95,7 @@ class KeyStream:
             "columns": list(options.columns or ("0",)) if self._format in _DELIMITED else [],
             "join": options.join if len(options.columns) > 1 else None,
             "field": options.field,
+            "weight": options.weight,
             "delimiter": delimiter,
             "header": options.header if self._format in _DELIMITED else None,
             "pattern": options.pattern,
@@ -122,7 +125,7 @@ class KeyStream:
         elif self._format == "jsonl":
             from hashaudit.keys.jsonl import read_jsonl
 
-            yield from read_jsonl(stream, self._name, o.field or "", self.stats, o.batch_keys)
+            yield from read_jsonl(stream, self._name, o.field or "", self.stats, o.batch_keys, o.weight)
         else:
             for records in read_lines(
                 stream, self._name, keep_cr=o.keep_cr, check_text=not o.raw_bytes, batch_keys=o.batch_keys
@@ -143,6 +146,8 @@ class KeyStream:
                     records = normaliser.apply(records, stats, self._locate)
                 stats.bytes_read = opened.bytes_read
                 keys = records.keys
+                if records.weights is not None:
+                    keys = KeyBatch(keys.data, keys.offsets, records.weights)
                 if len(keys):
                     stats.keys += len(keys)
                     stats.empty_keys += int(np.count_nonzero(keys.offsets[1:] == keys.offsets[:-1]))

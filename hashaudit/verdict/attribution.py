@@ -73,7 +73,7 @@ def _findings(hash_name: str, keys: int, a: dict, thresholds: Thresholds) -> lis
     )
     hot_sentence = (
         f"{keys_word} {verb} shard {shard} hot: {100 * points:.1f} of its {100 * excess:.1f} points above a fair share "
-        f"(the heaviest alone {_pct(a['heaviest_key_share'])} of all load) — split or cache those keys; the hash is "
+        f"(the heaviest alone {_pct(a['heaviest_key_share'])} of all load) — split or cache {'that key' if many == 1 else 'those keys'}; the hash is "
         "not to blame"
         if hot
         else f"no few keys explain shard {shard}'s load ({_pct(share)} against a fair {_pct(fair)})"

@@ -369,3 +369,29 @@ def test_plan_command_with_a_source(tmp_path):
     assert code == 2 and "--keys" in err
     code, _, err = run(["plan", "--keys", "100", "--target", "mean-miss=4", "--load", "0.5"])
     assert code == 2 and "not both" in err
+
+
+def test_shards_on_the_sample_lookups_blame_the_hot_parcel_not_the_hash(tmp_path):
+    """The sample tracking lookups: one parcel carries most of the bytes; hot_keys says so, shard_balance passes;
+    the berth slots (steps of 64) fail shard_balance under identity + mod and leave hot_keys quiet."""
+    sample = Path(__file__).resolve().parents[2] / "sample_keys" / "tracking_lookups.csv"
+    report = tmp_path / "shards.json"
+    code, out, err = run(
+        ["audit", str(sample), "-c", "parcel", "--weight-column", "bytes", "--shards", "8", "--shard-scheme", "jump",
+         "-H", "xxh3_64", "--checks", "shards", "--json", str(report)]
+    )  # fmt: skip
+    assert code == 0, err
+    checks = {c["name"]: c for c in json.loads(report.read_text())["hashes"][0]["checks"]}
+    assert checks["hot_keys"]["verdict"] == "info" and checks["shard_balance"]["verdict"] == "pass"
+    assert checks["hot_keys"]["shards"] == 8 and checks["hot_keys"]["shard_scheme"] == "jump"
+    assert checks["load_attribution"]["details"]["load_share"] > 0.8
+    assert "MF-P-" not in out and "MF-P-" not in report.read_text()  # keys stay out of reports
+    code, out, err = run(
+        ["audit", str(sample), "-c", "berth_slot", "--key-format", "int", "-H", "identity", "--shards", "8",
+         "--checks", "shards", "--json", str(report)]
+    )  # fmt: skip
+    assert code == 1
+    checks = {c["name"]: c for c in json.loads(report.read_text())["hashes"][0]["checks"]}
+    assert checks["shard_balance"]["verdict"] == "fail" and checks["hot_keys"]["verdict"] == "pass"
+    code, _, err = run(["audit", str(sample), "-c", "parcel", "--shards", "4", "--shard-weights", "1,x,1,1"])
+    assert code == 2 and "--shard-weights" in err
