@@ -24,7 +24,8 @@ RUNS = {
     "avalanche only": ["--checks", "avalanche"],
     "neighbour families only": ["--checks", "neighbours"],
     "seed sensitivity only": ["--checks", "seeds"],
-    "default (all but seeds)": [],
+    "simulated tables only": ["--checks", "tables"],
+    "default (all but seeds, growth, tags, shards)": [],
 }
 
 
