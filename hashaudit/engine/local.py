@@ -28,7 +28,7 @@ from hashaudit.stats.collisions import FullCollisions
 from hashaudit.stats.distinct import BYTES_PER_DISTINCT, DEFAULT_MEMORY_BYTES, DistinctBudgetError, DistinctKeys
 from hashaudit.stats.heavy import HeavyKeys
 from hashaudit.stats.outcome import Effect, FitTest
-from hashaudit.stats.shards import ShardCounts, balance_tests, movement_tests
+from hashaudit.stats.shards import BucketLoads, ShardCounts, balance_tests, movement_tests
 from hashaudit.tables.growth import GrowthPolicy, insertion_orders, replay_growth
 from hashaudit.tables.prefix import FirstValues
 from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
@@ -228,6 +228,7 @@ class _HashState:
     collisions: FullCollisions | None = None
     first_values: FirstValues | None = None
     shards: list[ShardCounts] = field(default_factory=list)
+    bucket_loads: list[BucketLoads] = field(default_factory=list)
 
     def streams(self) -> list[BucketCounts | BitCounts | FullCollisions]:
         """Every accumulator fed with this hash's values."""
@@ -248,7 +249,8 @@ def _new_state(spec: HashSpec, plan: AuditPlan, pairs: list[tuple[str, int]], la
         for n in plan.shards
         for scheme in plan.shard_schemes
     ]
-    return _HashState(spec, tables, bits, collisions, first_values, shards if "shards" in plan.checks else [])
+    loads = [BucketLoads(scheme, m, spec.width) for scheme, m in pairs] if "shards" in plan.checks else []
+    return _HashState(spec, tables, bits, collisions, first_values, shards if "shards" in plan.checks else [], loads)
 
 
 def audit_batches(
@@ -330,6 +332,8 @@ def audit_batches(
             if loading[0]:  # every occurrence, once (in the first pass over the input)
                 for shard_counts in state.shards:
                     shard_counts.add_load(values, batch.weights)
+                for bucket_load in state.bucket_loads:
+                    bucket_load.add_load(values, batch.weights)
             if first is not None:
                 values = values[first]
             for shard_counts in state.shards:
@@ -593,6 +597,8 @@ def _merge_lanes(lane_states: list[list[_HashState]]) -> list[_HashState]:
                 accumulator.merge(twin)  # type: ignore[arg-type]
             for shard_counts, shard_twin in zip(mine.shards, theirs.shards, strict=True):
                 shard_counts.merge(shard_twin)
+            for bucket_load, load_twin in zip(mine.bucket_loads, theirs.bucket_loads, strict=True):
+                bucket_load.merge(load_twin)
             if mine.first_values is not None and theirs.first_values is not None:
                 mine.first_values.merge(theirs.first_values)
     return merged
@@ -626,7 +632,10 @@ def _conclude(
             result = table.result()
             for test in bucket_tests(result, seed=plan.seed):
                 family.append((state.spec.name, result.scheme, result.buckets, result.keys, test))
-            summaries_by_hash.setdefault(state.spec.name, []).append(_summary(result))
+            loads = next(
+                (b for b in state.bucket_loads if (b.scheme, b.buckets) == (result.scheme, result.buckets)), None
+            )
+            summaries_by_hash.setdefault(state.spec.name, []).append(_summary(result, loads))
         summaries_by_hash.setdefault(state.spec.name, [])
         if state.bits is not None:
             bits_result = state.bits.result()
@@ -736,7 +745,7 @@ def _duplicate_finding(hash_name: str, distinct: int, occurrences: int) -> Findi
     )
 
 
-def _summary(result: BucketCountsResult) -> TableSummary:
+def _summary(result: BucketCountsResult, loads: BucketLoads | None = None) -> TableSummary:
     from hashaudit.stats.fit import occupancy_table
 
     counts = result.counts
@@ -751,6 +760,7 @@ def _summary(result: BucketCountsResult) -> TableSummary:
         result.load_factor,
         occupancy_table(result),
         [(int(b), int(counts[b])) for b in hottest],
+        loads.hottest(HOTTEST_SHOWN) if loads is not None else [],
     )
 
 

@@ -81,6 +81,42 @@ class ShardCounts:
         return self
 
 
+class BucketLoads:
+    """The load (occurrences, or summed weights) per bucket of one table, beside its distinct-key counts.
+
+    Parameters
+    ----------
+    scheme : str
+    buckets : int
+    width : int
+    """
+
+    def __init__(self, scheme: str, buckets: int, width: int) -> None:
+        self.scheme, self.buckets, self.width = scheme, int(buckets), int(width)
+        self.load_ = np.zeros(self.buckets, dtype=np.float64)
+
+    def add_load(self, values: np.ndarray, weights: np.ndarray | None = None) -> BucketLoads:
+        """Add every occurrence's hash value (weighted when ``weights`` is given)."""
+        from hashaudit.tables.schemes import bucket_index
+
+        where = bucket_index(values, self.scheme, self.buckets, self.width)
+        self.load_ += np.bincount(where.astype(np.int64), weights=weights, minlength=self.buckets)
+        return self
+
+    def merge(self, other: BucketLoads) -> BucketLoads:
+        """Add another table's loads (same scheme and size)."""
+        if not isinstance(other, BucketLoads) or (other.scheme, other.buckets) != (self.scheme, self.buckets):
+            raise MergeError("cannot merge bucket loads of another table")
+        self.load_ += other.load_
+        return self
+
+    def hottest(self, top: int) -> list[tuple[int, float, float]]:
+        """The ``top`` buckets by load: (bucket, load, share of all load), heaviest first."""
+        total = float(self.load_.sum())
+        order = np.lexsort((np.arange(self.buckets), -self.load_))[:top]
+        return [(int(b), float(self.load_[b]), float(self.load_[b]) / total if total else 0.0) for b in order]
+
+
 def _expected_max_ratio(shares: np.ndarray, n: int) -> float:
     """Expected max over shards of count / (n · share) for an ideal hash."""
     if np.allclose(shares, shares[0]):

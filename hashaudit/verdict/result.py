@@ -20,6 +20,7 @@ class TableSummary:
     load_factor: float
     occupancy: dict[str, Any]
     hottest_buckets: list[tuple[int, int]]
+    hottest_by_load: list[tuple[int, float, float]] = field(default_factory=list)
 
     def to_dict(self) -> dict:
         """JSON-able form."""
@@ -30,6 +31,11 @@ class TableSummary:
             "load_factor": self.load_factor,
             "occupancy": self.occupancy,
             "hottest_buckets": [{"bucket": b, "keys": c} for b, c in self.hottest_buckets],
+            **(
+                {"hottest_by_load": [{"bucket": b, "load": w, "share": x} for b, w, x in self.hottest_by_load]}
+                if self.hottest_by_load
+                else {}
+            ),
         }
 
 

@@ -135,3 +135,16 @@ def test_shard_results_do_not_depend_on_threads_or_passes():
     key = lambda r: [(f.check, f.table, f.message, f.details.get("total_load")) for f in r.findings]  # noqa: E731
     assert key(one) == key(two) == key(parts)
     assert one.findings[0].details.get("shards") == 16
+
+
+def test_bucket_tables_report_their_heaviest_buckets_by_load():
+    keys = [b"user-%d" % i for i in range(20_000)] + [b"user-5"] * 5_000
+    plan = AuditPlan(hashes=("xxh3_64",), checks=("buckets", "shards"), buckets=(1024,), shards=(4,))
+    result = audit_batches([KeyBatch.from_keys(keys)], plan)
+    table = result.hashes[0].tables[0]
+    bucket, load, share = table.hottest_by_load[0]
+    assert load >= 5_001 and share == pytest.approx(load / 25_000)
+    assert table.hottest_buckets[0][1] < 60  # by distinct keys the same bucket is ordinary
+    from hashaudit.report.json_report import report_dict
+
+    assert report_dict(result)["hashes"][0]["tables"][0]["hottest_by_load"][0]["bucket"] == bucket
