@@ -626,6 +626,7 @@ def _conclude(
     from hashaudit.stats.fit import bucket_tests
 
     family: list[tuple[str, str | None, int | None, int, FitTest]] = []
+    plots: dict[str, dict] = {}
     summaries_by_hash: dict[str, list[TableSummary]] = {}
     for state in states:
         for table in state.tables:
@@ -662,6 +663,11 @@ def _conclude(
             matrix = avalanche_matrix(state.spec, sample, seed=hash_seed, max_bytes=plan.avalanche_bytes)
             for test in avalanche_tests(matrix):
                 family.append((state.spec.name, None, None, matrix.keys, test))
+            plots.setdefault(state.spec.name, {})["avalanche"] = matrix.flip_probability()
+        if sample is not None and len(sample) >= 64:
+            plots.setdefault(state.spec.name, {})["no_collision"] = no_collision_curve(
+                state.spec, sample.keys(), state.tables, plan.seed
+            )
         if state.first_values is not None:
             family.extend(_table_tests(state, plan))
     for state in states:
@@ -709,7 +715,44 @@ def _conclude(
         "passes": passes,  # reads of the input: more than one when the distinct keys outgrew --distinct-memory
         "platform": sys.platform,
     }
-    return AuditResult(overall, total, tuple(hash_audits), tuple(sources), settings, run, occurrences)
+    return AuditResult(overall, total, tuple(hash_audits), tuple(sources), settings, run, occurrences, plots)
+
+
+CURVE_POINTS = 24
+CURVE_DRAWS = 200
+
+
+def no_collision_curve(spec: HashSpec, keys: KeyBatch, tables: list[BucketCounts], seed: int) -> dict:
+    """The observed probability that k keys share no bucket, as k grows, against Q(m, k).
+
+    For the smallest table of the audit (or 2^16 buckets without one), ``CURVE_DRAWS`` random subsets of the key
+    sample (seeded) of each size k on a grid up to three times the birthday threshold √m: the share of subsets
+    with no two keys in one bucket. Simple uniform hashing predicts Q(m, k) (the birthday problem).
+    """
+    from hashaudit.stats.theory import p_no_collision
+    from hashaudit.tables.schemes import bucket_index
+
+    scheme, m = min(((t.scheme, t.buckets) for t in tables), key=lambda p: p[1], default=("mask", 1 << 16))
+    values = spec.hash_batch(keys, seed if spec.seeded else 0)
+    homes = bucket_index(values, scheme, m, spec.width)
+    top = int(min(len(homes), max(8.0, 3 * math.sqrt(m))))
+    sizes = sorted({max(2, int(round(x))) for x in np.linspace(2, top, CURVE_POINTS)})
+    rng = np.random.default_rng([seed, m, 0xC0])
+    observed = []
+    for k in sizes:
+        clear = 0
+        for _ in range(CURVE_DRAWS):
+            pick = homes[rng.choice(len(homes), size=k, replace=False)]
+            clear += len(np.unique(pick)) == k
+        observed.append(clear / CURVE_DRAWS)
+    return {
+        "scheme": scheme,
+        "buckets": m,
+        "keys": sizes,
+        "observed": observed,
+        "theory": [p_no_collision(m, k) for k in sizes],
+        "draws": CURVE_DRAWS,
+    }
 
 
 def _duplicate_finding(hash_name: str, distinct: int, occurrences: int) -> Finding:

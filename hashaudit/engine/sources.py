@@ -91,7 +91,14 @@ def audit(
     )
     described = tuple({**stream.description, "stats": _stats_dict(stream.stats)} for stream in streams)
     final = AuditResult(
-        result.verdict, result.keys, result.hashes, described, result.settings, result.run, result.keys_read
+        result.verdict,
+        result.keys,
+        result.hashes,
+        described,
+        result.settings,
+        result.run,
+        result.keys_read,
+        result.plots,
     )
     if show_keys:
         from hashaudit.engine.showkeys import attach_colliding_keys

@@ -81,6 +81,9 @@ class AuditResult:
     settings: dict
     run: dict = field(default_factory=dict, compare=False)
     keys_read: int = -1
+    plots: dict = field(default_factory=dict, compare=False, repr=False)
+    """Data for figures that the JSON does not carry, by hash name (see ``hashaudit.engine.local``):
+    ``avalanche`` (flip probabilities, input bit × output bit) and ``no_collision`` (the subsample curve)."""
 
     @property
     def repeated_keys(self) -> int:
