@@ -21,8 +21,9 @@ demo: $(STAMP)
 		-H identity -H fibonacci -H murmur3_32 -H xxh3_64 -m 2^12 -m 4093 -s mask -s high -s mod \
 		--json reports/demo-crates.json || test $$? -eq 1
 	$(BIN)/hashaudit audit sample_keys/orders.txt -H poly31 -H djb2 -H fnv1a_32 -H murmur3_32 -H xxh3_64 \
-		--json reports/demo.json || test $$? -eq 1
-	@echo "reports written: reports/demo.json reports/demo-crates.json"
+		--json reports/demo.json --html reports/demo.html --markdown reports/demo.md || test $$? -eq 1
+	$(BIN)/hashaudit gate || test $$? -eq 1
+	@echo "reports written: reports/demo.json reports/demo.html reports/demo.md reports/demo-crates.json"
 
 test: $(STAMP)
 	$(BIN)/python -m pytest -q

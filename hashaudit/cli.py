@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import json
 import os
-import re
 import sys
 import traceback
 
@@ -25,20 +24,12 @@ class TableSize(click.ParamType):
     name = "M"
 
     def convert(self, value, param, ctx):  # type: ignore[no-untyped-def]
-        if isinstance(value, int):
-            return value
-        text = str(value).strip().lower().replace("_", "")
+        from hashaudit.tables.sizes import parse_size
+
         try:
-            if m := re.fullmatch(r"(?:2\^|1<<)(\d{1,4})", text):
-                if int(m.group(1)) > 64:
-                    self.fail(f"{value!r} is far above any table size (at most 2^32)", param, ctx)
-                return 1 << int(m.group(1))
-            if m := re.fullmatch(r"(\d+)([kmg])", text):
-                return int(m.group(1)) << {"k": 10, "m": 20, "g": 30}[m.group(2)]
-            return int(text)
-        except ValueError:
-            pass
-        self.fail(f"{value!r} is not a table size (examples: 65536, 2^16, 64k)", param, ctx)
+            return parse_size(value)
+        except UsageError as exc:
+            self.fail(str(exc), param, ctx)
 
 
 def _debug_requested(argv: list[str] | None = None) -> bool:
@@ -470,6 +461,75 @@ def audit(
         use_colour = sys.stdout.isatty() if color is None else color
         click.echo(render(result, show_all=show_all, colour=use_colour), color=use_colour)
     sys.exit(result.exit_code)
+
+
+@cli.command()
+@click.option("--config", "config_path", metavar="FILE", help="TOML file (default: hashaudit.toml, or pyproject.toml).")
+@click.option("--baseline", metavar="FILE", help="An earlier JSON report: fail on regressions against it.")
+@click.option("--tolerance", type=float, help="How much an effect may grow before it counts as a regression.")
+@click.option("--json", "json_path", metavar="FILE", help="Write the JSON report (with the comparison) to FILE.")
+@click.option("--markdown", "markdown_path", metavar="FILE", help="Write a Markdown summary to FILE ('-': stdout).")
+@click.option("--junit", "junit_path", metavar="FILE", help="Write JUnit XML to FILE, one test case per check.")
+@click.option("--html", "html_path", metavar="FILE", help="Write the HTML report to FILE.")
+@click.option("--threads", type=int, default=0, help="Hashing threads (0: one per core).")
+@click.option("--all", "show_all", is_flag=True, help="List passing checks too.")
+@click.option("--quiet", "-q", is_flag=True, help="Print nothing but errors; the exit code tells the verdict.")
+@click.option("--color/--no-color", default=None, help="Colour the verdicts (default: when on a terminal).")
+@click.option("--debug", is_flag=True, help="Show the traceback of an error.")
+def gate(
+    config_path, baseline, tolerance, json_path, markdown_path, junit_path, html_path, threads, show_all, quiet,
+    color, debug,
+):  # type: ignore[no-untyped-def]  # fmt: skip
+    """Run the audit a TOML file describes and exit 1 when a check fails or a check regressed against --baseline.
+
+    Exit code 0: every check passed and nothing regressed; 1: a check failed or regressed; 2: bad usage or input.
+    """
+    from hashaudit.engine.sources import audit as run_audit
+    from hashaudit.gate import compare, comparison_text, load_config, read_baseline, resolve_output
+    from hashaudit.report.terminal import render
+
+    config = load_config(config_path)
+    outputs = {
+        "json": resolve_output(json_path, config, "json"),
+        "markdown": resolve_output(markdown_path, config, "markdown"),
+        "junit": resolve_output(junit_path, config, "junit"),
+        "html": resolve_output(html_path, config, "html"),
+    }
+    _refuse_overwriting_inputs(list(outputs.values()), tuple(config.sources))
+    base_path = baseline or config.baseline
+    old = read_baseline(base_path) if base_path else None  # read before the audit: a bad baseline fails fast
+    result = run_audit(config.sources, config.plan, config.options, threads=threads)
+    from hashaudit.report.json_report import report_dict, write_text_atomically
+
+    document = report_dict(result)
+    rows = compare(document, old, config.tolerance if tolerance is None else tolerance) if old else None
+    regressed = bool(rows) and any(r["regressed"] for r in rows)
+    if rows is not None:
+        document["baseline"] = {"file": base_path, "regressed": regressed, "checks": rows}
+    if outputs["json"]:
+        write_text_atomically(outputs["json"], json.dumps(document, indent=2, ensure_ascii=False) + "\n")
+    if outputs["markdown"]:
+        from hashaudit.report.markdown import render_markdown
+
+        text = render_markdown(result, comparison=rows)
+        if outputs["markdown"] == "-":
+            click.echo(text, nl=False)
+        else:
+            write_text_atomically(outputs["markdown"], text)
+    if outputs["junit"]:
+        from hashaudit.report.junit import render_junit
+
+        write_text_atomically(outputs["junit"], render_junit(result, comparison=rows))
+    if outputs["html"]:
+        from hashaudit.report.html import write_html
+
+        write_html(result, outputs["html"])
+    if not quiet:
+        use_colour = sys.stdout.isatty() if color is None else color
+        click.echo(render(result, show_all=show_all, colour=use_colour), color=use_colour)
+        if rows is not None:
+            click.echo(comparison_text(rows))
+    sys.exit(EXIT_FAIL if result.exit_code or regressed else EXIT_OK)
 
 
 @cli.command()

@@ -30,7 +30,7 @@ def _as_int(values: np.ndarray, width: int) -> np.ndarray:
 def attach_colliding_keys(
     result: AuditResult,
     sources: Sequence[str | os.PathLike],
-    options: SourceOptions,
+    options: SourceOptions | Sequence[SourceOptions],
     seed: int,
     registry: HashRegistry = REGISTRY,
 ) -> bool:
@@ -52,8 +52,9 @@ def attach_colliding_keys(
                 group["sample_keys"] = None
         return False
     found: dict[str, dict[int, list[bytes]]] = {name: {v: [] for v in targets} for name, (targets, _) in wanted.items()}
-    for source in sources:
-        for batch in open_keys(source, options):
+    per_source = [options] * len(sources) if isinstance(options, SourceOptions) else list(options)
+    for source, source_options in zip(sources, per_source, strict=True):
+        for batch in open_keys(source, source_options):
             for name, (targets, width) in wanted.items():
                 spec = registry.get(name)
                 values = spec.hash_batch(batch, seed if spec.seeded else 0)

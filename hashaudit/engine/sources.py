@@ -18,7 +18,7 @@ from hashaudit.verdict.result import AuditResult
 def audit(
     sources: Sequence[str | os.PathLike],
     plan: AuditPlan | None = None,
-    options: SourceOptions | None = None,
+    options: SourceOptions | Sequence[SourceOptions] | None = None,
     *,
     progress: Callable[[int], None] | None = None,
     threads: int = 0,
@@ -32,8 +32,8 @@ def audit(
         Key files; ``"-"`` reads standard input. Several sources are audited as one key set.
     plan : AuditPlan, optional
         Hash functions, table sizes, schemes, seed and thresholds (defaults when omitted).
-    options : SourceOptions, optional
-        How records become keys.
+    options : SourceOptions or sequence of SourceOptions, optional
+        How records become keys: one for every source, or one per source.
     progress : callable, optional
         Called with the number of keys of each batch.
     threads : int
@@ -47,9 +47,9 @@ def audit(
     AuditResult
     """
     plan = plan or AuditPlan()
-    options = options or SourceOptions()
     if not sources:
         raise UsageError("no source given")
+    per_source = _per_source(options, len(sources))
     keys = None
     if plan.needs_key_count():
         for s in sources:
@@ -59,7 +59,7 @@ def audit(
                     f"reading {what}: give --buckets (table sizes are otherwise derived from the key count, "
                     "which needs a first pass over the input)"
                 )
-    streams = [open_keys(s, options) for s in sources]
+    streams = [open_keys(s, o) for s, o in zip(sources, per_source, strict=True)]
     estimate = _line_estimate(streams)
     batches: Iterator[KeyBatch] = itertools.chain.from_iterable(streams)
     if plan.needs_key_count():
@@ -72,12 +72,12 @@ def audit(
                 keys = estimate(first)
                 batches = itertools.chain([first], batches)
         if keys is None:
-            keys = sum(len(b) for s in sources for b in open_keys(s, options))
+            keys = sum(len(b) for s, o in zip(sources, per_source, strict=True) for b in open_keys(s, o))
 
     readable_again = all(str(s) != "-" and os.path.isfile(s) for s in sources)
 
     def reopen() -> Iterator[KeyBatch]:
-        streams[:] = [open_keys(s, options) for s in sources]  # the report describes the last complete read
+        streams[:] = [open_keys(s, o) for s, o in zip(sources, per_source, strict=True)]  # the last complete read
         return itertools.chain.from_iterable(streams)
 
     result = audit_batches(
@@ -103,8 +103,17 @@ def audit(
     if show_keys:
         from hashaudit.engine.showkeys import attach_colliding_keys
 
-        attach_colliding_keys(final, sources, options, plan.seed)
+        attach_colliding_keys(final, sources, per_source, plan.seed)
     return final
+
+
+def _per_source(options: SourceOptions | Sequence[SourceOptions] | None, count: int) -> list[SourceOptions]:
+    if options is None or isinstance(options, SourceOptions):
+        return [options or SourceOptions()] * count
+    listed = list(options)
+    if len(listed) != count:
+        raise UsageError(f"{len(listed)} source options for {count} sources")
+    return listed
 
 
 EXACT_COUNT_BYTES = 64 << 20  # below this, table sizes come from an exact count (a cheap first pass)

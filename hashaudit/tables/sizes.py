@@ -11,6 +11,26 @@ MAX_AUTO_BUCKETS = 1 << 22  # 32 MiB of counts per table; memory stays flat howe
 MIN_AUTO_BUCKETS = 2
 
 
+def parse_size(value: object) -> int:
+    """A size written ``65536``, ``2^16``, ``1<<16`` or ``64k``/``1m``/``1g`` (binary multiples)."""
+    import re
+
+    from hashaudit.errors import UsageError
+
+    if isinstance(value, int) and not isinstance(value, bool):
+        return value
+    text = str(value).strip().lower().replace("_", "")
+    if m := re.fullmatch(r"(?:2\^|1<<)(\d{1,4})", text):
+        if int(m.group(1)) > 64:
+            raise UsageError(f"{value!r} is far above any table size (at most 2^32)")
+        return 1 << int(m.group(1))
+    if m := re.fullmatch(r"(\d+)([kmg])", text):
+        return int(m.group(1)) << {"k": 10, "m": 20, "g": 30}[m.group(2)]
+    if re.fullmatch(r"\d+", text):
+        return int(text)
+    raise UsageError(f"{value!r} is not a table size (examples: 65536, 2^16, 64k)")
+
+
 def is_prime(n: int) -> bool:
     """Deterministic Miller-Rabin for n < 3.3e24 (bases 2..41; Sorenson & Webster 2015)."""
     if n < 2:
