@@ -178,6 +178,9 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
 )
 @click.option("--seed", type=int, default=0, show_default=True, help="Seed of seeded hashes and simulations.")
 @click.option("--json", "json_path", metavar="FILE", help="Write the JSON report to FILE.")
+@click.option("--html", "html_path", metavar="FILE", help="Write the HTML report (one self-contained file) to FILE.")
+@click.option("--markdown", "markdown_path", metavar="FILE", help="Write a Markdown summary to FILE ('-': stdout).")
+@click.option("--junit", "junit_path", metavar="FILE", help="Write JUnit XML to FILE, one test case per check.")
 @source_options
 @click.option("--alpha", type=float, default=0.01, show_default=True, help="Family-wise error rate (Holm).")
 @click.option(
@@ -363,6 +366,9 @@ def audit(
     spill_dir,
     seed,
     json_path,
+    html_path,
+    markdown_path,
+    junit_path,
     alpha,
     max_cost_excess,
     max_empty_excess,
@@ -411,7 +417,7 @@ def audit(
     from hashaudit.tables.simulate import DEFAULT_LOADS, TABLE_KINDS
     from hashaudit.verdict.findings import Thresholds
 
-    _refuse_overwriting_inputs([json_path], sources)
+    _refuse_overwriting_inputs([json_path, html_path, markdown_path, junit_path], sources)
     thresholds = Thresholds(
         alpha,
         max_cost_excess,
@@ -457,6 +463,7 @@ def audit(
     result = run_audit(list(sources), plan, _source_options(source_kw), threads=threads, show_keys=show_keys)
     if json_path:
         write_json(result, json_path)
+    _write_reports(result, html_path, markdown_path, junit_path, show_keys=show_keys)
     if not quiet:
         use_colour = sys.stdout.isatty() if color is None else color
         click.echo(render(result, show_all=show_all, colour=use_colour), color=use_colour)
@@ -508,22 +515,7 @@ def gate(
         document["baseline"] = {"file": base_path, "regressed": regressed, "checks": rows}
     if outputs["json"]:
         write_text_atomically(outputs["json"], json.dumps(document, indent=2, ensure_ascii=False) + "\n")
-    if outputs["markdown"]:
-        from hashaudit.report.markdown import render_markdown
-
-        text = render_markdown(result, comparison=rows)
-        if outputs["markdown"] == "-":
-            click.echo(text, nl=False)
-        else:
-            write_text_atomically(outputs["markdown"], text)
-    if outputs["junit"]:
-        from hashaudit.report.junit import render_junit
-
-        write_text_atomically(outputs["junit"], render_junit(result, comparison=rows))
-    if outputs["html"]:
-        from hashaudit.report.html import write_html
-
-        write_html(result, outputs["html"])
+    _write_reports(result, outputs["html"], outputs["markdown"], outputs["junit"], comparison=rows)
     if not quiet:
         use_colour = sys.stdout.isatty() if color is None else color
         click.echo(render(result, show_all=show_all, colour=use_colour), color=use_colour)
@@ -621,6 +613,30 @@ def plan(
 
         write_text_atomically(json_path, text)
     click.echo(_plan_text(data))
+
+
+def _write_reports(  # type: ignore[no-untyped-def]
+    result, html_path, markdown_path, junit_path, *, show_keys: bool = False, comparison=None
+) -> None:
+    """The HTML, Markdown and JUnit reports that were asked for."""
+    from hashaudit.report.json_report import write_text_atomically
+
+    if markdown_path:
+        from hashaudit.report.markdown import render_markdown
+
+        text = render_markdown(result, comparison=comparison)
+        if markdown_path == "-":
+            click.echo(text, nl=False)
+        else:
+            write_text_atomically(markdown_path, text)
+    if junit_path:
+        from hashaudit.report.junit import render_junit
+
+        write_text_atomically(junit_path, render_junit(result, comparison=comparison))
+    if html_path:
+        from hashaudit.report.html import write_html
+
+        write_html(result, html_path, show_keys=show_keys)
 
 
 def _weights(text: str | None) -> tuple[float, ...]:
