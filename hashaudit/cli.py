@@ -46,6 +46,13 @@ def source_options(command):  # type: ignore[no-untyped-def]
 
 _SOURCE_OPTIONS = [
     click.option(
+        "--integers",
+        type=click.Choice(["le64", "decimal"]),
+        default="le64",
+        show_default=True,
+        help="Parquet/Arrow integer key columns: hashed as 8-byte little-endian words, or as decimal text.",
+    ),
+    click.option(
         "--weight-column",
         metavar="COLUMN|PATH",
         help="CSV/TSV column or JSON Lines path of each record's weight (requests, bytes) for the shard loads.",
@@ -55,7 +62,7 @@ _SOURCE_OPTIONS = [
         "input_format",
         default="auto",
         show_default=True,
-        type=click.Choice(["auto", "lines", "csv", "tsv", "jsonl"]),
+        type=click.Choice(["auto", "lines", "csv", "tsv", "jsonl", "parquet", "arrow"]),
         help="Input format (auto: by suffix).",
     ),
     click.option(
@@ -110,6 +117,7 @@ def _source_options(kw: dict):  # type: ignore[no-untyped-def]
         lowercase=kw["lowercase"],
         pattern=kw["pattern"],
         weight=kw.get("weight_column"),
+        integers=kw.get("integers") or "le64",
     )
 
 

@@ -5,7 +5,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 KEY_FORMATS = ("bytes", "hex", "base64", "int")
-SOURCE_FORMATS = ("auto", "lines", "csv", "tsv", "jsonl")
+SOURCE_FORMATS = ("auto", "lines", "csv", "tsv", "jsonl", "parquet", "arrow")
+INTEGER_FORMATS = ("le64", "decimal")
 
 
 @dataclass(frozen=True)
@@ -45,8 +46,11 @@ class SourceOptions:
         counted and skipped).
     batch_keys : int
         Target number of keys per batch.
+    integers : {"le64", "decimal"}
+        Parquet and Arrow integer key columns: hashed as 8-byte little-endian words (``le64``, what an
+        integer-keyed table hashes) or as decimal text.
     weight : str or None
-        Delimited files: the column (name or 0-based index) holding each record's weight; JSON Lines: its dotted
+        Delimited and columnar files: the column (name or 0-based index) holding each record's weight; JSON Lines: its dotted
         path. Weights are non-negative numbers (requests, bytes) that the load checks add up.
     """
 
@@ -65,3 +69,4 @@ class SourceOptions:
     pattern: str | None = None
     batch_keys: int = 1 << 20
     weight: str | None = None
+    integers: str = "le64"

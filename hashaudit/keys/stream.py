@@ -21,10 +21,11 @@ from hashaudit.keys.open import (
     open_source,
     source_size,
 )
-from hashaudit.keys.options import SOURCE_FORMATS, SourceOptions
+from hashaudit.keys.options import INTEGER_FORMATS, SOURCE_FORMATS, SourceOptions
 from hashaudit.keys.records import RecordBatch, SourceStats
 
 _DELIMITED = ("csv", "tsv")
+_COLUMNAR = ("parquet", "arrow")
 _DEFAULT_OPTIONS = SourceOptions()
 
 
@@ -32,11 +33,11 @@ def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
     """Refuse options that cannot work, or that the chosen format would silently ignore."""
     if not isinstance(options.batch_keys, int) or options.batch_keys < 1:
         raise UsageError(f"batch_keys must be a positive integer, not {options.batch_keys!r}")
-    if fmt not in _DELIMITED:
+    if fmt not in (*_DELIMITED, *_COLUMNAR):
         if options.columns:
             raise UsageError(
-                f"--column {', '.join(options.columns)} applies to csv and tsv sources, but {name} is read as "
-                f"{fmt} (use --format csv or --format tsv)"
+                f"--column {', '.join(options.columns)} applies to csv, tsv, parquet and arrow sources, but {name} is "
+                f"read as {fmt} (use --format csv or --format tsv)"
             )
         if options.delimiter is not None:
             raise UsageError(f"--delimiter applies to csv and tsv sources, but {name} is read as {fmt}")
@@ -45,8 +46,14 @@ def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
             raise InputError(f"{name}: --field is required for JSON Lines (the dotted path of the key, e.g. user.id)")
     elif options.field is not None:
         raise UsageError(f"--field applies to JSON Lines sources, but {name} is read as {fmt} (use --format jsonl)")
-    if options.weight is not None and fmt not in (*_DELIMITED, "jsonl"):
-        raise UsageError(f"--weight-column applies to csv, tsv and JSON Lines sources, but {name} is read as {fmt}")
+    if options.weight is not None and fmt not in (*_DELIMITED, *_COLUMNAR, "jsonl"):
+        raise UsageError(
+            f"--weight-column applies to csv, tsv, JSON Lines, parquet and arrow sources, but {name} is read as {fmt}"
+        )
+    if fmt in _COLUMNAR and name == "standard input":
+        raise UsageError(f"{fmt} files are read from a file, not standard input")
+    if options.integers not in INTEGER_FORMATS:
+        raise UsageError(f"--integers takes {' or '.join(INTEGER_FORMATS)}, not {options.integers!r}")
 
 
 class KeyStream:
@@ -92,10 +99,11 @@ class KeyStream:
             "format": self._format,
             "compression": compression_for(path),
             "key_format": options.key_format,
-            "columns": list(options.columns or ("0",)) if self._format in _DELIMITED else [],
+            "columns": list(options.columns or ("0",)) if self._format in (*_DELIMITED, *_COLUMNAR) else [],
             "join": options.join if len(options.columns) > 1 else None,
             "field": options.field,
             "weight": options.weight,
+            "integers": options.integers if self._format in _COLUMNAR else None,
             "delimiter": delimiter,
             "header": options.header if self._format in _DELIMITED else None,
             "pattern": options.pattern,
@@ -134,27 +142,37 @@ class KeyStream:
                 yield records
 
     def _locate(self, record: int) -> str:
-        return f"{self._name} {'row' if self._format in _DELIMITED else 'line'} {record}"
+        return f"{self._name} {'row' if self._format in (*_DELIMITED, *_COLUMNAR) else 'line'} {record}"
 
     def _batches(self) -> Iterator[KeyBatch]:
+        if self._format in _COLUMNAR:
+            from hashaudit.keys.columnar import read_columnar
+
+            yield from self._keys(read_columnar(self._source, self._format, self._options, self.stats), None)
+        else:
+            with open_source(self._source) as opened:
+                self.description["compression"] = opened.compression
+                yield from self._keys(self._records(opened.stream), opened)
+                self.stats.bytes_read = opened.bytes_read
+        if self.stats.keys == 0:
+            raise InputError(self._no_keys_message())
+
+    def _keys(self, batches: Iterator[RecordBatch], opened: Any) -> Iterator[KeyBatch]:
+        """Normalised keys of record batches, counted (``opened``: the byte stream, for progress)."""
         stats = self.stats
         normaliser = None if self._normaliser.is_identity else self._normaliser
-        with open_source(self._source) as opened:
-            self.description["compression"] = opened.compression
-            for records in self._records(opened.stream):
-                if normaliser is not None:
-                    records = normaliser.apply(records, stats, self._locate)
+        for records in batches:
+            if normaliser is not None:
+                records = normaliser.apply(records, stats, self._locate)
+            if opened is not None:
                 stats.bytes_read = opened.bytes_read
-                keys = records.keys
-                if records.weights is not None:
-                    keys = KeyBatch(keys.data, keys.offsets, records.weights)
-                if len(keys):
-                    stats.keys += len(keys)
-                    stats.empty_keys += int(np.count_nonzero(keys.offsets[1:] == keys.offsets[:-1]))
-                    yield keys
-            stats.bytes_read = opened.bytes_read
-        if stats.keys == 0:
-            raise InputError(self._no_keys_message())
+            keys = records.keys
+            if records.weights is not None:
+                keys = KeyBatch(keys.data, keys.offsets, records.weights)
+            if len(keys):
+                stats.keys += len(keys)
+                stats.empty_keys += int(np.count_nonzero(keys.offsets[1:] == keys.offsets[:-1]))
+                yield keys
 
     def _no_keys_message(self) -> str:
         stats = self.stats

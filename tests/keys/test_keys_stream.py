@@ -66,6 +66,7 @@ def test_description_is_json_and_complete(tmp_path):
         "join": "|",
         "field": None,
         "weight": None,
+        "integers": None,
         "delimiter": ",",
         "header": True,
         "pattern": None,

@@ -1,0 +1,137 @@
+"""Keys from columnar files: Parquet and Arrow IPC (file or stream format), batch by batch with pyarrow.
+
+A key column of strings or binary goes to the hash as its bytes without a copy (Arrow's binary layout is
+``KeyBatch``'s). An integer column is hashed as 8-byte little-endian words by default — what an integer-keyed table
+hashes — or as decimal text with ``integers="decimal"``. Other types (dates, floats, decimals…) are hashed as the
+text pyarrow casts them to. Several columns make a composite key, joined with ``join``. A record with a null in any
+key column is counted (``null``) and skipped; a null weight is an error.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from hashaudit.errors import InputError, UsageError
+from hashaudit.keys.batch import KeyBatch
+from hashaudit.keys.options import SourceOptions
+from hashaudit.keys.records import RecordBatch, SourceStats
+
+COLUMNAR_SUFFIXES = {".parquet": "parquet", ".pq": "parquet", ".arrow": "arrow", ".feather": "arrow", ".ipc": "arrow"}
+
+
+def _open_batches(path: str, fmt: str, columns: list[str], batch_keys: int) -> tuple[pa.Schema, Iterator]:
+    """The file's schema and an iterator of its record batches (only ``columns`` for Parquet)."""
+    try:
+        if fmt == "parquet":
+            import pyarrow.parquet as pq
+
+            parquet = pq.ParquetFile(path)
+            schema = parquet.schema_arrow
+            _resolve(columns, schema, path)  # name the missing column before reading
+            return schema, parquet.iter_batches(batch_size=batch_keys, columns=_resolve(columns, schema, path))
+        source = pa.memory_map(path)
+        try:
+            reader = pa.ipc.open_file(source)
+            return reader.schema, (reader.get_batch(i) for i in range(reader.num_record_batches))
+        except pa.ArrowInvalid:
+            source = pa.memory_map(path)
+            stream = pa.ipc.open_stream(source)
+            return stream.schema, iter(stream)
+    except (pa.ArrowException, OSError) as exc:
+        raise InputError(f"{path}: cannot read as {fmt}: {' '.join(str(exc).split())}") from None
+
+
+def _resolve(columns: list[str], schema: pa.Schema, path: str) -> list[str]:
+    """Column names from names or 0-based indices; a one-line error lists the columns the file has."""
+    names = schema.names
+    out = []
+    for column in columns:
+        if column in names:
+            out.append(column)
+        elif column.isdigit() and int(column) < len(names):
+            out.append(names[int(column)])
+        else:
+            listed = ", ".join(names[:20]) + (" …" if len(names) > 20 else "")
+            raise UsageError(f"{path}: no column {column!r} (it has: {listed})")
+    return out
+
+
+def _as_binary(array: pa.Array, integers: str) -> pa.Array:
+    """One key column as ``large_binary``: bytes as they are, integers as 8-byte little-endian or decimal text."""
+    kind = array.type
+    if pa.types.is_large_binary(kind):
+        return array
+    if pa.types.is_binary(kind) or pa.types.is_string(kind) or pa.types.is_fixed_size_binary(kind):
+        return array.cast(pa.large_binary())
+    if pa.types.is_large_string(kind):
+        return array.view(pa.large_binary())
+    if pa.types.is_dictionary(kind):
+        return _as_binary(array.cast(kind.value_type), integers)
+    if pa.types.is_integer(kind) and integers == "le64":
+        values = array.fill_null(0).to_numpy(zero_copy_only=False).astype("<i8", copy=False)
+        words = np.ascontiguousarray(values).view(np.uint8)
+        offsets = np.arange(0, 8 * len(values) + 1, 8, dtype=np.int64)
+        return pa.LargeBinaryArray.from_buffers(
+            pa.large_binary(), len(values), [None, pa.py_buffer(offsets), pa.py_buffer(words)]
+        )
+    return array.cast(pa.large_string()).view(pa.large_binary())
+
+
+def read_columnar(path: str, fmt: str, options: SourceOptions, stats: SourceStats) -> Iterator[RecordBatch]:
+    """Yield the key column(s) of a Parquet or Arrow IPC file.
+
+    Parameters
+    ----------
+    path : str
+        A file (memory-mapped for Arrow IPC; Parquet reads row groups as it goes).
+    fmt : {"parquet", "arrow"}
+    options : SourceOptions
+        Uses ``columns`` (default: the first column), ``join``, ``integers``, ``weight`` and ``batch_keys``.
+    stats : SourceStats
+        ``records`` counts rows; rows with a null key are skipped as ``null``.
+    """
+    wanted = list(options.columns or ("0",))
+    schema, batches = _open_batches(
+        path, fmt, wanted + ([options.weight] if options.weight else []), options.batch_keys
+    )
+    columns = _resolve(wanted, schema, path)
+    weight = _resolve([options.weight], schema, path)[0] if options.weight else None
+    if weight is not None and weight in columns:
+        raise UsageError(f"--weight-column {options.weight!r} is also a key column")
+    separator = pa.scalar(options.join.encode("utf-8"), pa.large_binary())
+    rows = 0
+    try:
+        for batch in batches:
+            parts = [_as_binary(batch.column(batch.schema.get_field_index(c)), options.integers) for c in columns]
+            valid = None
+            for part in parts:
+                if part.null_count:
+                    mask = part.is_valid()
+                    valid = mask if valid is None else pc.and_(valid, mask)
+            joined = parts[0] if len(parts) == 1 else pc.binary_join_element_wise(*parts, separator)
+            weights = None
+            if weight is not None:
+                column = batch.column(batch.schema.get_field_index(weight))
+                if column.null_count or not pa.types.is_integer(column.type) and not pa.types.is_floating(column.type):
+                    raise InputError(f"{path}: weight column {weight!r} must be numbers without nulls")
+                weights = column.to_numpy(zero_copy_only=False).astype(np.float64)
+                if len(weights) and (weights.min() < 0 or not np.isfinite(weights).all()):
+                    raise InputError(f"{path}: weight column {weight!r} holds a negative or infinite value")
+            numbers = None
+            if valid is not None:
+                keep = np.asarray(valid.to_numpy(zero_copy_only=False), dtype=bool)
+                stats.skip("null", int((~keep).sum()))
+                joined = joined.filter(valid)
+                numbers = rows + 1 + np.flatnonzero(keep).astype(np.int64)
+                weights = None if weights is None else weights[keep]
+            stats.records += batch.num_rows
+            if len(joined):
+                keys = KeyBatch.from_arrow(joined)
+                yield RecordBatch(keys, int(numbers[0]) if numbers is not None else rows + 1, numbers, weights)
+            rows += batch.num_rows
+    except pa.ArrowException as exc:
+        raise InputError(f"{path}: {' '.join(str(exc).split())} (after row {rows})") from None
