@@ -1,1 +1,1 @@
-"""Renderers: turn an ``AuditResult`` into JSON or a terminal table. They compute nothing."""
+"""Renderers: turn an ``AuditResult`` into JSON, a terminal table, Markdown, JUnit XML or HTML. They compute nothing."""
