@@ -46,6 +46,22 @@ def source_options(command):  # type: ignore[no-untyped-def]
 
 _SOURCE_OPTIONS = [
     click.option(
+        "--query",
+        metavar="SQL",
+        help="Database sources (an SQLite file or a URL such as postgresql://…): the SELECT whose first column, or "
+        "--column, holds the keys.",
+    ),
+    click.option(
+        "--db-table", metavar="TABLE", help="Database sources: read --column from TABLE (instead of --query)."
+    ),
+    click.option(
+        "--db-driver",
+        type=click.Choice(["auto", "adbc", "sqlalchemy"]),
+        default="auto",
+        show_default=True,
+        help="PostgreSQL: the Arrow-native ADBC driver when installed, or SQLAlchemy with psycopg.",
+    ),
+    click.option(
         "--integers",
         type=click.Choice(["le64", "decimal"]),
         default="le64",
@@ -118,6 +134,9 @@ def _source_options(kw: dict):  # type: ignore[no-untyped-def]
         pattern=kw["pattern"],
         weight=kw.get("weight_column"),
         integers=kw.get("integers") or "le64",
+        query=kw.get("query"),
+        table=kw.get("db_table"),
+        driver=kw.get("db_driver") or "auto",
     )
 
 
@@ -131,7 +150,14 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
 
 
 @cli.command()
-@click.argument("sources", nargs=-1, required=True, metavar="SOURCE...")
+@click.argument("sources", nargs=-1, metavar="SOURCE...")
+@click.option(
+    "--db",
+    "databases",
+    multiple=True,
+    metavar="URL",
+    help="A database to read keys from (repeatable): an SQLite file or a URL; with --query or --db-table.",
+)
 @click.option(
     "--hash",
     "-H",
@@ -364,6 +390,7 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
 @click.option("--debug", is_flag=True, help="Show the traceback of an error.")
 def audit(
     sources,
+    databases,
     hashes,
     buckets,
     schemes,
@@ -425,6 +452,9 @@ def audit(
     from hashaudit.tables.simulate import DEFAULT_LOADS, TABLE_KINDS
     from hashaudit.verdict.findings import Thresholds
 
+    sources = (*sources, *databases)
+    if not sources:
+        raise UsageError("give a SOURCE (a key file, - for standard input) or --db URL")
     _refuse_overwriting_inputs([json_path, html_path, markdown_path, junit_path], sources)
     thresholds = Thresholds(
         alpha,

@@ -5,7 +5,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 KEY_FORMATS = ("bytes", "hex", "base64", "int")
-SOURCE_FORMATS = ("auto", "lines", "csv", "tsv", "jsonl", "parquet", "arrow")
+SOURCE_FORMATS = ("auto", "lines", "csv", "tsv", "jsonl", "parquet", "arrow", "sql")
+DRIVERS = ("auto", "adbc", "sqlalchemy")
 INTEGER_FORMATS = ("le64", "decimal")
 
 
@@ -49,6 +50,12 @@ class SourceOptions:
     integers : {"le64", "decimal"}
         Parquet and Arrow integer key columns: hashed as 8-byte little-endian words (``le64``, what an
         integer-keyed table hashes) or as decimal text.
+    query : str or None
+        Database sources: the SELECT whose first column (or ``columns``) holds the keys.
+    table : str or None
+        Database sources: a table to read ``columns`` from instead of a query.
+    driver : {"auto", "adbc", "sqlalchemy"}
+        PostgreSQL: the Arrow-native ADBC driver when installed (``auto``), or SQLAlchemy with psycopg.
     weight : str or None
         Delimited and columnar files: the column (name or 0-based index) holding each record's weight; JSON Lines: its dotted
         path. Weights are non-negative numbers (requests, bytes) that the load checks add up.
@@ -70,3 +77,6 @@ class SourceOptions:
     batch_keys: int = 1 << 20
     weight: str | None = None
     integers: str = "le64"
+    query: str | None = None
+    table: str | None = None
+    driver: str = "auto"

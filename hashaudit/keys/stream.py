@@ -21,7 +21,7 @@ from hashaudit.keys.open import (
     open_source,
     source_size,
 )
-from hashaudit.keys.options import INTEGER_FORMATS, SOURCE_FORMATS, SourceOptions
+from hashaudit.keys.options import DRIVERS, INTEGER_FORMATS, SOURCE_FORMATS, SourceOptions
 from hashaudit.keys.records import RecordBatch, SourceStats
 
 _DELIMITED = ("csv", "tsv")
@@ -33,7 +33,11 @@ def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
     """Refuse options that cannot work, or that the chosen format would silently ignore."""
     if not isinstance(options.batch_keys, int) or options.batch_keys < 1:
         raise UsageError(f"batch_keys must be a positive integer, not {options.batch_keys!r}")
-    if fmt not in (*_DELIMITED, *_COLUMNAR):
+    if (options.query or options.table) and fmt != "sql":
+        raise UsageError(f"--query and --db-table apply to database sources, but {name} is read as {fmt}")
+    if options.driver not in DRIVERS:
+        raise UsageError(f"--db-driver takes {', '.join(DRIVERS)}, not {options.driver!r}")
+    if fmt not in (*_DELIMITED, *_COLUMNAR, "sql"):
         if options.columns:
             raise UsageError(
                 f"--column {', '.join(options.columns)} applies to csv, tsv, parquet and arrow sources, but {name} is "
@@ -46,7 +50,7 @@ def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
             raise InputError(f"{name}: --field is required for JSON Lines (the dotted path of the key, e.g. user.id)")
     elif options.field is not None:
         raise UsageError(f"--field applies to JSON Lines sources, but {name} is read as {fmt} (use --format jsonl)")
-    if options.weight is not None and fmt not in (*_DELIMITED, *_COLUMNAR, "jsonl"):
+    if options.weight is not None and fmt not in (*_DELIMITED, *_COLUMNAR, "jsonl", "sql"):
         raise UsageError(
             f"--weight-column applies to csv, tsv, JSON Lines, parquet and arrow sources, but {name} is read as {fmt}"
         )
@@ -74,12 +78,17 @@ class KeyStream:
     """
 
     def __init__(self, source: str | os.PathLike[str], options: SourceOptions = _DEFAULT_OPTIONS) -> None:
+        from hashaudit.keys.sql import is_database, mask_url
+
         path = os.fsdecode(os.fspath(source))
         self._source = path
-        self._name = display_name(path)
+        self._name = mask_url(display_name(path))
         if options.format not in SOURCE_FORMATS:
             raise UsageError(f"unknown source format {options.format!r}; choose one of {', '.join(SOURCE_FORMATS)}")
-        self._format = format_for(path) if options.format == "auto" else options.format
+        if options.format == "auto":
+            self._format = "sql" if is_database(path) or options.query or options.table else format_for(path)
+        else:
+            self._format = options.format
         _check_options(options, self._format, self._name)
         self._options = options
         self._normaliser = Normaliser(options)
@@ -92,18 +101,19 @@ class KeyStream:
             from hashaudit.keys.jsonl import split_field_path
 
             split_field_path(options.field or "")
-        self.size_bytes = source_size(path)
+        remote = self._format == "sql" and "://" in path
+        self.size_bytes = None if remote else source_size(path)
         self.stats = SourceStats()
         self.description: dict[str, Any] = {
-            "source": path if path != STDIN else "-",
+            "source": self._name if path != STDIN else "-",
             "format": self._format,
             "compression": compression_for(path),
             "key_format": options.key_format,
-            "columns": list(options.columns or ("0",)) if self._format in (*_DELIMITED, *_COLUMNAR) else [],
+            "columns": list(options.columns or ("0",)) if self._format in (*_DELIMITED, *_COLUMNAR, "sql") else [],
             "join": options.join if len(options.columns) > 1 else None,
             "field": options.field,
             "weight": options.weight,
-            "integers": options.integers if self._format in _COLUMNAR else None,
+            "integers": options.integers if self._format in (*_COLUMNAR, "sql") else None,
             "delimiter": delimiter,
             "header": options.header if self._format in _DELIMITED else None,
             "pattern": options.pattern,
@@ -113,6 +123,11 @@ class KeyStream:
             "keep_cr": options.keep_cr,
             "raw_bytes": options.raw_bytes,
         }
+        if self._format == "sql":
+            from hashaudit.keys.sql import build_query
+
+            self.description["query"] = build_query(options, self._name)
+            self.description["compression"] = None
         self._used = False
 
     def __repr__(self) -> str:
@@ -142,13 +157,17 @@ class KeyStream:
                 yield records
 
     def _locate(self, record: int) -> str:
-        return f"{self._name} {'row' if self._format in (*_DELIMITED, *_COLUMNAR) else 'line'} {record}"
+        return f"{self._name} {'row' if self._format in (*_DELIMITED, *_COLUMNAR, 'sql') else 'line'} {record}"
 
     def _batches(self) -> Iterator[KeyBatch]:
         if self._format in _COLUMNAR:
             from hashaudit.keys.columnar import read_columnar
 
             yield from self._keys(read_columnar(self._source, self._format, self._options, self.stats), None)
+        elif self._format == "sql":
+            from hashaudit.keys.sql import read_database
+
+            yield from self._keys(read_database(self._source, self._options, self.stats), None)
         else:
             with open_source(self._source) as opened:
                 self.description["compression"] = opened.compression
