@@ -498,7 +498,14 @@ def audit(
         vnodes=vnodes,
         shard_weights=_weights(shard_weights),
     )
-    result = run_audit(list(sources), plan, _source_options(source_kw), threads=threads, show_keys=show_keys)
+    progress = _progress(quiet)
+    try:
+        result = run_audit(
+            list(sources), plan, _source_options(source_kw), threads=threads, show_keys=show_keys, progress=progress
+        )
+    finally:
+        if progress is not None:
+            progress.close()
     if json_path:
         write_json(result, json_path)
     _write_reports(result, html_path, markdown_path, junit_path, show_keys=show_keys)
@@ -543,7 +550,12 @@ def gate(
     _refuse_overwriting_inputs(list(outputs.values()), tuple(config.sources))
     base_path = baseline or config.baseline
     old = read_baseline(base_path) if base_path else None  # read before the audit: a bad baseline fails fast
-    result = run_audit(config.sources, config.plan, config.options, threads=threads)
+    progress = _progress(quiet)
+    try:
+        result = run_audit(config.sources, config.plan, config.options, threads=threads, progress=progress)
+    finally:
+        if progress is not None:
+            progress.close()
     from hashaudit.report.json_report import report_dict, write_text_atomically
 
     document = report_dict(result)
@@ -651,6 +663,15 @@ def plan(
 
         write_text_atomically(json_path, text)
     click.echo(_plan_text(data))
+
+
+def _progress(quiet: bool):  # type: ignore[no-untyped-def]
+    """A progress line on standard error when it is a terminal (and not --quiet)."""
+    if quiet or not sys.stderr.isatty():
+        return None
+    from hashaudit.report.progress import ProgressLine
+
+    return ProgressLine()
 
 
 def _write_reports(  # type: ignore[no-untyped-def]

@@ -60,6 +60,9 @@ def audit(
                     "which needs a first pass over the input)"
                 )
     streams = [open_keys(s, o) for s, o in zip(sources, per_source, strict=True)]
+    attach = getattr(progress, "attach", None)
+    if attach is not None:
+        attach(streams)
     estimate = _line_estimate(streams)
     batches: Iterator[KeyBatch] = itertools.chain.from_iterable(streams)
     if plan.needs_key_count():
