@@ -372,7 +372,7 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
 @click.option(
     "--distinct-memory",
     type=TableSize(),
-    default="4g",
+    default="640m",
     show_default=True,
     metavar="BYTES",
     help="Memory budget of the distinct-key fingerprint store (about 20 bytes per distinct key).",

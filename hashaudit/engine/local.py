@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 import importlib
+import itertools
 import math
 import os
 import platform
@@ -405,6 +406,15 @@ def audit_batches(
     # up over the passes, so the result is the same as in one pass.
     parts = 1
     stream: Iterable[KeyBatch] = batches
+    if plan.distinct and reopen is not None and (keys is not None or key_estimate is not None):
+        # an input that plainly cannot fit is split from the start, rather than after a wasted partial read
+        iterator = iter(batches)
+        head = next(iterator, None)
+        if head is not None:
+            estimated[0] = keys if keys is not None else key_estimate(head) if key_estimate else None
+            stream = itertools.chain([head], iterator)
+            if estimated[0]:
+                parts = _parts_for(estimated[0], plan.distinct_memory)
     try:
         while True:
             distinct_total = 0
@@ -537,12 +547,18 @@ def order_hazard(
     return test
 
 
+def _parts_for(keys: int, budget: int) -> int:
+    """Parts (a power of two) so that ``keys`` distinct keys fit ``budget`` bytes, with a tenth to spare."""
+    need = keys * BYTES_PER_DISTINCT * 1.1 / budget
+    return 1 if need <= 1 else min(MAX_PARTS, 1 << math.ceil(math.log2(need)))
+
+
 def _more_parts(full: DistinctBudgetError, estimate: int | None, budget: int) -> int:
     """By how much to multiply the number of parts after ``full``: enough for the distinct keys projected from the
     share of the input read so far (with a quarter to spare), and at least twice as many."""
     factor = 2
     if estimate and full.keys_seen:
-        projected = full.distinct * max(1.0, estimate / full.keys_seen) * BYTES_PER_DISTINCT * 1.25
+        projected = full.distinct * max(1.0, estimate / full.keys_seen) * BYTES_PER_DISTINCT * 1.1
         factor = max(2, 1 << max(0, math.ceil(projected / budget) - 1).bit_length())
     return factor
 

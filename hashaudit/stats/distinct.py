@@ -31,7 +31,7 @@ from hashaudit.errors import MergeError, UsageError
 from hashaudit.keys.batch import KeyBatch
 
 FINGERPRINT_SEED = 0x5EED_D157
-DEFAULT_MEMORY_BYTES = 4 << 30
+DEFAULT_MEMORY_BYTES = 640 << 20  # 30 M distinct keys in one read; more are read in parts
 _MIN_SLOTS = 1 << 16
 _MAX_LOAD = 4 / 5
 BYTES_PER_DISTINCT = 16 / _MAX_LOAD  # at the largest load, after which the table grows
