@@ -13,6 +13,8 @@ identifiers of the kinds its systems hash into tables and shards:
                           hot (a harbour dashboard polls it: 14 % of the lookups, big responses), and berth slots
                           are numbered by the yard system in steps of 64 (the skew-prone family: ``identity`` +
                           ``mod`` puts every slot on one shard of 8)
+``tracking_lookups.sqlite`` and ``tracking_lookups.parquet``  the same lookups as an SQLite table ``lookups`` and as
+                          a Parquet file (berth slots as 64-bit integers), for the database and columnar sources
 
 Run ``python sample_keys/generate.py``; the output is byte-identical on every run.
 """
@@ -96,6 +98,30 @@ def tracking_lookups(rng: np.random.Generator) -> str:
     return "\n".join(lines) + "\n"
 
 
+def lookups_as_tables(csv_text: str) -> None:
+    """The tracking lookups as an SQLite database and a Parquet file (the same rows)."""
+    import sqlite3
+
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    rows = [line.split(",") for line in csv_text.splitlines()[1:]]
+    database = HERE / "tracking_lookups.sqlite"
+    database.unlink(missing_ok=True)
+    with sqlite3.connect(database) as db:
+        db.execute("CREATE TABLE lookups (parcel TEXT NOT NULL, berth_slot INTEGER NOT NULL, bytes INTEGER NOT NULL)")
+        db.executemany("INSERT INTO lookups VALUES (?, ?, ?)", [(p, int(b), int(n)) for p, b, n in rows])
+    db.close()
+    table = pa.table(
+        {
+            "parcel": pa.array([r[0] for r in rows], pa.string()),
+            "berth_slot": pa.array([int(r[1]) for r in rows], pa.int64()),
+            "bytes": pa.array([int(r[2]) for r in rows], pa.int64()),
+        }
+    )
+    pq.write_table(table, HERE / "tracking_lookups.parquet", row_group_size=20_000)
+
+
 def main() -> None:
     rng = np.random.default_rng(SEED)
     (HERE / "orders.txt").write_text("\n".join(orders(rng)) + "\n", encoding="ascii")
@@ -103,7 +129,9 @@ def main() -> None:
     (HERE / "dock_codes.txt").write_text("\n".join(dock_codes()) + "\n", encoding="ascii")
     (HERE / "manifests.csv").write_text(manifests(rng), encoding="ascii")
     (HERE / "scanner_events.jsonl.gz").write_bytes(scanner_events(rng))
-    (HERE / "tracking_lookups.csv").write_text(tracking_lookups(rng), encoding="ascii")
+    lookups = tracking_lookups(rng)
+    (HERE / "tracking_lookups.csv").write_text(lookups, encoding="ascii")
+    lookups_as_tables(lookups)
 
 
 if __name__ == "__main__":

@@ -156,7 +156,8 @@ def _read_sqlite(path: str, query: str, options: SourceOptions, stats: SourceSta
     if not os.path.isfile(path):
         raise InputError(f"{path}: no such SQLite file")
     try:
-        connection = sqlite3.connect(f"file:{os.path.abspath(path)}?mode=ro", uri=True)
+        # one thread at a time, but maybe not the one that opened it (the reading thread takes over the stream)
+        connection = sqlite3.connect(f"file:{os.path.abspath(path)}?mode=ro", uri=True, check_same_thread=False)
     except sqlite3.Error as exc:
         raise InputError(f"{path}: cannot open: {exc}") from None
     try:

@@ -36,10 +36,11 @@ class ProgressLine:
     def fraction(self) -> float | None:
         """Share of the input read, when every source's size is known."""
         sizes = [getattr(s, "size_bytes", None) for s in self._streams]
-        if not sizes or any(size is None or size <= 0 for size in sizes):
+        known = [int(size) for size in sizes if size is not None and size > 0]
+        if not sizes or len(known) < len(sizes):
             return None
         done = sum(s.stats.bytes_read for s in self._streams)
-        return min(1.0, done / sum(sizes))
+        return min(1.0, done / sum(known))
 
     def __call__(self, keys: int) -> None:
         self.keys += keys
