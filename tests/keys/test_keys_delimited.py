@@ -146,6 +146,8 @@ def test_bom_is_not_part_of_the_first_name(tmp_path):
 def test_columns_need_a_delimited_format(tmp_path):
     path = tmp_path / "keys.txt"
     path.write_bytes(b"a\n")
-    with pytest.raises(UsageError, match=r"--column a applies to csv, tsv, parquet and arrow sources, .* \(use --format csv"):
+    with pytest.raises(
+        UsageError, match=r"--column a applies to csv, tsv, parquet and arrow sources, .* \(use --format csv"
+    ):
         open_keys(path, SourceOptions(columns=("a",)))
     assert read_all(path, format="csv", header=False) == [b"a"]
