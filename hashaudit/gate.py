@@ -54,6 +54,10 @@ SOURCE_KEYS = {
     "lowercase": bool,
     "pattern": str,
     "weight": str,
+    "integers": str,
+    "query": str,
+    "table": str,
+    "driver": str,
 }
 TOP_KEYS = {
     "seed": int,
@@ -179,7 +183,8 @@ def load_config(explicit: str | None) -> GateConfig:
         if "path" not in entry:
             raise UsageError(f"{path}: a [[sources]] entry has no path")
         raw = entry["path"]
-        sources.append(raw if raw == "-" else str(here / raw))
+        remote = "://" in raw  # a database URL is not a path
+        sources.append(raw if raw == "-" or remote else str(here / raw))
         settings = {k: v for k, v in entry.items() if k != "path"}
         if "columns" in settings:
             settings["columns"] = tuple(str(c) for c in settings["columns"])

@@ -85,3 +85,18 @@ def test_a_regression_against_the_baseline_fails_even_when_every_check_passes(tm
     assert rows[0]["regressed"] and rows[0]["check"] == "chi_square" and rows[0]["new_verdict"] == "pass"
     code, _, err = run(["gate", "--config", str(config), "--baseline", str(tmp_path / "missing.json")])
     assert code == 2 and "no such file" in err
+
+
+def test_a_database_source_in_the_file(tmp_path):
+    config = write_config(
+        tmp_path,
+        'hashes = ["xxh3_64"]\nchecks = ["shards"]\nshards = [8]\n[[sources]]\n'
+        f'path = "{ROOT / "sample_keys" / "tracking_lookups.sqlite"}"\n'
+        'query = "SELECT parcel, bytes FROM lookups"\nweight = "bytes"\n',
+    )
+    code, out, err = run(["gate", "--config", str(config), "--json", str(tmp_path / "r.json")])
+    assert code == 0, err
+    doc = json.loads((tmp_path / "r.json").read_text())
+    assert doc["sources"][0]["query"] == "SELECT parcel, bytes FROM lookups"
+    hot = next(c for c in doc["hashes"][0]["checks"] if c["name"] == "hot_keys")
+    assert hot["verdict"] == "info"

@@ -142,3 +142,38 @@ def test_postgres_reads_keys_weights_and_refuses_writes(postgres, driver):
     assert len(_keys(postgres, query="SELECT id FROM parcels", driver=driver)[0]) == 20_000  # nothing deleted
     with pytest.raises(InputError, match="parcelz"):
         _keys(postgres, query="SELECT id FROM parcelz", driver=driver)
+
+
+_STREAM_SCRIPT = """
+import resource, sys
+from hashaudit.keys import open_keys
+from hashaudit.keys.options import SourceOptions
+url, limit, driver = sys.argv[1], int(sys.argv[2]), sys.argv[3]
+base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+query = f"SELECT id FROM big LIMIT {limit}"
+keys = sum(len(b) for b in open_keys(url, SourceOptions(query=query, driver=driver, batch_keys=50_000)))
+print(keys, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss - base)
+"""
+
+
+@pytest.mark.parametrize("driver", ["sqlalchemy", "adbc"])
+def test_reading_a_big_table_keeps_memory_flat(postgres, driver):
+    """A server-side cursor read with Result.yield_per (SQLAlchemy ignores the yield_per option for text()
+    queries), or ADBC's Arrow batches: reading 1.2 M rows costs about the memory of reading 0.2 M (a fetch of every
+    row at once would hold the whole result: over 100 MB of Python rows)."""
+    pytest.importorskip("sqlalchemy")
+    if driver == "adbc":
+        pytest.importorskip("adbc_driver_postgresql")
+    import psycopg
+
+    with psycopg.connect(postgres, autocommit=True) as conn:
+        conn.execute("CREATE TABLE IF NOT EXISTS big AS SELECT 'key-' || g AS id FROM generate_series(1, 1200000) g")
+    growth = {}
+    for rows in (200_000, 1_200_000):
+        out = subprocess.run(
+            [os.sys.executable, "-c", _STREAM_SCRIPT, postgres, str(rows), driver],
+            capture_output=True, text=True, check=True,
+        ).stdout.split()  # fmt: skip
+        assert int(out[0]) == rows
+        growth[rows] = int(out[1]) / 1024  # MiB above the import baseline
+    assert growth[1_200_000] - growth[200_000] < 40, growth
