@@ -11,7 +11,7 @@ $(BIN)/python:
 	$(BIN)/python -m pip install --quiet --upgrade pip
 
 $(STAMP): $(BIN)/python pyproject.toml
-	$(BIN)/python -m pip install --quiet -e ".[test,dev,sql]"
+	$(BIN)/python -m pip install --quiet -e ".[test,dev,sql,dask]"
 	@touch $(STAMP)
 
 # Audit the bundled sample keys; exit code 1 (a check failed) is an expected outcome of the demo.

@@ -378,6 +378,15 @@ def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ..
     help="Memory budget of the distinct-key fingerprint store (about 20 bytes per distinct key).",
 )
 @click.option(
+    "--engine",
+    type=click.Choice(["local", "dask"]),
+    default="local",
+    show_default=True,
+    help="local: this machine's cores; dask: a Dask cluster (--scheduler ADDRESS, or a local one of --workers).",
+)
+@click.option("--scheduler", metavar="ADDRESS", help="Dask scheduler address (tcp://host:8786) for --engine dask.")
+@click.option("--workers", type=int, default=2, show_default=True, help="Workers of a local Dask cluster.")
+@click.option(
     "--threads",
     type=int,
     default=0,
@@ -429,6 +438,9 @@ def audit(
     show_keys,
     all_keys,
     distinct_memory,
+    engine,
+    scheduler,
+    workers,
     threads,
     show_all,
     quiet,
@@ -498,14 +510,21 @@ def audit(
         vnodes=vnodes,
         shard_weights=_weights(shard_weights),
     )
-    progress = _progress(quiet)
-    try:
-        result = run_audit(
-            list(sources), plan, _source_options(source_kw), threads=threads, show_keys=show_keys, progress=progress
-        )
-    finally:
-        if progress is not None:
-            progress.close()
+    if engine == "dask":
+        from hashaudit.engine.distributed import audit_dask
+
+        if show_keys:
+            raise UsageError("--show-keys reads the input again on this machine; use the local engine")
+        result = audit_dask(list(sources), plan, _source_options(source_kw), scheduler=scheduler, workers=workers)
+    else:
+        progress = _progress(quiet)
+        try:
+            result = run_audit(
+                list(sources), plan, _source_options(source_kw), threads=threads, show_keys=show_keys, progress=progress
+            )
+        finally:
+            if progress is not None:
+                progress.close()
     if json_path:
         write_json(result, json_path)
     _write_reports(result, html_path, markdown_path, junit_path, show_keys=show_keys)

@@ -1,0 +1,329 @@
+"""The Dask engine: the same audit on a cluster, for inputs that outgrow one machine.
+
+The input is cut into partitions that workers read themselves: byte ranges of plain key files split on line
+boundaries (a line belongs to the range where it starts), and whole files for the other formats. Three stages:
+
+1. **Read and hash** (one task per partition): keys, their 128-bit fingerprints and every audited hash value, each
+   row tagged with its stream position (partition, index). Occurrence loads, the heavy-key summary and the key
+   sample are counted here, on every occurrence. Rows are routed by the top bits of their fingerprint into
+   ``prefix_parts`` groups.
+2. **Tell repeats apart** (one task per fingerprint prefix): a group's rows from every partition, sorted by
+   fingerprint and position; the first occurrence of each key is kept and fed to the same accumulators the local
+   engine uses (bucket counts, output bits, full-width collisions, the first values of the simulated tables, shard
+   counts). A key and its repeats share a fingerprint, so they always meet in one group.
+3. **Merge**: partial states are merged pairwise in a tree (not all on one worker), and the client concludes with
+   the local engine's own tests of fit — so the JSON report is the local engine's, apart from run metadata.
+
+Where a check needs one machine: the full-width collision values of each hash (8 bytes per distinct key; 16 for
+128-bit functions) and the values kept for the simulated tables (at most ``AUTO_TABLE_SLOTS`` or
+``--table-slots``) are merged on the client. Stage 2 holds one prefix group's rows at a time: with ``prefix_parts``
+groups, about 16 + 8·h bytes × distinct keys / ``prefix_parts`` for h hash functions.
+"""
+
+from __future__ import annotations
+
+import io
+import os
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from hashaudit.engine.local import AuditPlan, _conclude, _HashState, _new_state
+from hashaudit.errors import UsageError
+from hashaudit.hashes.registry import REGISTRY
+from hashaudit.keys.options import SourceOptions
+from hashaudit.keys.records import SourceStats
+from hashaudit.verdict.result import AuditResult
+
+PARTITION_BYTES = 64 << 20
+POSITION_SHIFT = 40  # a row's stream position: partition << 40 | index (up to 10^12 keys per partition)
+
+
+@dataclass
+class _Partition:
+    index: int
+    source: str
+    options: SourceOptions
+    start: int | None = None
+    end: int | None = None
+
+
+@dataclass
+class _Partial:
+    """A mergeable piece of an audit: accumulators per hash, and the counts of the keys seen."""
+
+    states: list[_HashState]
+    sample: Any = None
+    heavy: Any = None
+    occurrences: int = 0
+    distinct: int = 0
+    stats: dict[int, SourceStats] = field(default_factory=dict)
+
+
+def plan_partitions(sources: Sequence[str], options: Sequence[SourceOptions], partition_bytes: int) -> list[_Partition]:
+    """Byte ranges of plain key files, whole files otherwise, in stream order."""
+    from hashaudit.keys.open import compression_for, format_for
+
+    parts: list[_Partition] = []
+    for source, opts in zip(sources, options, strict=True):
+        if source == "-":
+            raise UsageError("the dask engine reads files that every worker can open, not standard input")
+        plain = (opts.format in ("auto", "lines") and format_for(source) == "lines" and not compression_for(source)
+                 and "://" not in source)  # fmt: skip
+        size = os.path.getsize(source) if plain and os.path.isfile(source) else None
+        if not plain or size is None:
+            parts.append(_Partition(len(parts), source, opts))
+            continue
+        for start in range(0, max(size, 1), partition_bytes):
+            parts.append(_Partition(len(parts), source, opts, start, min(size, start + partition_bytes)))
+    return parts
+
+
+def _range_bytes(path: str, start: int, end: int) -> bytes:
+    """The lines that start in [start, end) of a file."""
+    with open(path, "rb") as f:
+        if start > 0:
+            f.seek(start - 1)
+            if f.read(1) != b"\n":
+                f.readline()  # the line under way belongs to the previous range
+        begin = f.tell()
+        if begin >= end:
+            return b""
+        data = f.read(end - begin)
+        if data and not data.endswith(b"\n"):
+            data += f.readline()
+        return data
+
+
+def _partition_batches(part: _Partition, stats: SourceStats):  # type: ignore[no-untyped-def]
+    """The key batches of one partition, normalised as the local reader does."""
+    from hashaudit.keys import open_keys
+    from hashaudit.keys.encode import Normaliser
+    from hashaudit.keys.lines import read_lines
+
+    if part.start is None:
+        stream = open_keys(part.source, part.options)
+        yield from stream
+        stats.records, stats.keys, stats.empty_keys = stream.stats.records, stream.stats.keys, stream.stats.empty_keys
+        stats.skipped, stats.bytes_read = dict(stream.stats.skipped), stream.stats.bytes_read
+        return
+    data = _range_bytes(part.source, part.start, part.end or 0)
+    stats.bytes_read = (part.end or 0) - part.start
+    o = part.options
+    normaliser = Normaliser(o)
+    for records in read_lines(io.BytesIO(data), part.source, keep_cr=o.keep_cr, check_text=not o.raw_bytes,
+                              batch_keys=o.batch_keys):  # fmt: skip
+        stats.records += len(records.keys)
+        if not normaliser.is_identity:
+            records = normaliser.apply(records, stats, lambda r: f"{part.source} line {r} of a partition")
+        keys = records.keys
+        if len(keys):
+            stats.keys += len(keys)
+            stats.empty_keys += int(np.count_nonzero(keys.offsets[1:] == keys.offsets[:-1]))
+            yield keys
+
+
+def _stage_read(part: _Partition, plan: AuditPlan, pairs: list, bits: int) -> tuple[list, _Partial]:
+    """Stage 1: rows routed by fingerprint prefix, and the occurrence-level accumulators of this partition."""
+    from hashaudit.hashes.murmur import murmur3_128
+    from hashaudit.stats.avalanche import KeySample
+    from hashaudit.stats.distinct import FINGERPRINT_SEED
+    from hashaudit.stats.heavy import HeavyKeys
+
+    specs = [REGISTRY.get(name) for name in plan.hashes]
+    loads = [_new_state(spec, plan, pairs, 1) for spec in specs]
+    wants_sample = any(group in plan.checks for group in ("avalanche", "neighbours", "seeds"))
+    sample = KeySample(plan.avalanche_keys, plan.seed) if wants_sample else None
+    heavy = HeavyKeys() if "shards" in plan.checks else None
+    stats = SourceStats()
+    chunks: list[tuple] = []
+    index = 0
+    for batch in _partition_batches(part, stats):
+        prints = murmur3_128(batch, FINGERPRINT_SEED)
+        values = [spec.hash_batch(batch, plan.seed if spec.seeded else 0) for spec in specs]
+        for state, v in zip(loads, values, strict=True):
+            for counts in state.shards:
+                counts.add_load(v, batch.weights)
+            for bucket_load in state.bucket_loads:
+                bucket_load.add_load(v, batch.weights)
+        if sample is not None:
+            sample.update(batch)
+        if heavy is not None:
+            heavy.update(batch, batch.weights)
+        positions = (np.int64(part.index) << np.int64(POSITION_SHIFT)) + np.arange(index, index + len(batch))
+        chunks.append((prints, positions, values))
+        index += len(batch)
+    routes: list[list[tuple]] = [[] for _ in range(1 << bits)]
+    for prints, positions, values in chunks:
+        group = (prints[:, 1] >> np.uint64(64 - bits)).astype(np.int64) if bits else np.zeros(len(prints), np.int64)
+        order = np.argsort(group, kind="stable")
+        bounds = np.searchsorted(group[order], np.arange((1 << bits) + 1))
+        for g in range(1 << bits):
+            pick = order[bounds[g] : bounds[g + 1]]
+            if len(pick):
+                routes[g].append((prints[pick], positions[pick], [v[pick] for v in values]))
+    for state in loads:  # only the loads count here: the distinct-key accumulators are stage 2's
+        state.tables, state.bits, state.collisions, state.first_values = [], None, None, None
+        for counts in state.shards:
+            counts.distinct_[:] = 0
+    return routes, _Partial(loads, sample, heavy, index, 0, {part.index: stats})
+
+
+def _route(result: tuple[list, _Partial], group: int) -> list[tuple]:
+    return result[0][group]
+
+
+def _partial_of(result: tuple[list, _Partial]) -> _Partial:
+    return result[1]
+
+
+def _stage_distinct(routed: list[list[tuple]], plan: AuditPlan, pairs: list) -> _Partial:
+    """Stage 2: the first occurrence of every key of one fingerprint group, fed to the accumulators."""
+    specs = [REGISTRY.get(name) for name in plan.hashes]
+    states = [_new_state(spec, plan, pairs, 1) for spec in specs]
+    pieces = [piece for rows in routed for piece in rows]
+    if not pieces:
+        return _Partial(_loads_free(states), distinct=0)
+    prints = np.concatenate([p[0] for p in pieces])
+    positions = np.concatenate([p[1] for p in pieces])
+    order = np.lexsort((positions, prints[:, 0], prints[:, 1]))
+    ordered = prints[order]
+    first = np.ones(len(order), dtype=bool)
+    first[1:] = np.any(ordered[1:] != ordered[:-1], axis=1)
+    keep = np.sort(order[first])  # stream order: the accumulators see keys as the local engine does
+    for h, state in enumerate(states):
+        values = np.concatenate([p[2][h] for p in pieces])[keep]
+        for accumulator in state.streams():
+            accumulator.update(values)
+        for counts in state.shards:
+            counts.update(values)
+        if state.first_values is not None:
+            low = values[:, 0] if values.ndim == 2 else values
+            state.first_values.update(low, positions[keep])
+    return _Partial(_loads_free(states), distinct=int(first.sum()))
+
+
+def _loads_free(states: list[_HashState]) -> list[_HashState]:
+    for state in states:
+        state.bucket_loads = []  # loads are counted on occurrences in stage 1
+    return states
+
+
+def _merge(a: _Partial, b: _Partial) -> _Partial:
+    """Merge two partial audits (associative and commutative, like every accumulator)."""
+    for mine, theirs in zip(a.states, b.states, strict=True):
+        for table, table_twin in zip(mine.tables, theirs.tables, strict=False):
+            table.merge(table_twin)
+        if not mine.tables and theirs.tables:
+            mine.tables = theirs.tables
+        for name in ("bits", "collisions", "first_values"):
+            own, other = getattr(mine, name), getattr(theirs, name)
+            if own is None:
+                setattr(mine, name, other)
+            elif other is not None:
+                own.merge(other)
+        for counts, counts_twin in zip(mine.shards, theirs.shards, strict=True):
+            counts.merge(counts_twin)
+        if not mine.bucket_loads:
+            mine.bucket_loads = theirs.bucket_loads
+        elif theirs.bucket_loads:
+            for load, load_twin in zip(mine.bucket_loads, theirs.bucket_loads, strict=True):
+                load.merge(load_twin)
+    if a.sample is None:
+        a.sample = b.sample
+    elif b.sample is not None:
+        a.sample.merge(b.sample)
+    if a.heavy is None:
+        a.heavy = b.heavy
+    elif b.heavy is not None:
+        a.heavy.merge(b.heavy)
+    a.occurrences += b.occurrences
+    a.distinct += b.distinct
+    a.stats.update(b.stats)
+    return a
+
+
+def _tree_merge(client: Any, futures: list) -> Any:
+    while len(futures) > 1:
+        paired = [client.submit(_merge, futures[i], futures[i + 1]) for i in range(0, len(futures) - 1, 2)]
+        futures = paired + ([futures[-1]] if len(futures) % 2 else [])
+    return futures[0]
+
+
+def audit_dask(
+    sources: Sequence[str],
+    plan: AuditPlan | None = None,
+    options: SourceOptions | Sequence[SourceOptions] | None = None,
+    *,
+    scheduler: str | None = None,
+    workers: int = 2,
+    partition_bytes: int = PARTITION_BYTES,
+    prefix_bits: int = 4,
+) -> AuditResult:
+    """Audit ``sources`` on a Dask cluster (``scheduler``: its address; None starts a local cluster of ``workers``
+    processes). Same plan, same result as :func:`hashaudit.engine.sources.audit` (see the module notes)."""
+    from distributed import Client, LocalCluster
+
+    from hashaudit.engine.sources import _per_source
+    from hashaudit.keys import open_keys
+
+    plan = plan or AuditPlan()
+    if not sources:
+        raise UsageError("no source given")
+    per_source = _per_source(options, len(sources))
+    if not plan.distinct:
+        raise UsageError("the dask engine tells distinct keys apart; --all-keys runs on the local engine")
+    started = time.perf_counter()
+    parts = plan_partitions(list(sources), per_source, partition_bytes)
+    descriptions = [open_keys(s, o).description for s, o in zip(sources, per_source, strict=True)]
+    cluster = None if scheduler else LocalCluster(n_workers=workers, threads_per_worker=1, processes=True)
+    client = Client(scheduler or cluster)
+    try:
+        pairs_for_loads = plan.tables(None) if not plan.needs_key_count() else []
+        first = [client.submit(_stage_read, part, plan, pairs_for_loads, prefix_bits, pure=False) for part in parts]
+        occurrences = sum(client.gather([client.submit(lambda r: r[1].occurrences, f) for f in first]))
+        if occurrences == 0:
+            raise UsageError("no keys to audit")
+        # automatic sizes follow the key count, known only now: loads per bucket are then not counted
+        pairs = plan.tables(occurrences) if plan.needs_key_count() else pairs_for_loads
+        groups = [
+            client.submit(_stage_distinct, [client.submit(_route, f, g) for f in first], plan, pairs, pure=False)
+            for g in range(1 << prefix_bits)
+        ]
+        partials = [client.submit(_partial_of, f) for f in first]
+        total = _tree_merge(client, groups + partials).result()
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()
+    stats = [total.stats[p.index] for p in parts]
+    described = []
+    for source, description in zip(sources, descriptions, strict=True):
+        mine = [s for p, s in zip(parts, stats, strict=True) if p.source == source]
+        combined = {
+            "records": sum(s.records for s in mine),
+            "keys": sum(s.keys for s in mine),
+            "empty_keys": sum(s.empty_keys for s in mine),
+            "skipped": _add_skipped(mine),
+            "bytes_read": sum(s.bytes_read for s in mine),
+        }
+        described.append({**description, "stats": combined})
+    hash_seconds = {name: 0.0 for name in plan.hashes}
+    result = _conclude(
+        total.states, plan, total.distinct, total.occurrences, tuple(described), started, hash_seconds,
+        total.sample, 1, total.heavy,
+    )  # fmt: skip
+    result.run["engine"] = "dask"
+    result.run["partitions"] = len(parts)
+    return result
+
+
+def _add_skipped(stats: list[SourceStats]) -> dict[str, int]:
+    out: dict[str, int] = {}
+    for s in stats:
+        for reason, count in s.skipped.items():
+            out[reason] = out.get(reason, 0) + count
+    return dict(sorted(out.items()))
