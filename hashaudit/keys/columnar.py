@@ -81,6 +81,48 @@ def _as_binary(array: pa.Array, integers: str) -> pa.Array:
     return array.cast(pa.large_string()).view(pa.large_binary())
 
 
+def arrow_records(
+    batch: pa.RecordBatch,
+    key_positions: list[int],
+    weight_position: int | None,
+    options: SourceOptions,
+    first_row: int,
+    stats: SourceStats,
+    name: str,
+) -> RecordBatch | None:
+    """One Arrow record batch as keys (composite keys joined with ``options.join``), with rows that have a null
+    key counted and skipped, and the weights; None when no key is left. Shared by Parquet, Arrow IPC and ADBC."""
+    separator = pa.scalar(options.join.encode("utf-8"), pa.large_binary())
+    parts = [_as_binary(batch.column(k), options.integers) for k in key_positions]
+    valid = None
+    for part in parts:
+        if part.null_count:
+            mask = part.is_valid()
+            valid = mask if valid is None else pc.and_(valid, mask)
+    joined = parts[0] if len(parts) == 1 else pc.binary_join_element_wise(*parts, separator)
+    weights = None
+    if weight_position is not None:
+        column = batch.column(weight_position)
+        label = batch.schema.names[weight_position]
+        if column.null_count or not pa.types.is_integer(column.type) and not pa.types.is_floating(column.type):
+            raise InputError(f"{name}: weight column {label!r} must be numbers without nulls")
+        weights = column.to_numpy(zero_copy_only=False).astype(np.float64)
+        if len(weights) and (weights.min() < 0 or not np.isfinite(weights).all()):
+            raise InputError(f"{name}: weight column {label!r} holds a negative or infinite value")
+    numbers = None
+    if valid is not None:
+        keep = np.asarray(valid.to_numpy(zero_copy_only=False), dtype=bool)
+        stats.skip("null", int((~keep).sum()))
+        joined = joined.filter(valid)
+        numbers = first_row + np.flatnonzero(keep).astype(np.int64)
+        weights = None if weights is None else weights[keep]
+    stats.records += batch.num_rows
+    if not len(joined):
+        return None
+    return RecordBatch(KeyBatch.from_arrow(joined), int(numbers[0]) if numbers is not None else first_row, numbers,
+                       weights)  # fmt: skip
+
+
 def read_columnar(path: str, fmt: str, options: SourceOptions, stats: SourceStats) -> Iterator[RecordBatch]:
     """Yield the key column(s) of a Parquet or Arrow IPC file.
 
@@ -102,36 +144,14 @@ def read_columnar(path: str, fmt: str, options: SourceOptions, stats: SourceStat
     weight = _resolve([options.weight], schema, path)[0] if options.weight else None
     if weight is not None and weight in columns:
         raise UsageError(f"--weight-column {options.weight!r} is also a key column")
-    separator = pa.scalar(options.join.encode("utf-8"), pa.large_binary())
     rows = 0
     try:
         for batch in batches:
-            parts = [_as_binary(batch.column(batch.schema.get_field_index(c)), options.integers) for c in columns]
-            valid = None
-            for part in parts:
-                if part.null_count:
-                    mask = part.is_valid()
-                    valid = mask if valid is None else pc.and_(valid, mask)
-            joined = parts[0] if len(parts) == 1 else pc.binary_join_element_wise(*parts, separator)
-            weights = None
-            if weight is not None:
-                column = batch.column(batch.schema.get_field_index(weight))
-                if column.null_count or not pa.types.is_integer(column.type) and not pa.types.is_floating(column.type):
-                    raise InputError(f"{path}: weight column {weight!r} must be numbers without nulls")
-                weights = column.to_numpy(zero_copy_only=False).astype(np.float64)
-                if len(weights) and (weights.min() < 0 or not np.isfinite(weights).all()):
-                    raise InputError(f"{path}: weight column {weight!r} holds a negative or infinite value")
-            numbers = None
-            if valid is not None:
-                keep = np.asarray(valid.to_numpy(zero_copy_only=False), dtype=bool)
-                stats.skip("null", int((~keep).sum()))
-                joined = joined.filter(valid)
-                numbers = rows + 1 + np.flatnonzero(keep).astype(np.int64)
-                weights = None if weights is None else weights[keep]
-            stats.records += batch.num_rows
-            if len(joined):
-                keys = KeyBatch.from_arrow(joined)
-                yield RecordBatch(keys, int(numbers[0]) if numbers is not None else rows + 1, numbers, weights)
+            key_positions = [batch.schema.get_field_index(c) for c in columns]
+            weight_position = batch.schema.get_field_index(weight) if weight is not None else None
+            records = arrow_records(batch, key_positions, weight_position, options, rows + 1, stats, path)
+            if records is not None:
+                yield records
             rows += batch.num_rows
     except pa.ArrowException as exc:
         raise InputError(f"{path}: {' '.join(str(exc).split())} (after row {rows})") from None

@@ -23,7 +23,6 @@ from typing import Any
 from urllib.parse import urlsplit
 
 import numpy as np
-import pyarrow as pa
 
 from hashaudit.errors import InputError, UsageError
 from hashaudit.keys.batch import KeyBatch
@@ -185,7 +184,7 @@ def _read_adbc(url: str, query: str, options: SourceOptions, stats: SourceStats)
     """PostgreSQL as Arrow batches (ADBC); the conversion is that of Parquet columns."""
     import adbc_driver_postgresql.dbapi as adbc
 
-    from hashaudit.keys.columnar import _as_binary
+    from hashaudit.keys.columnar import arrow_records
 
     plain = re.sub(r"^postgresql\+[a-z0-9]+://", "postgresql://", url)
     try:
@@ -198,36 +197,11 @@ def _read_adbc(url: str, query: str, options: SourceOptions, stats: SourceStats)
             reader = cursor.fetch_record_batch()
             names = list(reader.schema.names)
             keys, weight = _key_columns(names, options, mask_url(url))
-            separator = pa.scalar(options.join.encode("utf-8"), pa.large_binary())
             row = 1
             for batch in reader:
-                stats.records += batch.num_rows
-                parts = [_as_binary(batch.column(k), options.integers) for k in keys]
-                import pyarrow.compute as pc
-
-                joined = parts[0] if len(parts) == 1 else pc.binary_join_element_wise(*parts, separator)
-                valid = None
-                for part in parts:
-                    if part.null_count:
-                        mask = part.is_valid()
-                        valid = mask if valid is None else pc.and_(valid, mask)
-                weights = None
-                if weight is not None:
-                    column = batch.column(weight)
-                    if column.null_count:
-                        raise InputError(f"{mask_url(url)}: weight {options.weight!r} has nulls")
-                    weights = column.to_numpy(zero_copy_only=False).astype(np.float64)
-                numbers = None
-                if valid is not None:
-                    keep = np.asarray(valid.to_numpy(zero_copy_only=False), dtype=bool)
-                    stats.skip("null", int((~keep).sum()))
-                    joined = joined.filter(valid)
-                    numbers = row + np.flatnonzero(keep).astype(np.int64)
-                    weights = None if weights is None else weights[keep]
-                if len(joined):
-                    yield RecordBatch(
-                        KeyBatch.from_arrow(joined), int(numbers[0]) if numbers is not None else row, numbers, weights
-                    )
+                records = arrow_records(batch, keys, weight, options, row, stats, mask_url(url))
+                if records is not None:
+                    yield records
                 row += batch.num_rows
     except (InputError, UsageError):
         raise
