@@ -34,6 +34,7 @@ import numpy as np
 from hashaudit.engine.local import AuditPlan, _conclude, _HashState, _new_state
 from hashaudit.errors import UsageError
 from hashaudit.hashes.registry import REGISTRY
+from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.options import SourceOptions
 from hashaudit.keys.records import SourceStats
 from hashaudit.verdict.result import AuditResult
@@ -49,6 +50,7 @@ class _Partition:
     options: SourceOptions
     start: int | None = None
     end: int | None = None
+    row_group: int | None = None
 
 
 @dataclass
@@ -74,6 +76,13 @@ def plan_partitions(sources: Sequence[str], options: Sequence[SourceOptions], pa
         plain = (opts.format in ("auto", "lines") and format_for(source) == "lines" and not compression_for(source)
                  and "://" not in source)  # fmt: skip
         size = os.path.getsize(source) if plain and os.path.isfile(source) else None
+        fmt = opts.format if opts.format != "auto" else format_for(source)
+        if fmt == "parquet" and os.path.isfile(source):
+            import pyarrow.parquet as pq
+
+            for group in range(max(1, pq.ParquetFile(source).num_row_groups)):
+                parts.append(_Partition(len(parts), source, opts, row_group=group))
+            continue
         if not plain or size is None:
             parts.append(_Partition(len(parts), source, opts))
             continue
@@ -104,6 +113,9 @@ def _partition_batches(part: _Partition, stats: SourceStats):  # type: ignore[no
     from hashaudit.keys.encode import Normaliser
     from hashaudit.keys.lines import read_lines
 
+    if part.row_group is not None:
+        yield from _row_group_batches(part, stats)
+        return
     if part.start is None:
         stream = open_keys(part.source, part.options)
         yield from stream
@@ -124,6 +136,40 @@ def _partition_batches(part: _Partition, stats: SourceStats):  # type: ignore[no
             stats.keys += len(keys)
             stats.empty_keys += int(np.count_nonzero(keys.offsets[1:] == keys.offsets[:-1]))
             yield keys
+
+
+def _row_group_batches(part: _Partition, stats: SourceStats):  # type: ignore[no-untyped-def]
+    """The keys of one Parquet row group, converted as the local Parquet reader converts them."""
+    import pyarrow.parquet as pq
+
+    from hashaudit.keys.columnar import _resolve, arrow_records
+    from hashaudit.keys.encode import Normaliser
+
+    o = part.options
+    parquet = pq.ParquetFile(part.source)
+    if parquet.num_row_groups == 0:
+        return
+    columns = _resolve(list(o.columns or ("0",)), parquet.schema_arrow, part.source)
+    weight = _resolve([o.weight], parquet.schema_arrow, part.source)[0] if o.weight else None
+    table = parquet.read_row_group(part.row_group, columns=columns + ([weight] if weight else []))
+    first_row = 1 + sum(parquet.metadata.row_group(g).num_rows for g in range(part.row_group or 0))
+    normaliser = Normaliser(o)
+    for batch in table.to_batches(max_chunksize=o.batch_keys):
+        keys = [batch.schema.get_field_index(c) for c in columns]
+        records = arrow_records(batch, keys, batch.schema.get_field_index(weight) if weight else None, o, first_row,
+                                stats, part.source)  # fmt: skip
+        first_row += batch.num_rows
+        if records is None:
+            continue
+        if not normaliser.is_identity:
+            records = normaliser.apply(records, stats, lambda r: f"{part.source} row {r}")
+        out = records.keys
+        if records.weights is not None:
+            out = KeyBatch(out.data, out.offsets, records.weights)
+        if len(out):
+            stats.keys += len(out)
+            stats.empty_keys += int(np.count_nonzero(out.offsets[1:] == out.offsets[:-1]))
+            yield out
 
 
 def _stage_read(part: _Partition, plan: AuditPlan, pairs: list, bits: int) -> tuple[list, _Partial]:

@@ -27,6 +27,13 @@ def _pct(x: float) -> str:
     return f"{100 * x:.1f} %"
 
 
+def _points(points: float, excess: float) -> str:
+    """``12.3 of its 15.0 points``, or ``all of its 15.0 points`` when the keys explain more than the excess."""
+    if points >= excess:
+        return f"all of its {100 * excess:.1f} points"
+    return f"{100 * points:.1f} of its {100 * excess:.1f} points"
+
+
 def load_findings(states: list[Any], heavy: HeavyKeys, thresholds: Thresholds, seed: int = 0) -> list[Finding]:
     """The ``hot_keys`` and ``load_attribution`` findings of every hash and shard layout."""
     top = heavy.top(HEAVY_SHOWN)
@@ -72,7 +79,7 @@ def _findings(hash_name: str, keys: int, a: dict, thresholds: Thresholds) -> lis
         + hash_part
     )
     hot_sentence = (
-        f"{keys_word} {verb} shard {shard} hot: {100 * points:.1f} of its {100 * excess:.1f} points above a fair share "
+        f"{keys_word} {verb} shard {shard} hot: {_points(points, excess)} above a fair share "
         f"(the heaviest alone {_pct(a['heaviest_key_share'])} of all load) — split or cache {'that key' if many == 1 else 'those keys'}; the hash is "
         "not to blame"
         if hot

@@ -56,3 +56,15 @@ def test_the_dask_engine_gives_the_local_engines_report(tmp_path):
     assert dist.run["engine"] == "dask" and dist.run["partitions"] > 5
     assert dist.keys == local.keys == len(set(keys)) and dist.keys_read == local.keys_read
     assert _same(local, dist)
+
+
+def test_parquet_row_groups_are_partitions():
+    from pathlib import Path
+
+    sample = Path(__file__).resolve().parents[2] / "sample_keys" / "tracking_lookups.parquet"
+    plan = AuditPlan(hashes=("xxh3_64", "crc32"), buckets=(1024, 1021), checks=("buckets", "bits", "tables"), seed=1)
+    options = SourceOptions(columns=("parcel",))
+    local = audit([sample], plan, options)
+    dist = audit_dask([str(sample)], plan, options, workers=2, prefix_bits=2)
+    assert dist.run["partitions"] == 4  # the sample has four row groups of 20,000 rows
+    assert _same(local, dist)
