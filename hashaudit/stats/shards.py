@@ -34,6 +34,49 @@ stats = LazyModule("scipy.stats")
 LISTED_SHARDS = 1024  # per-shard counts appear in the details up to this many shards
 
 
+class _Loads:
+    """Summed weights per cell, the same whatever the order of the additions: whole-number weights (and plain
+    occurrence counts) add up exactly as integers; other weights add up as floats, whose last bits depend on the
+    order, so the reports round figures made from them (``REPORT_DIGITS``)."""
+
+    def __init__(self, cells: int) -> None:
+        self.whole_ = np.zeros(cells, dtype=np.int64)
+        self.fraction_ = np.zeros(cells, dtype=np.float64)
+
+    def add(self, cell: np.ndarray, weights: np.ndarray | None) -> None:
+        cells = len(self.whole_)
+        if weights is None:
+            self.whole_ += np.bincount(cell, minlength=cells)
+            return
+        whole = (weights == np.floor(weights)) & (weights < 2.0**53)
+        if whole.all():
+            self.whole_ += _int_bincount(cell, weights, cells)
+        else:
+            self.whole_ += _int_bincount(cell[whole], weights[whole], cells)
+            self.fraction_ += np.bincount(cell[~whole], weights=weights[~whole], minlength=cells)
+
+    def merge(self, other: _Loads) -> None:
+        self.whole_ += other.whole_
+        self.fraction_ += other.fraction_
+
+    @property
+    def total(self) -> np.ndarray:
+        return self.whole_.astype(np.float64) + self.fraction_
+
+
+def _int_bincount(cell: np.ndarray, weights: np.ndarray, cells: int) -> np.ndarray:
+    """Sums of whole-number weights per cell, exactly (float sums of integers below 2^53 are exact)."""
+    return np.rint(np.bincount(cell, weights=weights, minlength=cells)).astype(np.int64)
+
+
+REPORT_DIGITS = 12
+
+
+def rounded(x: float) -> float:
+    """``x`` to ``REPORT_DIGITS`` significant digits: float sums in another order agree after it."""
+    return float(f"{x:.{REPORT_DIGITS}g}")
+
+
 class ShardCounts:
     """Accumulator of one hash function's keys over N shards.
 
@@ -52,7 +95,7 @@ class ShardCounts:
         self._next = layout.resized(layout.shards + 1)
         self._double = layout.resized(2 * layout.shards)
         self.distinct_ = np.zeros(layout.shards, dtype=np.int64)
-        self.load_ = np.zeros(layout.shards, dtype=np.float64)
+        self._loads = _Loads(layout.shards)
         self.moved_next_ = 0
         self.moved_double_ = 0
 
@@ -66,16 +109,20 @@ class ShardCounts:
 
     def add_load(self, values: np.ndarray, weights: np.ndarray | None = None) -> ShardCounts:
         """Add every occurrence's hash value, weighted when ``weights`` is given (the load the shards feel)."""
-        here = self.layout.assign(values, self.width)
-        self.load_ += np.bincount(here, weights=weights, minlength=self.layout.shards)
+        self._loads.add(self.layout.assign(values, self.width), weights)
         return self
+
+    @property
+    def load_(self) -> np.ndarray:
+        """Load per shard: occurrences, or summed weights."""
+        return self._loads.total
 
     def merge(self, other: ShardCounts) -> ShardCounts:
         """Add another accumulator of the same hash and layout."""
         if not isinstance(other, ShardCounts) or (other.hash_name, other.layout) != (self.hash_name, self.layout):
             raise MergeError("cannot merge shard counts of another hash or layout")
         self.distinct_ += other.distinct_
-        self.load_ += other.load_
+        self._loads.merge(other._loads)
         self.moved_next_ += other.moved_next_
         self.moved_double_ += other.moved_double_
         return self
@@ -93,28 +140,33 @@ class BucketLoads:
 
     def __init__(self, scheme: str, buckets: int, width: int) -> None:
         self.scheme, self.buckets, self.width = scheme, int(buckets), int(width)
-        self.load_ = np.zeros(self.buckets, dtype=np.float64)
+        self._loads = _Loads(self.buckets)
 
     def add_load(self, values: np.ndarray, weights: np.ndarray | None = None) -> BucketLoads:
         """Add every occurrence's hash value (weighted when ``weights`` is given)."""
         from hashaudit.tables.schemes import bucket_index
 
-        where = bucket_index(values, self.scheme, self.buckets, self.width)
-        self.load_ += np.bincount(where.astype(np.int64), weights=weights, minlength=self.buckets)
+        self._loads.add(bucket_index(values, self.scheme, self.buckets, self.width).astype(np.int64), weights)
         return self
+
+    @property
+    def load_(self) -> np.ndarray:
+        """Load per bucket: occurrences, or summed weights."""
+        return self._loads.total
 
     def merge(self, other: BucketLoads) -> BucketLoads:
         """Add another table's loads (same scheme and size)."""
         if not isinstance(other, BucketLoads) or (other.scheme, other.buckets) != (self.scheme, self.buckets):
             raise MergeError("cannot merge bucket loads of another table")
-        self.load_ += other.load_
+        self._loads.merge(other._loads)
         return self
 
     def hottest(self, top: int) -> list[tuple[int, float, float]]:
         """The ``top`` buckets by load: (bucket, load, share of all load), heaviest first."""
-        total = float(self.load_.sum())
-        order = np.lexsort((np.arange(self.buckets), -self.load_))[:top]
-        return [(int(b), float(self.load_[b]), float(self.load_[b]) / total if total else 0.0) for b in order]
+        load = self.load_
+        total = float(load.sum())
+        order = np.lexsort((np.arange(self.buckets), -load))[:top]
+        return [(int(b), rounded(load[b]), rounded(load[b] / total) if total else 0.0) for b in order]
 
 
 def _expected_max_ratio(shares: np.ndarray, n: int) -> float:
@@ -264,21 +316,23 @@ def attribute_load(counts: ShardCounts, heavy: list[tuple[bytes, float, int]], t
     mine = [(w, s) for _, w, s in heavy if s == hottest]
     heavy_here = float(sum(w for w, _ in mine))
     heavy_all = float(sum(w for _, w, _ in heavy))
-    without = (float(load[hottest]) - heavy_here) / max(total_load - heavy_all, 1e-300)
+    rest = total_load - heavy_all
+    # without the heavy keys; when they carry (nearly) all the load, nothing is left to share out
+    without = min(1.0, max(0.0, (float(load[hottest]) - heavy_here) / rest)) if rest > 1e-9 * total_load else 0.0
     distinct_share = float(counts.distinct_[hottest] / n) if n else 0.0
     ideal_ratio = _max_ratio_quantile(shares, n) if n else 1.0
     return {
         "shards": counts.layout.shards,
         "shard_scheme": counts.layout.scheme,
         "hottest_shard": hottest,
-        "load_share": load_share,
+        "load_share": rounded(load_share),
         "fair_share": float(shares[hottest]),
         "heavy_keys_on_shard": len(mine),
-        "heavy_load_on_shard": heavy_here,
-        "heaviest_key_share": float(max((w for w, _ in mine), default=0.0) / total_load),
-        "points_from_heavy_keys": load_share - without,
-        "share_without_heavy_keys": without,
+        "heavy_load_on_shard": rounded(heavy_here),
+        "heaviest_key_share": rounded(max((w for w, _ in mine), default=0.0) / total_load),
+        "points_from_heavy_keys": rounded(max(0.0, load_share - without)),
+        "share_without_heavy_keys": rounded(without),
         "distinct_share": distinct_share,
         "ideal_max_distinct_share": float(shares[hottest] * ideal_ratio),
-        "total_load": total_load,
+        "total_load": rounded(total_load),
     }

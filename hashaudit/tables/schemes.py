@@ -130,7 +130,10 @@ def _prepare(hashes: np.ndarray, width: int) -> np.ndarray:
         hashes = hashes[:, 0]
     if width not in (32, 64, 128):
         raise UsageError(f"hash width must be 32, 64 or 128, not {width}")
-    return np.ascontiguousarray(hashes, dtype=np.uint64)
+    values = np.ascontiguousarray(hashes, dtype=np.uint64)
+    if width == 32 and len(values) and int(values.max()) >> 32:
+        raise UsageError("hash values wider than the declared 32 bits: bucket indices would leave the table")
+    return values
 
 
 def bucket_index(hashes: np.ndarray, scheme: str, buckets: int, width: int = 64) -> np.ndarray:

@@ -46,7 +46,7 @@ def load_findings(states: list[Any], heavy: HeavyKeys, thresholds: Thresholds, s
         for counts in state.shards:
             where = counts.layout.assign(values, spec.width) if values is not None else np.zeros(0, np.int64)
             placed = [(key, load, int(s)) for (key, load), s in zip(top, where.tolist(), strict=True)]
-            a = attribute_load(counts, placed, heavy.total_)
+            a = attribute_load(counts, placed, float(counts.load_.sum()))
             a["heavy_keys_exact"] = heavy.exact
             a["heavy_count_error"] = heavy.error_
             findings += _findings(spec.name, int(counts.distinct_.sum()), a, thresholds)

@@ -88,3 +88,19 @@ def test_sizes_helpers():
     assert powers == [1 << 16, 1 << 17, 1 << 18] and primes == [prime_below(1 << 17)]
     powers, primes = auto_sizes(10**9)
     assert max(powers) == 1 << 22  # capped so memory does not grow with the key count
+
+
+def test_values_wider_than_the_declared_width_are_refused():
+    """A 32-bit function's values must fit 32 bits: ``high`` and ``range`` read the top of the declared width, so
+    a wider value would index past the table."""
+    import numpy as np
+    import pytest
+
+    from hashaudit.errors import UsageError
+    from hashaudit.tables.schemes import add_counts, bucket_index
+
+    with pytest.raises(UsageError, match="wider than the declared 32 bits"):
+        bucket_index(np.array([2**40], np.uint64), "high", 4, 32)
+    with pytest.raises(UsageError, match="wider"):
+        add_counts(np.array([2**33], np.uint64), "range", 4, 32, np.zeros(4, np.int64))
+    assert bucket_index(np.array([2**32 - 1], np.uint64), "high", 4, 32).tolist() == [3]
