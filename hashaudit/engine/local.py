@@ -463,7 +463,7 @@ def audit_batches(
 
 MAX_PARTS = 1 << 12
 AUTO_TABLE_SLOTS = 1 << 18
-MIN_TABLE_SLOTS = 1 << 10
+MIN_TABLE_SLOTS = 1 << 12  # 16 regions of 256 slots: smaller tables give too few independent batch means
 MAX_TABLE_SLOTS = 1 << 30
 
 

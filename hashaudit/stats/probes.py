@@ -7,7 +7,8 @@ hashing), in a table of the same size and scheme — exact for finite tables, wh
 limits — and the formulas of Knuth (TAOCP vol. 3 §6.4, via :func:`hashaudit.stats.theory.expected_probes`) are
 reported beside it.
 
-The sampling error of a mean comes from batch means: the table is cut into ``REGIONS`` runs of home slots whose
+The sampling error of a mean comes from batch means: the table is cut into up to 64 runs of home slots, each at
+least 256 slots long (``hashaudit.tables.simulate.region_count``), whose
 mean costs are nearly independent (a cluster rarely crosses the edge of a region thousands of slots long). Each
 (load, search) cell gets a Welch t-test of the two sets of region means; the check's p-value is the smallest
 cell p-value times the number of cells (Bonferroni within the check, Holm across the audit). The effect is the
