@@ -47,7 +47,7 @@ CHECKS = ("buckets", "bits", "collisions", "tables")
 @pytest.fixture(scope="module")
 def plans(tmp_path_factory) -> dict[str, AuditPlan]:
     spill = str(tmp_path_factory.mktemp("collision-spill"))
-    common = {"checks": CHECKS, "buckets": (64, 61), "table_slots": 1024, "loads": (0.5, 0.75), "seed": 7}
+    common = {"checks": CHECKS, "buckets": (64, 61), "table_slots": 4096, "loads": (0.25, 0.4), "seed": 7}
     return {
         # one hash: with several threads every lane hashes a slice of each batch and the lanes' states merge
         "one-hash": AuditPlan(hashes=("xxh3_64",), **common),
@@ -150,7 +150,7 @@ BIG_VALUES = np.random.default_rng(99).permutation(
     np.concatenate([np.arange(190_000), np.random.default_rng(98).integers(0, 190_000, size=BIG_N - 190_000)])
 ).astype(np.uint64) * np.uint64(0x9E3779B97F4A7C15)
 BIG_WHOLE = KeyBatch.from_uint64(BIG_VALUES)
-BIG_PLAN = dict(hashes=("xxh3_64", "murmur3_32"), checks=CHECKS, buckets=(4096,), table_slots=1024, seed=3)
+BIG_PLAN = dict(hashes=("xxh3_64", "murmur3_32"), checks=CHECKS, buckets=(4096,), table_slots=4096, seed=3)
 
 
 @functools.cache
