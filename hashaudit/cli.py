@@ -105,6 +105,14 @@ _SOURCE_OPTIONS = [
     click.option("--strip", is_flag=True, help="Strip leading and trailing ASCII whitespace from keys."),
     click.option("--lowercase", is_flag=True, help="ASCII-lowercase keys."),
     click.option("--pattern", metavar="REGEX", help="Hash only the first group of REGEX's match in each key."),
+    click.option(
+        "--on-bad-record",
+        type=click.Choice(["fail", "skip"]),
+        default="fail",
+        show_default=True,
+        help="A record that cannot become a key (not JSON, no such field, a bad weight, a key --key-format cannot "
+        "decode, a line that is not UTF-8): stop with an error, or skip it and count it in the report.",
+    ),
 ]
 
 
@@ -137,6 +145,7 @@ def _source_options(kw: dict):  # type: ignore[no-untyped-def]
         query=kw.get("query"),
         table=kw.get("db_table"),
         driver=kw.get("db_driver") or "auto",
+        on_bad_record=kw.get("on_bad_record") or "fail",
     )
 
 

@@ -58,6 +58,7 @@ SOURCE_KEYS = {
     "query": str,
     "table": str,
     "driver": str,
+    "on_bad_record": str,
 }
 TOP_KEYS = {
     "seed": int,

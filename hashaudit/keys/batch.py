@@ -61,6 +61,18 @@ class KeyBatch:
         weights = None if self.weights is None else self.weights[start:stop]
         return KeyBatch(self.data, self.offsets[start : stop + 1], weights)
 
+    def take(self, positions: np.ndarray) -> KeyBatch:
+        """The keys at ``positions`` (increasing, no repeats), copied back to back; weights follow their keys."""
+        positions = np.asarray(positions, dtype=np.int64)
+        lengths = np.diff(self.offsets)
+        wanted = np.zeros(len(self), dtype=bool)
+        wanted[positions] = True
+        data = self.data[int(self.offsets[0]) : int(self.offsets[-1])][np.repeat(wanted, lengths)]
+        offsets = np.zeros(len(positions) + 1, dtype=np.int64)
+        np.cumsum(lengths[positions], out=offsets[1:])
+        weights = None if self.weights is None else self.weights[positions]
+        return KeyBatch(data, offsets, weights)
+
     @classmethod
     def from_keys(cls, keys: Sequence[bytes] | Iterable[bytes]) -> KeyBatch:
         """Build a batch from Python bytes objects (for tests and small inputs)."""

@@ -4,7 +4,8 @@ A key column of strings or binary goes to the hash as its bytes without a copy (
 ``KeyBatch``'s). An integer column is hashed as 8-byte little-endian words by default — what an integer-keyed table
 hashes — or as decimal text with ``integers="decimal"``. Other types (dates, floats, decimals…) are hashed as the
 text pyarrow casts them to. Several columns make a composite key, joined with ``join``. A record with a null in any
-key column is counted (``null``) and skipped; a null weight is an error.
+key column is counted (``null``) and skipped. A null, negative or infinite weight is an error, or with
+``on_bad_record="skip"`` makes its row skipped and counted as ``bad_weight``.
 """
 
 from __future__ import annotations
@@ -101,19 +102,31 @@ def arrow_records(
             valid = mask if valid is None else pc.and_(valid, mask)
     joined = parts[0] if len(parts) == 1 else pc.binary_join_element_wise(*parts, separator)
     weights = None
+    bad = None
     if weight_position is not None:
         column = batch.column(weight_position)
         label = batch.schema.names[weight_position]
-        if column.null_count or not pa.types.is_integer(column.type) and not pa.types.is_floating(column.type):
+        numeric = pa.types.is_integer(column.type) or pa.types.is_floating(column.type)
+        skip_bad = options.on_bad_record == "skip"
+        if not numeric or column.null_count and not skip_bad:
             raise InputError(f"{name}: weight column {label!r} must be numbers without nulls")
-        weights = column.to_numpy(zero_copy_only=False).astype(np.float64)
-        if len(weights) and (weights.min() < 0 or not np.isfinite(weights).all()):
+        weights = column.to_numpy(zero_copy_only=False).astype(np.float64)  # a null becomes NaN
+        with np.errstate(invalid="ignore"):
+            bad = ~np.isfinite(weights) | (weights < 0)
+        if not bad.any():
+            bad = None
+        elif not skip_bad:
             raise InputError(f"{name}: weight column {label!r} holds a negative or infinite value")
     numbers = None
-    if valid is not None:
-        keep = np.asarray(valid.to_numpy(zero_copy_only=False), dtype=bool)
+    if valid is not None or bad is not None:
+        has_key = np.ones(batch.num_rows, dtype=bool) if valid is None else valid.to_numpy(zero_copy_only=False)
+        keep = np.asarray(has_key, dtype=bool)
         stats.skip("null", int((~keep).sum()))
-        joined = joined.filter(valid)
+        if bad is not None:
+            # A row with a bad weight is dropped like a row with a null key, but counted apart.
+            stats.skip("bad_weight", int(np.count_nonzero(bad & keep)))
+            keep = keep & ~bad
+        joined = joined.filter(pa.array(keep))
         numbers = first_row + np.flatnonzero(keep).astype(np.int64)
         weights = None if weights is None else weights[keep]
     stats.records += batch.num_rows

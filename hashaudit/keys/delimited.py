@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import csv
 import io
+import math
 from collections.abc import Iterator
 
 import numpy as np
@@ -104,6 +105,29 @@ def _weights(column: pa.ChunkedArray, name: str, rows: int, label: str | None) -
     return np.ascontiguousarray(values, dtype=np.float64)
 
 
+def _parse_weight(raw: bytes | None) -> float:
+    """One weight field as a number (NaN when it is not one), the way the CSV reader parses a float column."""
+    try:
+        text = (raw or b"").decode("ascii").strip()
+        return math.nan if "_" in text else float(text)
+    except (UnicodeDecodeError, ValueError):
+        return math.nan
+
+
+def _weights_or_bad(column: pa.ChunkedArray) -> tuple[np.ndarray, np.ndarray]:
+    """A weight column read as bytes: its values as float64 and the mask of rows whose weight is not a number of
+    at least 0. Arrow parses the column in one call; only a block with a field it cannot parse goes row by row."""
+    try:
+        text = pc.utf8_trim_whitespace(column.cast(pa.large_string()))
+        values = text.cast(pa.float64()).to_numpy(zero_copy_only=False)
+    except pa.ArrowException:
+        values = np.array([_parse_weight(v) for v in column.to_pylist()], dtype=np.float64)
+    values = np.ascontiguousarray(values, dtype=np.float64)
+    with np.errstate(invalid="ignore"):
+        bad = ~np.isfinite(values) | (values < 0)
+    return values, bad
+
+
 def read_delimited(
     stream: Readable, name: str, fmt: str, options: SourceOptions, stats: SourceStats
 ) -> Iterator[RecordBatch]:
@@ -119,7 +143,10 @@ def read_delimited(
         csv follows RFC 4180 (quoted fields may hold delimiters, quotes and line breaks); tsv has no quoting,
         so quotes are ordinary bytes of a key.
     options : SourceOptions
-        Uses ``columns``, ``join``, ``delimiter``, ``header`` and ``batch_keys``.
+        Uses ``columns``, ``join``, ``delimiter``, ``header``, ``weight``, ``batch_keys`` and ``on_bad_record``
+        (``skip``: a row whose weight is not a number of at least 0 is dropped and counted as ``bad_weight``; a
+        row with the wrong number of fields is still an error, as the parser cannot tell where the next row
+        starts once quoting went wrong).
     stats : SourceStats
         ``records`` counts data rows.
 
@@ -146,13 +173,17 @@ def read_delimited(
         if weight in columns:
             raise UsageError(f"--weight-column {options.weight!r} is also a key column")
     wanted = list(dict.fromkeys(columns + ([weight] if weight else [])))
+    skip_bad = options.on_bad_record == "skip"
     reader_options = pa_csv.ReadOptions(block_size=CSV_BLOCK_BYTES, autogenerate_column_names=not options.header)
     parse_options = pa_csv.ParseOptions(
-        delimiter=delimiter, quote_char='"' if quoted else False, newlines_in_values=quoted
+        delimiter=delimiter,
+        quote_char='"' if quoted else False,
+        newlines_in_values=quoted,
     )
     types = {c: pa.large_binary() for c in columns}
     if weight is not None:
-        types[weight] = pa.float64()
+        # Skipping bad weights needs each field's text; failing on the first one lets the reader parse them.
+        types[weight] = pa.large_binary() if skip_bad else pa.float64()
     convert_options = pa_csv.ConvertOptions(column_types=types, include_columns=wanted, strings_can_be_null=False)
     separator = pa.scalar(options.join.encode("utf-8"), pa.large_binary())
     rows = 0
@@ -163,13 +194,26 @@ def read_delimited(
             parts = [p.fill_null(b"") if p.null_count else p for p in parts]
             joined = parts[0] if len(parts) == 1 else pc.binary_join_element_wise(*parts, separator)
             keys = KeyBatch.from_arrow(joined)
-            weights = _weights(table.column(weight), name, rows, options.weight) if weight is not None else None
-            stats.records += len(keys)
+            numbers = None
+            if weight is None:
+                weights = None
+            elif not skip_bad:
+                weights = _weights(table.column(weight), name, rows, options.weight)
+            else:
+                weights, bad = _weights_or_bad(table.column(weight))
+                if bad.any():
+                    stats.skip("bad_weight", int(np.count_nonzero(bad)))
+                    kept = np.flatnonzero(~bad)
+                    keys, weights, numbers = keys.take(kept), weights[kept], rows + 1 + kept
+            stats.records += table.num_rows
             for start in range(0, len(keys), options.batch_keys):
                 stop = min(start + options.batch_keys, len(keys))
                 part = None if weights is None else weights[start:stop]
-                yield RecordBatch(keys.slice(start, stop), rows + start + 1, None, part)
-            rows += len(keys)
+                if numbers is None:
+                    yield RecordBatch(keys.slice(start, stop), rows + start + 1, None, part)
+                else:
+                    yield RecordBatch(keys.slice(start, stop), int(numbers[start]), numbers[start:stop], part)
+            rows += table.num_rows
     except pa.ArrowException as exc:
         detail = " ".join(str(exc).split())
         where = f" (after data row {rows})" if rows else ""

@@ -209,13 +209,72 @@ def apply_key_format(batch: KeyBatch, key_format: str) -> KeyBatch:
     return batch if decoder is None else decoder(batch)
 
 
+def _hex_decodable(batch: KeyBatch) -> np.ndarray:
+    """Mask of the keys :func:`decode_hex` accepts: an even number of characters, every one a hex digit."""
+    data, offsets = _packed(batch)
+    bad_bytes = (HEX_DIGIT_VALUES[data] == 0xFF).view(np.uint8)
+    good = (np.diff(offsets) & 1) == 0
+    nonempty = np.flatnonzero(np.diff(offsets))
+    if len(nonempty):
+        # Keys are back to back, so the segment from one non-empty key's start to the next one's is that key.
+        good[nonempty] &= np.bitwise_or.reduceat(bad_bytes, offsets[nonempty]) == 0
+    return good
+
+
+def _int_decodable(batch: KeyBatch) -> np.ndarray:
+    """Mask of the keys :func:`parse_int` accepts; the kernel resumes after each bad key, so one pass in all."""
+    good = np.ones(len(batch), dtype=bool)
+    values = np.empty(len(batch), dtype=np.uint64)
+    start = 0
+    while start < len(batch):
+        index, _ = parse_decimal(batch.data, batch.offsets[start:], values[start:])
+        if index < 0:
+            break
+        good[start + index] = False
+        start += int(index) + 1
+    return good
+
+
+def _base64_decodable(batch: KeyBatch) -> np.ndarray:
+    """Mask of the keys :func:`decode_base64` accepts (one Python call per key, as decoding itself)."""
+    good = np.ones(len(batch), dtype=bool)
+    for i in range(len(batch)):
+        try:
+            decode_base64(batch.slice(i, i + 1))
+        except KeyValueError:
+            good[i] = False
+    return good
+
+
+_DECODABLE: dict[str, Callable[[KeyBatch], np.ndarray]] = {
+    "hex": _hex_decodable,
+    "base64": _base64_decodable,
+    "int": _int_decodable,
+}
+
+
+def apply_key_format_skipping(batch: KeyBatch, key_format: str) -> tuple[KeyBatch, np.ndarray | None]:
+    """Decode the keys of ``batch`` that ``key_format`` can decode and drop the others.
+
+    Returns the decoded batch and the positions kept (None when every key decoded). A batch without a bad key
+    costs what :func:`apply_key_format` costs; only a batch with one is looked at key by key.
+    """
+    try:
+        return apply_key_format(batch, key_format), None
+    except KeyValueError:
+        pass
+    kept = np.flatnonzero(_DECODABLE[key_format](batch))
+    return apply_key_format(batch.take(kept), key_format), kept
+
+
 class Normaliser:
     """The per-key steps ``SourceOptions`` asks for, applied batch by batch.
 
     Parameters
     ----------
     options : SourceOptions
-        Uses ``pattern``, ``strip``, ``lowercase``, ``skip_empty`` and ``key_format``.
+        Uses ``pattern``, ``strip``, ``lowercase``, ``skip_empty``, ``key_format`` and ``on_bad_record`` (``skip``:
+        keys the key format cannot decode are dropped and counted as ``bad_key_format``).
 
     Raises
     ------
@@ -227,6 +286,7 @@ class Normaliser:
         check_key_format(options.key_format)
         self.regex = compile_pattern(options.pattern) if options.pattern is not None else None
         self.options = options
+        self.skip_bad = options.on_bad_record == "skip"
 
     @property
     def is_identity(self) -> bool:
@@ -252,6 +312,10 @@ class Normaliser:
             keys, kept = drop_empty(records.keys)
             stats.skip("empty", len(records.keys) - len(keys))
             records = records.subset(keys, kept)
+        if self.skip_bad:
+            keys, kept = apply_key_format_skipping(records.keys, o.key_format)
+            stats.skip("bad_key_format", len(records.keys) - len(keys))
+            return records.subset(keys, kept)
         try:
             return records.subset(apply_key_format(records.keys, o.key_format), None)
         except KeyValueError as exc:

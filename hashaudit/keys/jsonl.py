@@ -8,6 +8,7 @@ than speed: a key dump this large belongs in a plain key file or a delimited col
 from __future__ import annotations
 
 import json
+import math
 from collections.abc import Iterator
 from typing import Any
 
@@ -51,22 +52,79 @@ def _kind(value: Any) -> str:
     return _JSON_KINDS.get(type(value), "a number")
 
 
+class _BadRecord(Exception):
+    """A line that cannot become a key: ``reason`` is its skip count's name, ``message`` the error to raise."""
+
+    def __init__(self, reason: str, message: str) -> None:
+        super().__init__(message)
+        self.reason = reason
+        self.message = message
+
+
 def _weight(record: Any, path: list[str], name: str, line_no: int) -> float:
-    """The number at ``path`` of a record, at least 0; a one-line error naming the line otherwise."""
+    """The number at ``path`` of a record, at least 0 and finite as a float; a one-line error naming the line."""
     value = record
     for part in path:
         if not isinstance(value, dict) or part not in value:
-            raise InputError(f"{name} line {line_no}: no weight {'.'.join(path)!r}")
+            raise _BadRecord("bad_weight", f"{name} line {line_no}: no weight {'.'.join(path)!r}")
         value = value[part]
-    if isinstance(value, bool) or not isinstance(value, int | float) or not (0 <= value < float("inf")):
-        raise InputError(
-            f"{name} line {line_no}: weight {'.'.join(path)!r} is {_kind(value)}, not a number of at least 0"
+    number = None
+    if not isinstance(value, bool) and isinstance(value, int | float):
+        try:
+            number = float(value)
+        except OverflowError:  # an integer beyond the float range
+            number = None
+    if number is None or not 0 <= number < math.inf:
+        shown = _kind(value) if isinstance(value, bool) or not isinstance(value, int | float) else repr(value)
+        if len(shown) > 40:
+            shown = f"{shown[:20]}... ({len(shown)} digits)"
+        raise _BadRecord(
+            "bad_weight", f"{name} line {line_no}: weight {'.'.join(path)!r} is {shown}, not a number of at least 0"
         )
-    return float(value)
+    return number
+
+
+def _key_value(
+    text: str, start: int, body: str, decode: Any, path: list[str], field: str, name: str, line_no: int
+) -> tuple[Any, Any]:
+    """The record of one line and the value at ``path`` in it."""
+    try:
+        value, end = decode(text, start)
+        if end != start + len(body):
+            raise json.JSONDecodeError("Extra data", text, end)
+    except json.JSONDecodeError as exc:
+        raise _BadRecord("bad_json", f"{name} line {line_no}: not valid JSON: {exc.msg} (column {exc.colno})") from None
+    except (ValueError, RecursionError) as exc:
+        raise _BadRecord("bad_json", f"{name} line {line_no}: not valid JSON: {exc}") from None
+    record = value
+    for depth, part in enumerate(path):
+        if not isinstance(value, dict):
+            where = "the record" if depth == 0 else repr(".".join(path[:depth]))
+            raise _BadRecord(
+                "missing_field", f"{name} line {line_no}: no field {field!r}: {where} is {_kind(value)}, not an object"
+            )
+        if part not in value:
+            raise _BadRecord("missing_field", f"{name} line {line_no}: no field {field!r} (missing {part!r})")
+        value = value[part]
+    return record, value
+
+
+def _key_bytes(value: Any, field: str, name: str, line_no: int) -> bytes:
+    """:func:`value_bytes`, with a value nested too deeply to write back as JSON made a bad record."""
+    try:
+        return value_bytes(value)
+    except RecursionError:  # json.loads stopped just short of the limit that json.dumps then reached
+        raise _BadRecord("bad_json", f"{name} line {line_no}: the value of {field!r} is nested too deeply") from None
 
 
 def read_jsonl(
-    stream: Readable, name: str, field: str, stats: SourceStats, batch_keys: int = 1 << 20, weight: str | None = None
+    stream: Readable,
+    name: str,
+    field: str,
+    stats: SourceStats,
+    batch_keys: int = 1 << 20,
+    weight: str | None = None,
+    skip_bad: bool = False,
 ) -> Iterator[RecordBatch]:
     """Yield the value at ``field`` (a dotted path) of every record of a JSON Lines stream.
 
@@ -85,6 +143,9 @@ def read_jsonl(
         Most lines per batch.
     weight : str, optional
         Dotted path of each record's weight (a number of at least 0).
+    skip_bad : bool
+        Drop a line that is not UTF-8 JSON, lacks the field or has no valid weight, counting it in ``stats`` as
+        ``bad_utf8``, ``bad_json``, ``missing_field`` or ``bad_weight``, instead of raising.
 
     Yields
     ------
@@ -94,12 +155,14 @@ def read_jsonl(
     Raises
     ------
     InputError
-        A line that is not JSON, or a record without the field (both naming the line).
+        Unless ``skip_bad``: a line that is not JSON, a record without the field or with an invalid weight (naming
+        the line).
     """
     path = split_field_path(field)
     weight_path = split_field_path(weight) if weight is not None else None
     decode = json.JSONDecoder().raw_decode
-    for block in read_lines(stream, name, check_text=True, batch_keys=batch_keys, hint=None):
+    lines = read_lines(stream, name, check_text=True, batch_keys=batch_keys, hint=None, skip_bad=skip_bad, stats=stats)
+    for block in lines:
         # The block is valid UTF-8 (read_lines checked it) and split at LFs: decode it once, not line by line.
         texts = b"\n".join(block.keys.to_list()).decode("utf-8").split("\n")
         keys = []
@@ -111,33 +174,23 @@ def read_jsonl(
             if not body:
                 blank += 1
                 continue
-            line_no = block.first_record + offset
+            line_no = block.record_of(offset)
             try:
                 start = len(text) - len(text.lstrip(_JSON_SPACE))
-                value, end = decode(text, start)
-                if end != start + len(body):
-                    raise json.JSONDecodeError("Extra data", text, end)
-            except json.JSONDecodeError as exc:
-                raise InputError(f"{name} line {line_no}: not valid JSON: {exc.msg} (column {exc.colno})") from None
-            except (ValueError, RecursionError) as exc:
-                raise InputError(f"{name} line {line_no}: not valid JSON: {exc}") from None
-            record = value
-            for depth, part in enumerate(path):
-                if not isinstance(value, dict):
-                    where = "the record" if depth == 0 else repr(".".join(path[:depth]))
-                    raise InputError(
-                        f"{name} line {line_no}: no field {field!r}: {where} is {_kind(value)}, not an object"
-                    )
-                if part not in value:
-                    raise InputError(f"{name} line {line_no}: no field {field!r} (missing {part!r})")
-                value = value[part]
-            if value is None:
-                stats.skip("null")
+                record, value = _key_value(text, start, body, decode, path, field, name, line_no)
+                if value is None:
+                    stats.skip("null")
+                    continue
+                key = _key_bytes(value, field, name, line_no)
+                if weight_path is not None:
+                    weights.append(_weight(record, weight_path, name, line_no))
+            except _BadRecord as bad:
+                if not skip_bad:
+                    raise InputError(bad.message) from None
+                stats.skip(bad.reason)
                 continue
-            keys.append(value_bytes(value))
+            keys.append(key)
             records.append(line_no)
-            if weight_path is not None:
-                weights.append(_weight(record, weight_path, name, line_no))
         stats.records += len(texts) - blank
         stats.skip("blank_line", blank)
         if keys:

@@ -18,7 +18,7 @@ from hashaudit.errors import InputError
 from hashaudit.keys._kernels import CR, LF, split_lines, split_lines_drop_cr
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.open import SNIFF_BYTES, Readable, sniff_compression
-from hashaudit.keys.records import RecordBatch
+from hashaudit.keys.records import RecordBatch, SourceStats
 
 BLOCK_BYTES = 16 << 20
 """Bytes read per block (tests shrink it to cross block boundaries everywhere)."""
@@ -118,6 +118,20 @@ class _TextCheck:
         if "\x00" in text:
             self._no_nul(region, stream_offset)
 
+    def is_text(self, region: np.ndarray, stream_offset: int) -> bool:
+        """True when ``region`` is UTF-8 without NUL bytes; raises only for a compressed file without its suffix."""
+        try:
+            text, _ = codecs.utf_8_decode(region.data, "strict", True)
+        except UnicodeDecodeError:
+            text = "\x00"
+        if "\x00" not in text:
+            return True
+        kind = sniff_compression(region[:SNIFF_BYTES].tobytes()) if stream_offset == 0 else None
+        if kind is not None:
+            # Not a few bad records but a whole file read the wrong way: skipping would hash garbage.
+            raise InputError(f"{self.name}: starts like {kind} data: give the file its compression suffix")
+        return False
+
     def _no_nul(self, region: np.ndarray, stream_offset: int) -> None:
         nul = np.flatnonzero(region == 0)
         if not len(nul):
@@ -132,6 +146,45 @@ class _TextCheck:
         )
 
 
+def _not_text(data: np.ndarray, offsets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Masks of the keys (lines) that are not valid UTF-8, and of those that hold a NUL byte.
+
+    Only lines with a byte of 0x80 or above go through the UTF-8 decoder (one Python call each): this runs on
+    a block that failed the whole-block check, never on the fast path.
+    """
+    base = int(offsets[0])
+    data = data[base : int(offsets[-1])]
+    offsets = offsets - base
+    flags = (data >= 0x80).view(np.uint8) | ((data == 0).view(np.uint8) << 1)
+    per_line = np.zeros(len(offsets) - 1, dtype=np.uint8)
+    nonempty = np.flatnonzero(np.diff(offsets))
+    if len(nonempty):
+        # Keys are back to back, so the segment from one non-empty key's start to the next one's is that key.
+        per_line[nonempty] = np.bitwise_or.reduceat(flags, offsets[nonempty])
+    bad_utf8 = np.zeros(len(per_line), dtype=bool)
+    for i in np.flatnonzero(per_line & 1).tolist():
+        try:
+            codecs.utf_8_decode(data[offsets[i] : offsets[i + 1]].tobytes(), "strict", True)
+        except UnicodeDecodeError:
+            bad_utf8[i] = True
+    return bad_utf8, (per_line & 2).astype(bool) & ~bad_utf8
+
+
+def _text_lines(block: KeyBatch, first_line: int, batch_keys: int, stats: SourceStats | None) -> Iterator[RecordBatch]:
+    """The lines of a block that are text, numbered; the others counted as skipped records."""
+    bad_utf8, nul = _not_text(block.data, block.offsets)
+    if stats is not None:
+        stats.skip("bad_utf8", int(np.count_nonzero(bad_utf8)))
+        stats.skip("nul_byte", int(np.count_nonzero(nul)))
+        stats.records += int(np.count_nonzero(bad_utf8 | nul))
+    kept = np.flatnonzero(~(bad_utf8 | nul))
+    keys = block.take(kept)
+    numbers = first_line + kept
+    for start in range(0, len(kept), batch_keys):
+        stop = min(start + batch_keys, len(kept))
+        yield RecordBatch(keys.slice(start, stop), int(numbers[start]), numbers[start:stop])
+
+
 def read_lines(
     stream: Readable,
     name: str,
@@ -141,6 +194,8 @@ def read_lines(
     batch_keys: int = 1 << 20,
     hint: str | None = _RAW_HINT,
     block_bytes: int | None = None,
+    skip_bad: bool = False,
+    stats: SourceStats | None = None,
 ) -> Iterator[RecordBatch]:
     """Yield the lines of ``stream`` as keys, in batches of at most ``batch_keys``.
 
@@ -160,6 +215,12 @@ def read_lines(
         Advice appended to the binary / UTF-8 errors.
     block_bytes : int or None
         Bytes per read; default :data:`BLOCK_BYTES`.
+    skip_bad : bool
+        With ``check_text``: drop a line that is not UTF-8 or holds a NUL byte instead of raising (a file that
+        starts like compressed data is still an error). Only a block where the fast whole-block check failed is
+        looked at line by line.
+    stats : SourceStats or None
+        Where dropped lines are counted, as records read and skipped (``bad_utf8``, ``nul_byte``).
 
     Yields
     ------
@@ -192,13 +253,20 @@ def read_lines(
                 continue  # no complete line yet: read on
         region = buf[:end]
         lines = int(np.count_nonzero(region == LF))
+        text = True
         if checker is not None:
-            checker.check(region, line_no, stream_offset)
+            if skip_bad:
+                text = checker.is_text(region, stream_offset)
+            else:
+                checker.check(region, line_no, stream_offset)
         data, offsets = splitter.split(region, lines, eof)
         keys = len(offsets) - 1
-        for start in range(0, keys, batch_keys):
-            stop = min(start + batch_keys, keys)
-            yield RecordBatch(KeyBatch(data, offsets[start : stop + 1]), line_no + start)
+        if text:
+            for start in range(0, keys, batch_keys):
+                stop = min(start + batch_keys, keys)
+                yield RecordBatch(KeyBatch(data, offsets[start : stop + 1]), line_no + start)
+        else:
+            yield from _text_lines(KeyBatch(data, offsets), line_no, batch_keys, stats)
         del data, offsets  # the consumer may keep its batches; this generator need not keep them too
         line_no += keys
         stream_offset += end

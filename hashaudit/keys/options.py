@@ -8,6 +8,7 @@ KEY_FORMATS = ("bytes", "hex", "base64", "int")
 SOURCE_FORMATS = ("auto", "lines", "csv", "tsv", "jsonl", "parquet", "arrow", "sql")
 DRIVERS = ("auto", "adbc", "sqlalchemy")
 INTEGER_FORMATS = ("le64", "decimal")
+ON_BAD_RECORD = ("fail", "skip")
 
 
 @dataclass(frozen=True)
@@ -59,6 +60,14 @@ class SourceOptions:
     weight : str or None
         Delimited and columnar files: the column (name or 0-based index) holding each record's weight; JSON Lines: its dotted
         path. Weights are non-negative numbers (requests, bytes) that the load checks add up.
+    on_bad_record : {"fail", "skip"}
+        What to do with a record that cannot become a key: a JSON Lines line that is not JSON, lacks the field or
+        has a missing, null or invalid weight; a key that ``key_format`` cannot decode; a text line that is not
+        UTF-8 or holds a NUL byte; a delimited, columnar or database row whose weight is missing, null, negative,
+        not finite or not a number. ``fail`` (the default) stops with an error naming the record; ``skip`` drops
+        it and counts it in ``SourceStats.skipped`` as ``bad_json``, ``missing_field``, ``bad_weight``,
+        ``bad_key_format``, ``bad_utf8`` or ``nul_byte``. A row a CSV parser cannot split (ragged, or after an
+        unterminated quote) is an error either way.
     """
 
     format: str = "auto"
@@ -80,3 +89,4 @@ class SourceOptions:
     query: str | None = None
     table: str | None = None
     driver: str = "auto"
+    on_bad_record: str = "fail"

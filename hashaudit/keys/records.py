@@ -22,7 +22,9 @@ class SourceStats:
     empty_keys : int
         Of ``keys``, how many are empty (zero bytes).
     skipped : dict of str to int
-        Records dropped, by reason: ``pattern_no_match``, ``empty``, ``null``, ``blank_line``.
+        Records dropped, by reason: ``pattern_no_match``, ``empty``, ``null``, ``blank_line``; with
+        ``on_bad_record="skip"`` also ``bad_json``, ``missing_field``, ``bad_weight``, ``bad_key_format``,
+        ``bad_utf8`` and ``nul_byte``.
     bytes_read : int
         Bytes taken from the file or pipe (compressed bytes for a compressed file), for progress against
         ``KeyStream.size_bytes``.

@@ -124,7 +124,8 @@ def _key_columns(names: list[str], options: SourceOptions, name: str) -> tuple[l
 
 def _rows_to_batch(rows: list[tuple], keys: list[int], weight: int | None, options: SourceOptions, first: int,
                    stats: SourceStats, name: str) -> RecordBatch | None:  # fmt: skip
-    """Python rows (SQLite, SQLAlchemy) into a record batch; rows with a null key are counted and skipped."""
+    """Python rows (SQLite, SQLAlchemy) into a record batch; rows with a null key are counted and skipped, and so
+    are rows with a bad weight when ``options.on_bad_record`` is ``skip``."""
     join = options.join.encode("utf-8")
     out, numbers, weights = [], [], []
     for offset, row in enumerate(rows):
@@ -132,13 +133,16 @@ def _rows_to_batch(rows: list[tuple], keys: list[int], weight: int | None, optio
         if any(p is None for p in parts):
             stats.skip("null")
             continue
-        out.append(join.join(_value_bytes(p, options.integers) for p in parts))
-        numbers.append(first + offset)
         if weight is not None:
             w = row[weight]
             if isinstance(w, bool) or not isinstance(w, int | float) or not 0 <= w < float("inf"):
+                if options.on_bad_record == "skip":
+                    stats.skip("bad_weight")
+                    continue
                 raise InputError(f"{name} row {first + offset}: weight {options.weight!r} is {w!r}, not a number ≥ 0")
             weights.append(float(w))
+        out.append(join.join(_value_bytes(p, options.integers) for p in parts))
+        numbers.append(first + offset)
     if not out:
         return None
     return RecordBatch(

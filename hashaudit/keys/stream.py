@@ -21,7 +21,7 @@ from hashaudit.keys.open import (
     open_source,
     source_size,
 )
-from hashaudit.keys.options import DRIVERS, INTEGER_FORMATS, SOURCE_FORMATS, SourceOptions
+from hashaudit.keys.options import DRIVERS, INTEGER_FORMATS, ON_BAD_RECORD, SOURCE_FORMATS, SourceOptions
 from hashaudit.keys.records import RecordBatch, SourceStats
 
 _DELIMITED = ("csv", "tsv")
@@ -35,6 +35,8 @@ def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
         raise UsageError(f"batch_keys must be a positive integer, not {options.batch_keys!r}")
     if (options.query or options.table) and fmt != "sql":
         raise UsageError(f"--query and --db-table apply to database sources, but {name} is read as {fmt}")
+    if options.on_bad_record not in ON_BAD_RECORD:
+        raise UsageError(f"--on-bad-record takes {' or '.join(ON_BAD_RECORD)}, not {options.on_bad_record!r}")
     if options.driver not in DRIVERS:
         raise UsageError(f"--db-driver takes {', '.join(DRIVERS)}, not {options.driver!r}")
     if fmt not in (*_DELIMITED, *_COLUMNAR, "sql"):
@@ -91,6 +93,7 @@ class KeyStream:
             self._format = options.format
         _check_options(options, self._format, self._name)
         self._options = options
+        self._skip_bad = options.on_bad_record == "skip"
         self._normaliser = Normaliser(options)
         delimiter = None
         if self._format in _DELIMITED:
@@ -122,6 +125,7 @@ class KeyStream:
             "skip_empty": options.skip_empty,
             "keep_cr": options.keep_cr,
             "raw_bytes": options.raw_bytes,
+            "on_bad_record": options.on_bad_record,
         }
         if self._format == "sql":
             from hashaudit.keys.sql import build_query
@@ -148,10 +152,18 @@ class KeyStream:
         elif self._format == "jsonl":
             from hashaudit.keys.jsonl import read_jsonl
 
-            yield from read_jsonl(stream, self._name, o.field or "", self.stats, o.batch_keys, o.weight)
+            yield from read_jsonl(
+                stream, self._name, o.field or "", self.stats, o.batch_keys, o.weight, skip_bad=self._skip_bad
+            )
         else:
             for records in read_lines(
-                stream, self._name, keep_cr=o.keep_cr, check_text=not o.raw_bytes, batch_keys=o.batch_keys
+                stream,
+                self._name,
+                keep_cr=o.keep_cr,
+                check_text=not o.raw_bytes,
+                batch_keys=o.batch_keys,
+                skip_bad=self._skip_bad,
+                stats=self.stats,
             ):
                 self.stats.records += len(records.keys)
                 yield records

@@ -75,6 +75,7 @@ def test_description_is_json_and_complete(tmp_path):
         "skip_empty": False,
         "keep_cr": False,
         "raw_bytes": False,
+        "on_bad_record": "fail",
     }
     assert stream.size_bytes == 8
 
