@@ -78,7 +78,7 @@ _SOURCE_OPTIONS = [
         "input_format",
         default="auto",
         show_default=True,
-        type=click.Choice(["auto", "lines", "csv", "tsv", "jsonl", "parquet", "arrow"]),
+        type=click.Choice(["auto", "lines", "csv", "tsv", "jsonl", "parquet", "arrow", "sql"]),
         help="Input format (auto: by suffix).",
     ),
     click.option(

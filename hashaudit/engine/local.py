@@ -33,7 +33,7 @@ from hashaudit.stats.shards import BucketLoads, ShardCounts, balance_tests, move
 from hashaudit.tables.growth import GrowthPolicy, insertion_orders, replay_growth
 from hashaudit.tables.prefix import FirstValues
 from hashaudit.tables.schemes import SCHEMES, check_scheme, is_power_of_two
-from hashaudit.tables.shards import DEFAULT_VNODES, ShardLayout
+from hashaudit.tables.shards import DEFAULT_VNODES, MAX_SHARDS, ShardLayout
 from hashaudit.tables.simulate import DEFAULT_LOADS, TABLE_KINDS, kind_fits, simulate
 from hashaudit.tables.sizes import auto_sizes
 from hashaudit.verdict.attribution import load_findings
@@ -133,6 +133,8 @@ class AuditPlan:
             raise UsageError(f"--avalanche-keys must be at least 1, not {self.avalanche_keys}")
         if not 1 <= self.avalanche_bytes <= 4096:
             raise UsageError(f"--avalanche-bytes must be between 1 and 4096, not {self.avalanche_bytes}")
+        if self.distinct and self.distinct_memory < 4 << 20:
+            raise UsageError(f"--distinct-memory must be at least 4 MiB, not {self.distinct_memory:,} bytes")
         if self.collision_memory < 0:
             raise UsageError(f"--collision-memory must not be negative, not {self.collision_memory}")
         if self.spill_dir is not None and not os.path.isdir(self.spill_dir):
@@ -157,6 +159,8 @@ class AuditPlan:
                 raise UsageError("the shard checks need --shards N")
             object.__setattr__(self, "checks", tuple(g for g in self.checks if g != "shards"))  # e.g. from "all"
         for n in self.shards:
+            if not 1 <= n <= MAX_SHARDS:
+                raise UsageError(f"--shards must be between 1 and {MAX_SHARDS:,}, not {n:,}")
             for scheme in self.shard_schemes:
                 ShardLayout(scheme, n, self.shard_weights, self.vnodes)  # raises on a bad combination
         if not self.loads or not all(0 < x < 1 for x in self.loads):

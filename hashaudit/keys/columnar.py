@@ -166,5 +166,5 @@ def read_columnar(path: str, fmt: str, options: SourceOptions, stats: SourceStat
             if records is not None:
                 yield records
             rows += batch.num_rows
-    except pa.ArrowException as exc:
+    except (pa.ArrowException, OSError) as exc:
         raise InputError(f"{path}: {' '.join(str(exc).split())} (after row {rows})") from None

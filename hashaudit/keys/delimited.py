@@ -172,7 +172,7 @@ def read_delimited(
         (weight,) = resolve_columns((options.weight,), names, options.header, name)
         if weight in columns:
             raise UsageError(f"--weight-column {options.weight!r} is also a key column")
-    wanted = list(dict.fromkeys(columns + ([weight] if weight else [])))
+    wanted = list(dict.fromkeys(columns + ([weight] if weight is not None else [])))
     skip_bad = options.on_bad_record == "skip"
     reader_options = pa_csv.ReadOptions(block_size=CSV_BLOCK_BYTES, autogenerate_column_names=not options.header)
     parse_options = pa_csv.ParseOptions(

@@ -246,6 +246,10 @@ def keys_for_even_odds(m: int | float) -> int:
         return keys
     threshold = -math.log(2.0)
     keys = math.ceil(0.5 + math.sqrt(0.25 + 2.0 * buckets * math.log(2.0)))
+    if buckets > 2**100:
+        # log Q of neighbouring n differ by about n/m < 2^-50 here, below its rounding: the asymptotic value (whose
+        # relative error is below 1/sqrt(m)) is as exact as floating point allows
+        return keys
     while keys > 2 and log_p_no_collision(buckets, keys - 1) <= threshold:
         keys -= 1
     while log_p_no_collision(buckets, keys) > threshold:

@@ -137,13 +137,15 @@ class ShardLayout:
     def __post_init__(self) -> None:
         if self.scheme not in SHARD_SCHEMES:
             raise UsageError(f"unknown shard scheme {self.scheme!r}; choose from {', '.join(SHARD_SCHEMES)}")
-        if not 1 <= self.shards <= MAX_SHARDS:
+        if not 1 <= self.shards <= 2 * MAX_SHARDS:  # the movement check also lays out N + 1 and 2N shards
             raise UsageError(f"--shards must be between 1 and {MAX_SHARDS:,}, not {self.shards}")
         if self.weights:
             if len(self.weights) != self.shards:
                 raise UsageError(f"--shard-weights gives {len(self.weights)} weights for {self.shards} shards")
             if not all(math.isfinite(w) and w > 0 for w in self.weights):
                 raise UsageError("--shard-weights must all be positive numbers")
+            if min(self.weights) < 1e-6 * max(self.weights):
+                raise UsageError("--shard-weights: the smallest weight must be at least a millionth of the largest")
             if self.scheme in ("mod", "jump"):
                 raise UsageError(f"the {self.scheme} scheme cannot weight shards; use rendezvous or ring")
         if not 1 <= self.vnodes <= 1 << 16:

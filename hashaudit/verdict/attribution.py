@@ -44,6 +44,8 @@ def load_findings(states: list[Any], heavy: HeavyKeys, thresholds: Thresholds, s
         spec = state.spec
         values = spec.hash_batch(KeyBatch.from_keys([k for k, _ in top]), seed if spec.seeded else 0) if top else None
         for counts in state.shards:
+            if float(counts.load_.sum()) <= 0:  # every weight zero: no load to attribute
+                continue
             where = counts.layout.assign(values, spec.width) if values is not None else np.zeros(0, np.int64)
             placed = [(key, load, int(s)) for (key, load), s in zip(top, where.tolist(), strict=True)]
             a = attribute_load(counts, placed, float(counts.load_.sum()))

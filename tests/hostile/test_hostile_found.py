@@ -1,8 +1,7 @@
-"""Reproducers of the crashes, hangs and wrong messages the hostile inputs found, one test each.
-
-Each is marked ``xfail(strict=True)`` until the library is fixed: the mark's reason says what happens today, and a
-fix makes the test pass, which fails the run until the mark is removed.
-"""
+"""Reproducers of the crashes, hangs and wrong messages the hostile inputs found, one test each — all fixed now:
+a corrupt Parquet page or Arrow batch, a weight column with an empty header, weights all zero, --distinct-memory 0,
+a subnormal shard weight, the largest shard count, --format sql, and the birthday bound of very wide hashes or tiny
+load factors (which looped forever)."""
 
 from __future__ import annotations
 
@@ -15,11 +14,6 @@ import pytest
 from hostile_cli import QUICK, expect_clean, run
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="a corrupt Parquet page raises OSError while iterating; read_columnar catches only ArrowException, so "
-    "the one-line error ('Corrupt snappy compressed data.') does not name the file",
-)
 def test_corrupt_parquet_page_names_the_file(tmp_path):
     whole = tmp_path / "whole.parquet"
     pq.write_table(pa.table({"k": [f"key-{i}" for i in range(5000)]}), whole, compression="snappy")
@@ -31,11 +25,6 @@ def test_corrupt_parquet_page_names_the_file(tmp_path):
     assert str(broken) in line
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="a corrupt record batch in an Arrow IPC file raises OSError ('Invalid flatbuffers message.') outside "
-    "read_columnar's ArrowException handler, so the error line does not name the file",
-)
 def test_corrupt_arrow_batch_names_the_file(tmp_path):
     whole = tmp_path / "whole.arrow"
     feather.write_feather(pa.table({"k": [f"key-{i}" for i in range(5000)]}), whole)
@@ -47,11 +36,6 @@ def test_corrupt_arrow_batch_names_the_file(tmp_path):
     assert str(broken) in line
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="read_delimited builds its column list with `if weight` instead of `if weight is not None`, so a weight "
-    "column whose header is empty is never read: internal error KeyError 'Field \"\" does not exist in schema'",
-)
 def test_csv_weight_column_with_an_empty_header_name(tmp_path):
     source = tmp_path / "w.csv"
     source.write_bytes(b"k,\na,1\nb,2\n")
@@ -60,11 +44,6 @@ def test_csv_weight_column_with_an_empty_header_name(tmp_path):
     assert code in (0, 1)
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="every weight 0: the shard load check divides by the total load (RuntimeWarning, then internal error "
-    "ZeroDivisionError: float division by zero)",
-)
 def test_all_weights_zero(tmp_path):
     source = tmp_path / "w.csv"
     source.write_bytes(b"k,w\na,0\nb,0\n")
@@ -73,7 +52,6 @@ def test_all_weights_zero(tmp_path):
     assert code in (0, 1) or "weight" in line
 
 
-@pytest.mark.xfail(strict=True, reason="--distinct-memory 0 is an internal error (ZeroDivisionError); 1 is refused")
 def test_distinct_memory_zero(tmp_path):
     source = tmp_path / "keys.txt"
     source.write_bytes(b"a\nb\n")
@@ -82,11 +60,6 @@ def test_distinct_memory_zero(tmp_path):
     assert "--distinct-memory" in line or "memory budget" in line
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="a subnormal capacity weight (1e-320) overflows (1 - share) / (n * share) in the shard checks: "
-    "RuntimeWarning on stderr (an internal error where warnings are errors) and an infinite expected maximum",
-)
 def test_subnormal_shard_weight(tmp_path):
     source = tmp_path / "keys.txt"
     source.write_bytes(b"".join(b"k%d\n" % i for i in range(500)))
@@ -95,11 +68,6 @@ def test_subnormal_shard_weight(tmp_path):
     assert code in (0, 1) or "--shard-weights" in line
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="--shards 65536 is refused with 'must be between 1 and 65,536, not 65537': the limit counts the extra "
-    "shard of the movement check, and the message quotes a value the user did not give",
-)
 def test_largest_documented_shard_count(tmp_path):
     source = tmp_path / "keys.txt"
     source.write_bytes(b"".join(b"k%d\n" % i for i in range(500)))
@@ -107,10 +75,6 @@ def test_largest_documented_shard_count(tmp_path):
     assert code in (0, 1) or line.replace(",", "").endswith("not 65536")
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="README documents --format ...|sql, but the CLI's --format choice has no 'sql' (click usage error)",
-)
 def test_format_sql_as_documented(tmp_path):
     import sqlite3
 
@@ -146,21 +110,12 @@ needs_alarm = pytest.mark.skipif(not hasattr(signal, "setitimer"), reason="needs
 
 
 @needs_alarm
-@pytest.mark.xfail(
-    strict=True,
-    reason="keys_for_even_odds(m) never returns for m above about 2^140: its step to the exact birthday bound "
-    "needs differences of log Q below rounding error; reached by plan --hash-width 160..512 (accepted up to 512)",
-)
 def test_plan_with_a_wide_hash_finishes():
     code, _ = expect_clean(_plan_within(["-n", "1000", "-m", "1000", "--hash-width", "160"]), usage_ok=True)
     assert code == 0
 
 
 @needs_alarm
-@pytest.mark.xfail(
-    strict=True,
-    reason="plan --load 1e-40 asks for a table of 1e43 slots; keys_for_even_odds loops forever on it",
-)
 def test_plan_with_a_tiny_load_factor_finishes():
     code, _ = expect_clean(_plan_within(["-n", "1000", "--load", "1e-40"]), usage_ok=True)
     assert code in (0, 2)
