@@ -126,9 +126,11 @@ def _partition_batches(part: _Partition, stats: SourceStats):  # type: ignore[no
     stats.bytes_read = (part.end or 0) - part.start
     o = part.options
     normaliser = Normaliser(o)
+    skip = o.on_bad_record == "skip"
     for records in read_lines(io.BytesIO(data), part.source, keep_cr=o.keep_cr, check_text=not o.raw_bytes,
-                              batch_keys=o.batch_keys):  # fmt: skip
-        stats.records += len(records.keys)
+                              batch_keys=o.batch_keys, skip_bad=skip, stats=stats if skip else None):  # fmt: skip
+        if not skip:  # with skip_bad, read_lines counts the records itself
+            stats.records += len(records.keys)
         if not normaliser.is_identity:
             records = normaliser.apply(records, stats, lambda r: f"{part.source} line {r} of a partition")
         keys = records.keys

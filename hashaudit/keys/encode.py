@@ -7,6 +7,10 @@ the same as dropping them after it for hex and base64 (empty text decodes to an 
 
 hex, strip, lowercase and int run numba kernels and skip_empty is a numpy mask; pattern and base64 make one
 Python call per key (the regular expression engine and :mod:`binascii` work on one string at a time).
+
+With ``on_bad_record="skip"`` a key its format cannot decode is dropped (counted as ``bad_key_format``) instead of
+stopping the read. A batch is first decoded as usual; only a batch that fails is sorted into good and bad keys
+(a numpy mask for hex, the integer kernel resumed after each bad key, one pass for base64).
 """
 
 from __future__ import annotations
@@ -85,6 +89,14 @@ def decode_hex(batch: KeyBatch) -> KeyBatch:
     return KeyBatch(decoded, offsets // 2)
 
 
+def _base64_key(key: bytes) -> bytes:
+    """One key decoded from base64 (either alphabet, padding optional); raises :class:`binascii.Error`."""
+    text = key.translate(_URLSAFE_TO_STANDARD)
+    if len(text) % 4 == 1:
+        raise binascii.Error("a length of 4k + 1 characters is impossible")
+    return binascii.a2b_base64(text + b"=" * (-len(text) % 4), strict_mode=True)
+
+
 def decode_base64(batch: KeyBatch) -> KeyBatch:
     """Decode every key from base64 (RFC 4648 section 4 or 5 alphabet, padding optional).
 
@@ -97,11 +109,8 @@ def decode_base64(batch: KeyBatch) -> KeyBatch:
     """
     decoded = []
     for i, key in enumerate(batch.to_list()):
-        text = key.translate(_URLSAFE_TO_STANDARD)
         try:
-            if len(text) % 4 == 1:
-                raise binascii.Error("a length of 4k + 1 characters is impossible")
-            decoded.append(binascii.a2b_base64(text + b"=" * (-len(text) % 4), strict_mode=True))
+            decoded.append(_base64_key(key))
         except binascii.Error as exc:
             raise KeyValueError(i, f"not base64 ({exc}): {quote_key(key)}") from None
     return KeyBatch.from_keys(decoded)
@@ -235,22 +244,7 @@ def _int_decodable(batch: KeyBatch) -> np.ndarray:
     return good
 
 
-def _base64_decodable(batch: KeyBatch) -> np.ndarray:
-    """Mask of the keys :func:`decode_base64` accepts (one Python call per key, as decoding itself)."""
-    good = np.ones(len(batch), dtype=bool)
-    for i in range(len(batch)):
-        try:
-            decode_base64(batch.slice(i, i + 1))
-        except KeyValueError:
-            good[i] = False
-    return good
-
-
-_DECODABLE: dict[str, Callable[[KeyBatch], np.ndarray]] = {
-    "hex": _hex_decodable,
-    "base64": _base64_decodable,
-    "int": _int_decodable,
-}
+_DECODABLE: dict[str, Callable[[KeyBatch], np.ndarray]] = {"hex": _hex_decodable, "int": _int_decodable}
 
 
 def apply_key_format_skipping(batch: KeyBatch, key_format: str) -> tuple[KeyBatch, np.ndarray | None]:
@@ -263,6 +257,15 @@ def apply_key_format_skipping(batch: KeyBatch, key_format: str) -> tuple[KeyBatc
         return apply_key_format(batch, key_format), None
     except KeyValueError:
         pass
+    if key_format == "base64":  # decoded key by key anyway: keep the good ones in the same pass
+        decoded, positions = [], []
+        for i, key in enumerate(batch.to_list()):
+            try:
+                decoded.append(_base64_key(key))
+            except binascii.Error:
+                continue
+            positions.append(i)
+        return KeyBatch.from_keys(decoded), np.asarray(positions, dtype=np.int64)
     kept = np.flatnonzero(_DECODABLE[key_format](batch))
     return apply_key_format(batch.take(kept), key_format), kept
 

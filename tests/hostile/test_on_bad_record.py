@@ -449,3 +449,16 @@ def test_gate_file_takes_on_bad_record(tmp_path):
     code, line = expect_clean(run(["gate", "--config", str(config)]))
     assert code == 2
     assert "'on_bad_record' in [sources] must be str, not bool" in line
+
+
+def test_dask_partitions_skip_bad_lines_too(tmp_path):
+    pytest.importorskip("dask")
+    from hashaudit.engine.distributed import _partition_batches, plan_partitions
+
+    path = tmp_path / "k.txt"
+    path.write_bytes(b"a\nb\xff\nc\n")
+    (part,) = plan_partitions([str(path)], [SourceOptions(on_bad_record=SKIP)], 1 << 20)
+    stats = SourceStats()
+    keys = [key for batch in _partition_batches(part, stats) for key in batch.to_list()]
+    assert keys == [b"a", b"c"]
+    assert stats.skipped == {"bad_utf8": 1}
