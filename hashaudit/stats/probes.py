@@ -141,11 +141,8 @@ def probe_tests(cells: list[ProbeCell], ideal: list[ProbeCell], scheme: str) -> 
         row["insert_probes"] = cell.insert_probes
         row["insert_worst"] = cell.insert_worst
         rows.append(row)
-    excess, cell, twin, search, t, p_up, p_low = _worst_cell(pairs)
-    k = len(p_up)
-    mine, best = getattr(cell, f"{search}_mean"), getattr(twin, f"{search}_mean")
-    lookup = "successful" if search == "hit" else "unsuccessful"
-    effect = Effect("probe_cost_excess", excess, mine, best, f"probes per {lookup} lookup")
+    worst = _worst_cell(pairs)
+    cell, search = worst[1], worst[3]
     details = {
         "table_kind": cell.kind,
         "load": cell.load,
@@ -154,20 +151,29 @@ def probe_tests(cells: list[ProbeCell], ideal: list[ProbeCell], scheme: str) -> 
         "scheme": scheme,
         "loads": rows,
     }
-    method = f"Welch t on {len(cell.hit_regions)} region means per cell against random values, Bonferroni over {k}"
-    return [
-        FitTest(
-            "probe_cost",
-            float(t) if math.isfinite(t) else 0.0,
-            best,
-            mine,
-            min(1.0, k * min(p_up)),
-            min(1.0, k * min(p_low)),
-            method,
-            effect,
-            details,
-        )
-    ]
+    method = f"Welch t on {len(cell.hit_regions)} region means per cell against random values"
+    return [_cost_test("probe_cost", worst, method, details)]
+
+
+def _cost_test(name: str, worst: tuple, method: str, details: dict) -> FitTest:
+    """The test of the costliest cell found by ``_worst_cell``: its excess as the effect, the smallest cell p-value
+    times the number of cells (Bonferroni) as the p-value."""
+    excess, cell, twin, search, t, p_up, p_low = worst
+    k = len(p_up)
+    mine, best = getattr(cell, f"{search}_mean"), getattr(twin, f"{search}_mean")
+    lookup = "successful" if search == "hit" else "unsuccessful"
+    effect = Effect("probe_cost_excess", excess, mine, best, f"probes per {lookup} lookup")
+    return FitTest(
+        name,
+        float(t) if math.isfinite(t) else 0.0,
+        best,
+        mine,
+        min(1.0, k * min(p_up)),
+        min(1.0, k * min(p_low)),
+        f"{method}, Bonferroni over {k}",
+        effect,
+        details,
+    )
 
 
 def _worst_cell(
@@ -204,10 +210,8 @@ def growth_tests(observed: GrowthResult, ideal: GrowthResult) -> list[FitTest]:
     ]
     if not pairs:
         return []
-    excess, cell, twin, search, t, p_up, p_low = _worst_cell(pairs)
-    k = len(p_up)
-    mine, best = getattr(cell, f"{search}_mean"), getattr(twin, f"{search}_mean")
-    lookup = "successful" if search == "hit" else "unsuccessful"
+    worst = _worst_cell(pairs)
+    cell, search = worst[1], worst[3]
     details = {
         "table_kind": observed.kind,
         "load": round(cell.load, 6),
@@ -221,21 +225,8 @@ def growth_tests(observed: GrowthResult, ideal: GrowthResult) -> list[FitTest]:
             "rehash_probes": ideal.rehash_probes,
         },
     }
-    method = f"Welch t on region means at each worst moment against random values, Bonferroni over {k}"
-    effect = Effect("probe_cost_excess", excess, mine, best, f"probes per {lookup} lookup")
-    return [
-        FitTest(
-            "growth_cost",
-            float(t) if math.isfinite(t) else 0.0,
-            best,
-            mine,
-            min(1.0, k * min(p_up)),
-            min(1.0, k * min(p_low)),
-            method,
-            effect,
-            details,
-        )
-    ]
+    method = "Welch t on region means at each worst moment against random values"
+    return [_cost_test("growth_cost", worst, method, details)]
 
 
 def order_tests(
