@@ -2,9 +2,7 @@
 
 from __future__ import annotations
 
-import contextlib
 import gzip
-import io
 import json
 import subprocess
 import sys
@@ -12,28 +10,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from cli_runner import run
 from click.testing import CliRunner
 
-from hashaudit.cli import cli, main
+from hashaudit.cli import cli
 
 CONTRACT = Path(__file__).resolve().parents[3] / "shared" / "contract" / "check_report.py"
-
-
-def run(args: list[str], stdin: bytes | None = None) -> tuple[int, str, str]:
-    """Run ``main`` in-process the way the console script does; return (exit code, stdout, stderr)."""
-    out, err = io.StringIO(), io.StringIO()
-    saved = sys.stdin
-    sys.stdin = io.TextIOWrapper(io.BytesIO(stdin or b""))
-    try:
-        with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-            try:
-                main(args)
-                code = 0
-            except SystemExit as exc:
-                code = exc.code if isinstance(exc.code, int) else 2
-    finally:
-        sys.stdin = saved
-    return code, out.getvalue(), err.getvalue()
 
 
 @pytest.fixture(scope="module")

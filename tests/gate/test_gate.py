@@ -3,13 +3,10 @@
 from __future__ import annotations
 
 import json
-import sys
 from pathlib import Path
 
 import pytest
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "cli"))
-from test_cli import run  # noqa: E402  (the in-process runner of the command line tests)
+from cli_runner import run
 
 ROOT = Path(__file__).resolve().parents[2]
 SAMPLE = ROOT / "sample_keys" / "crate_ids.txt"

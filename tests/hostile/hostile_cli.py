@@ -7,35 +7,15 @@ exactly one line on standard error that names the source and says what is wrong 
 
 from __future__ import annotations
 
-import contextlib
 import importlib.util
-import io
 import json
-import sys
 from pathlib import Path
 from typing import Any
 
-from hashaudit.cli import main
+from cli_runner import run  # noqa: F401  (re-exported for the tests of this folder)
 
 CONTRACT = Path(__file__).resolve().parents[3] / "shared" / "contract" / "check_report.py"
 QUICK = ["-H", "xxh3_64", "-m", "2^10"]
-
-
-def run(args: list[str], stdin: bytes | None = None) -> tuple[int, str, str]:
-    """Run ``main`` in-process the way the console script does; return (exit code, stdout, stderr)."""
-    out, err = io.StringIO(), io.StringIO()
-    saved = sys.stdin
-    sys.stdin = io.TextIOWrapper(io.BytesIO(stdin or b""))
-    try:
-        with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-            try:
-                main(args)
-                code = 0
-            except SystemExit as exc:
-                code = exc.code if isinstance(exc.code, int) else 2
-    finally:
-        sys.stdin = saved
-    return code, out.getvalue(), err.getvalue()
 
 
 def _contract_problems() -> Any:
