@@ -13,6 +13,9 @@ boundaries (a line belongs to the range where it starts), and whole files for th
    counts). A key and its repeats share a fingerprint, so they always meet in one group.
 3. **Merge**: partial states are merged pairwise in a tree (not all on one worker), and the client concludes with
    the local engine's own tests of fit — so the JSON report is the local engine's, apart from run metadata.
+4. **Settle the heavy keys** (only when the merged heavy-key summary has cut counts and some kept key may exceed
+   its floor): every partition is read again to count the kept keys exactly (``HeavyCounts``), as the local engine
+   does, so the heavy-key figures do not depend on the order partial summaries merged in.
 
 Where a check needs one machine: the full-width collision values of each hash (8 bytes per distinct key; 16 for
 128-bit functions) and the values kept for the simulated tables (at most ``AUTO_TABLE_SLOTS`` or
@@ -37,6 +40,7 @@ from hashaudit.hashes.registry import REGISTRY
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.options import SourceOptions
 from hashaudit.keys.records import SourceStats
+from hashaudit.stats.heavy import HeavyCounts
 from hashaudit.verdict.result import AuditResult
 
 PARTITION_BYTES = 64 << 20
@@ -294,9 +298,21 @@ def _merge(a: _Partial, b: _Partial) -> _Partial:
     return a
 
 
-def _tree_merge(client: Any, futures: list) -> Any:
+def _count_heavy(part: _Partition, summary: Any) -> Any:
+    """The exact counts of the heavy-key summary's keys in one partition (a second read, to settle them)."""
+    counted = HeavyCounts(summary)
+    for batch in _partition_batches(part, SourceStats()):
+        counted.update(batch, batch.weights)
+    return counted
+
+
+def _add_counts(a: Any, b: Any) -> Any:
+    return a.merge(b)
+
+
+def _tree_merge(client: Any, futures: list, merge: Any = _merge) -> Any:
     while len(futures) > 1:
-        paired = [client.submit(_merge, futures[i], futures[i + 1]) for i in range(0, len(futures) - 1, 2)]
+        paired = [client.submit(merge, futures[i], futures[i + 1]) for i in range(0, len(futures) - 1, 2)]
         futures = paired + ([futures[-1]] if len(futures) % 2 else [])
     return futures[0]
 
@@ -325,6 +341,7 @@ def audit_dask(
     if not plan.distinct:
         raise UsageError("the dask engine tells distinct keys apart; --all-keys runs on the local engine")
     started = time.perf_counter()
+    reads = 1
     parts = plan_partitions(list(sources), per_source, partition_bytes)
     descriptions = [open_keys(s, o).description for s, o in zip(sources, per_source, strict=True)]
     cluster = None if scheduler else LocalCluster(n_workers=workers, threads_per_worker=1, processes=True)
@@ -343,6 +360,14 @@ def audit_dask(
         ]
         partials = [client.submit(_partial_of, f) for f in first]
         total = _tree_merge(client, groups + partials).result()
+        if total.heavy is not None and not total.heavy.exact:  # settle its counts: a second read of every partition
+            if total.heavy.prune():
+                summary = client.scatter(total.heavy, broadcast=True)
+                counted = [client.submit(_count_heavy, part, summary, pure=False) for part in parts]
+                total.heavy.settle(_tree_merge(client, counted, _add_counts).result())
+                reads = 2
+            else:
+                total.heavy.settle(HeavyCounts(total.heavy))
     finally:
         client.close()
         if cluster is not None:
@@ -362,7 +387,7 @@ def audit_dask(
     hash_seconds = {name: 0.0 for name in plan.hashes}
     result = _conclude(
         total.states, plan, total.distinct, total.occurrences, tuple(described), started, hash_seconds,
-        total.sample, 1, total.heavy,
+        total.sample, reads, total.heavy,
     )  # fmt: skip
     result.run["engine"] = "dask"
     result.run["partitions"] = len(parts)

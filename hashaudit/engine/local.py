@@ -27,7 +27,7 @@ from hashaudit.stats.bits import BitCounts
 from hashaudit.stats.buckets import BucketCounts, BucketCountsResult
 from hashaudit.stats.collisions import FullCollisions
 from hashaudit.stats.distinct import BYTES_PER_DISTINCT, DEFAULT_MEMORY_BYTES, DistinctBudgetError, DistinctKeys
-from hashaudit.stats.heavy import HeavyKeys
+from hashaudit.stats.heavy import HeavyCounts, HeavyKeys
 from hashaudit.stats.outcome import Effect, FitTest
 from hashaudit.stats.shards import BucketLoads, ShardCounts, balance_tests, movement_tests
 from hashaudit.tables.growth import GrowthPolicy, insertion_orders, replay_growth
@@ -353,6 +353,8 @@ def audit_batches(
 
     loading = [True]
     heavy = HeavyKeys() if "shards" in plan.checks else None
+    counting: list[HeavyCounts | None] = [None]  # the heavy keys' exact counts, taken in a second read
+    extra_reads = 0
     wants_sample = any(group in plan.checks for group in ("avalanche", "neighbours", "seeds"))
     sample = KeySample(plan.avalanche_keys, plan.seed) if wants_sample else None
     pool = ThreadPoolExecutor(max_workers=lanes - 1, thread_name_prefix="hashaudit-hash") if lanes > 1 else None
@@ -379,6 +381,8 @@ def audit_batches(
                 filling.update(batch)
             if heavy is not None and sampling:
                 heavy.update(batch, batch.weights)
+            if counting[0] is not None:
+                counting[0].update(batch, batch.weights)
             first = distinct.update(batch) if distinct is not None else None
             if first is not None and first.all():
                 first = None  # nothing to drop: skip the copy
@@ -424,8 +428,11 @@ def audit_batches(
             distinct_total = 0
             try:
                 occurrences = 0
+                counting[0] = None
                 for part in range(parts):
                     distinct = DistinctKeys(plan.distinct_memory, part, parts) if plan.distinct else None
+                    if part == 1 and heavy is not None and not heavy.exact and heavy.prune():
+                        counting[0] = HeavyCounts(heavy)  # the second read settles the heavy keys' counts too
                     read = one_pass(stream if part == 0 else reopen(), distinct, sampling=part == 0)  # type: ignore[misc]
                     occurrences = occurrences or read
                     distinct_total += distinct.distinct_ if distinct is not None else 0
@@ -455,13 +462,24 @@ def audit_batches(
             pool.shutdown(wait=True)
     if occurrences == 0:
         raise UsageError("no keys to audit")
+    if heavy is not None and not heavy.exact:
+        if counting[0] is None and not heavy.prune():
+            counting[0] = HeavyCounts(heavy)  # no kept key can be above the floor: nothing to read again for
+        again = reopen or ((lambda: batches) if isinstance(batches, list | tuple) else None)
+        if counting[0] is None and again is not None:
+            counted = counting[0] = HeavyCounts(heavy)
+            for batch in prefetch(again()) if read_ahead else again():
+                counted.update(batch, batch.weights)
+            extra_reads = 1
+        if counting[0] is not None:
+            heavy.settle(counting[0])
     total = distinct_total if plan.distinct else occurrences
     if split_keys:
         states = _merge_lanes(lane_states)
     else:
         order = [spec.name for spec in specs]
         states = sorted((st for lane in lane_states for st in lane), key=lambda st: order.index(st.spec.name))
-    settings_parts = parts
+    settings_parts = parts + extra_reads
     return _conclude(states, plan, total, occurrences, sources, started, hash_seconds, sample, settings_parts, heavy)
 
 
@@ -732,7 +750,8 @@ def _conclude(
         "seconds": round(seconds, 3),
         "keys_per_second": round(total / seconds) if seconds > 0 else None,
         "hash_seconds": {k: round(v, 3) for k, v in hash_seconds.items()},
-        "passes": passes,  # reads of the input: more than one when the distinct keys outgrew --distinct-memory
+        "passes": passes,  # reads of the input: more when the distinct keys outgrew --distinct-memory or to settle
+        # the heavy keys' counts
         "platform": sys.platform,
     }
     return AuditResult(overall, total, tuple(hash_audits), tuple(sources), settings, run, occurrences, plots)

@@ -10,6 +10,12 @@ with another the same way, so it streams and partitions like every accumulator (
 The bytes of each kept key are held so the report can place it on a shard under every hash function audited;
 they appear in no report unless ``--show-keys`` is given.
 
+Once the summary has cut counts, its lower bounds depend on the order the keys came in (batch boundaries, the order
+partial summaries merge in). When the input can be read again, a further pass settles them: :class:`HeavyCounts`
+counts the kept keys exactly, and :meth:`HeavyKeys.settle` keeps those whose exact count exceeds W / (capacity + 1).
+Every such key is among the kept ones whatever the order (the guarantee above), so the settled list — every key
+heavier than that floor, with its exact count — depends on the input alone.
+
 References
 ----------
 J. Misra, D. Gries, "Finding repeated elements", Science of Computer Programming 2 (1982) 143-152.
@@ -67,6 +73,34 @@ def _aggregate(prints, weights, old_prints, old_counts, keys, sums, first, used)
     return count
 
 
+@njit(cache=True, nogil=True)
+def _place(prints, slots):  # pragma: no cover - compiled
+    """Index ``prints`` in the open-addressing table ``slots`` (-1 = empty; linear probing)."""
+    mask = uint64(slots.shape[0] - 1)
+    for i in range(prints.shape[0]):
+        slot = ((prints[i] * uint64(0x9E3779B97F4A7C15)) >> uint64(40)) & mask
+        while slots[slot] != -1:
+            slot = (slot + uint64(1)) & mask
+        slots[slot] = i
+
+
+@njit(cache=True, nogil=True)
+def _count(prints, weights, weighted, kept, slots, counts):  # pragma: no cover - compiled
+    """Add 1 (or the weight) to ``counts[j]`` for every print equal to ``kept[j]``."""
+    mask = uint64(slots.shape[0] - 1)
+    for i in range(prints.shape[0]):
+        p = prints[i]
+        slot = ((p * uint64(0x9E3779B97F4A7C15)) >> uint64(40)) & mask
+        while True:
+            j = slots[slot]
+            if j == -1:
+                break
+            if kept[j] == p:
+                counts[j] += weights[i] if weighted else 1.0
+                break
+            slot = (slot + uint64(1)) & mask
+
+
 class HeavyKeys:
     """Misra–Gries summary of the heaviest keys.
 
@@ -83,6 +117,7 @@ class HeavyKeys:
         self.keys_: dict[int, bytes] = {}
         self.total_ = 0.0
         self.error_ = 0.0
+        self.floor_ = 0.0  # once settled: every key above this count is listed, with its exact count
         self._keys = np.zeros(0, dtype=np.uint64)
         self._sums = np.zeros(0, dtype=np.float64)
         self._first = np.zeros(0, dtype=np.int64)
@@ -148,8 +183,64 @@ class HeavyKeys:
 
     @property
     def exact(self) -> bool:
-        """True when no count was ever cut: every kept count is exact."""
+        """True when every kept count is exact: none was ever cut, or a further pass settled them."""
         return self.error_ == 0
+
+    def prune(self) -> bool:
+        """Drop the keys that cannot be heavier than W / (capacity + 1) (a kept count is low by at most ``error_``);
+        True when some remain, whose exact counts a further read must take."""
+        keep = self.counts_ + self.error_ > self.total_ / (self.capacity + 1)
+        if not keep.all():
+            self.prints_, self.counts_ = self.prints_[keep], self.counts_[keep]
+            kept = set(self.prints_.tolist())
+            self.keys_ = {p: k for p, k in self.keys_.items() if p in kept}
+        return bool(len(self.prints_))
+
+    def settle(self, counted: HeavyCounts) -> HeavyKeys:
+        """Replace the lower bounds with the exact counts of a further pass over the same input, keeping the keys
+        heavier than W / (capacity + 1); a summary that never cut a count is left as it is."""
+        if self.exact:
+            return self
+        if not np.array_equal(counted.prints_, self.prints_):
+            raise MergeError("the exact counts are not those of this summary's keys")
+        floor = self.total_ / (self.capacity + 1)
+        keep = counted.counts_ > floor
+        self.prints_, self.counts_ = self.prints_[keep], counted.counts_[keep].copy()
+        kept = set(self.prints_.tolist())
+        self.keys_ = {p: k for p, k in self.keys_.items() if p in kept}
+        self.error_, self.floor_ = 0.0, floor
+        return self
+
+
+class HeavyCounts:
+    """Exact occurrences (or weights) of the keys a :class:`HeavyKeys` summary kept, counted in a further pass over
+    the input; merges like every accumulator (the counts add up)."""
+
+    def __init__(self, summary: HeavyKeys) -> None:
+        self.prints_ = summary.prints_.copy()  # sorted: HeavyKeys keeps its prints in ascending order
+        self.counts_ = np.zeros(len(self.prints_), dtype=np.float64)
+        self._slots: np.ndarray | None = None  # an open-addressing index of the prints, made on first use
+
+    def update(self, batch: KeyBatch, weights: np.ndarray | None = None) -> HeavyCounts:
+        """Add the occurrences (or weights) in ``batch`` of the counted keys."""
+        from hashaudit.hashes.xxh import xxh3_64
+
+        if len(batch) == 0 or len(self.prints_) == 0:
+            return self
+        if self._slots is None:
+            size = 1 << max(4, (4 * len(self.prints_) - 1).bit_length())  # load at most 1/4: short probes
+            self._slots = np.full(size, -1, dtype=np.int64)
+            _place(self.prints_, self._slots)
+        prints = xxh3_64(batch, FINGERPRINT_SEED)
+        w = np.ones(0) if weights is None else np.ascontiguousarray(weights, dtype=np.float64)
+        _count(prints, w, weights is not None, self.prints_, self._slots, self.counts_)
+        return self
+
+    def merge(self, other: HeavyCounts) -> HeavyCounts:
+        if not isinstance(other, HeavyCounts) or not np.array_equal(other.prints_, self.prints_):
+            raise MergeError("cannot merge exact counts of different keys")
+        self.counts_ += other.counts_
+        return self
 
 
 def _key_bytes(batch: KeyBatch, i: int) -> bytes:

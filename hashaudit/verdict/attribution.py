@@ -17,7 +17,7 @@ import numpy as np
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.stats.heavy import HeavyKeys
 from hashaudit.stats.outcome import Effect
-from hashaudit.stats.shards import attribute_load
+from hashaudit.stats.shards import attribute_load, rounded
 from hashaudit.verdict.findings import Finding, Thresholds
 
 HEAVY_SHOWN = 20  # the heaviest keys placed on shards for the attribution
@@ -50,7 +50,10 @@ def load_findings(states: list[Any], heavy: HeavyKeys, thresholds: Thresholds, s
             placed = [(key, load, int(s)) for (key, load), s in zip(top, where.tolist(), strict=True)]
             a = attribute_load(counts, placed, float(counts.load_.sum()))
             a["heavy_keys_exact"] = heavy.exact
-            a["heavy_count_error"] = heavy.error_
+            a["heavy_count_error"] = rounded(heavy.error_)
+            a["heavy_keys_above"] = rounded(
+                heavy.floor_
+            )  # settled: every key heavier than this is listed, counted exactly
             findings += _findings(spec.name, int(counts.distinct_.sum()), a, thresholds)
     return findings
 

@@ -9,6 +9,7 @@ distinct-key filter, the collision groups and the simulated tables all have some
 
 from __future__ import annotations
 
+import collections
 import functools
 import itertools
 import json
@@ -21,6 +22,7 @@ from hypothesis import strategies as st
 
 from hashaudit import AuditPlan, KeyBatch, audit_batches
 from hashaudit.report.json_report import report_dict
+from hashaudit.stats.heavy import HeavyCounts, HeavyKeys
 
 FEW = settings(max_examples=10, deadline=None, derandomize=True, database=None)
 
@@ -101,8 +103,8 @@ def test_report_does_not_depend_on_batches_or_threads(plans, name, cuts, threads
 
 
 # ---------------------------------------------------------------------------------------------------------
-# Shard checks: loads weighted by whole numbers (sums exact in any order) and at most 1,000 distinct keys, so the
-# heavy-key summary never cuts a counter and is exact.
+# Shard checks: loads weighted by whole numbers (sums exact in any order). At most 1,000 distinct keys here, so the
+# heavy-key summary never cuts a counter; larger inputs are settled by a second read (tested further down).
 # ---------------------------------------------------------------------------------------------------------
 
 
@@ -181,8 +183,7 @@ def test_distinct_keys_read_in_parts_equal_one_pass(cuts, again, threads):
 
 
 # ---------------------------------------------------------------------------------------------------------
-# Known departures from the contract, kept as strict expected failures: each turns into an unexpected pass (and so
-# a failure) once the library is fixed, and the mark should then go.
+# Heavy keys and fractional weights: figures that could depend on the order of summing or of cutting counters.
 # ---------------------------------------------------------------------------------------------------------
 
 
@@ -204,19 +205,39 @@ def test_heavy_key_points_stay_within_the_hottest_shards_share():
                 assert -1e-9 <= details["share_without_heavy_keys"] <= 1.0 + 1e-9, (threads, details)
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="known limitation, stated in the README: the Misra-Gries summary of heavy keys depends on batch "
-    "boundaries once it cuts counters (its bounds hold either way)",
-)
 def test_heavy_key_summary_does_not_depend_on_batches():
     """2,002 distinct keys, once each, against 1,000 counters: one batch is cut once (error 1), two batches of
-    1,001 and 1,001 keys are cut twice (error 2), and ``heavy_count_error`` in the report follows."""
+    1,001 and 1,001 keys are cut twice (error 2); a second read settles the counts, so the report is the same."""
     whole = KeyBatch.from_keys([b"k%d" % i for i in range(2002)])
     plan = AuditPlan(hashes=("xxh3_64",), checks=("shards",), shards=(4,))
     one = stable(audit_batches([whole], plan, threads=1))
     two = stable(audit_batches([whole.slice(0, 1001), whole.slice(1001, 2002)], plan, threads=1))
     assert two == one
+
+
+@settings(max_examples=8, deadline=None, derandomize=True, database=None)
+@given(cuts=st.lists(st.integers(0, 6000), max_size=6))
+def test_settled_heavy_keys_do_not_depend_on_batches(cuts):
+    """Zipf-distributed keys with 3,000 distinct values against 1,000 counters (the summary cuts counts): the
+    settled list — every key above W/1001 with its exact count — is the same for any batching, and it is the
+    true one."""
+    rng = np.random.default_rng(5)
+    draws = rng.zipf(1.2, size=6000) % 3000
+    whole = KeyBatch.from_keys([b"user-%d" % i for i in draws])
+    batches = [whole.slice(a, b) for a, b in itertools.pairwise([0, *sorted(cuts), len(whole)]) if b > a]
+    summary = HeavyKeys()
+    for batch in batches:
+        summary.update(batch)
+    assert not summary.exact
+    counted = HeavyCounts(summary)
+    for batch in batches:
+        counted.update(batch)
+    summary.settle(counted)
+    truth = collections.Counter(int(i) for i in draws)
+    expected = sorted(((b"user-%d" % k, float(c)) for k, c in truth.items() if c > 6000 / 1001), key=lambda t: -t[1])
+    got = summary.top(len(expected) + 5)
+    assert sorted(got, key=lambda t: (-t[1], t[0])) == sorted(expected, key=lambda t: (-t[1], t[0]))
+    assert summary.exact and summary.floor_ == 6000 / 1001
 
 
 def test_fractional_weights_give_the_same_report_on_any_number_of_threads():
@@ -225,3 +246,35 @@ def test_fractional_weights_give_the_same_report_on_any_number_of_threads():
     plan = AuditPlan(hashes=("xxh3_64",), checks=("shards",), shards=(2,))
     one = stable(audit_batches([batch], plan, threads=1))
     assert stable(audit_batches([batch], plan, threads=2)) == one
+
+
+def _attribution(result) -> dict:
+    doc = json.loads(stable(result))
+    found = [c for h in doc["hashes"] for c in h["checks"] if c["name"] == "load_attribution"]
+    assert len(found) == 1
+    return found[0]["details"]
+
+
+def test_heavy_keys_stay_lower_bounds_when_the_input_cannot_be_read_again():
+    """A one-time stream (a generator, like standard input) cannot be read twice: the summary keeps its lower
+    bounds and says so; the same keys in a list are settled, and every count becomes exact."""
+    keys = [b"hot"] * 300 + [b"k%d" % i for i in range(3000)]
+    whole = KeyBatch.from_keys(keys)
+    pieces = [whole.slice(i, min(i + 500, len(whole))) for i in range(0, len(whole), 500)]
+    plan = AuditPlan(hashes=("xxh3_64",), checks=("shards",), shards=(4,))
+    once = audit_batches((piece for piece in pieces), plan, threads=1)
+    settled = audit_batches(pieces, plan, threads=1)
+    bound, exact = _attribution(once), _attribution(settled)
+    assert not bound["heavy_keys_exact"] and bound["heavy_count_error"] > 0 and once.run["passes"] == 1
+    assert exact["heavy_keys_exact"] and exact["heavy_count_error"] == 0 and settled.run["passes"] == 2
+    assert exact["heavy_keys_above"] == pytest.approx(len(keys) / 1001)
+    assert exact["heavy_load_on_shard"] == 300.0 > bound["heavy_load_on_shard"]  # "hot" alone is that heavy
+
+
+def test_no_second_read_when_no_key_can_be_heavy():
+    """All keys distinct: no kept count plus its error bound reaches W/1001, so nothing is read again."""
+    whole = KeyBatch.from_keys([b"k%d" % i for i in range(5000)])
+    pieces = [whole.slice(i, i + 1000) for i in range(0, 5000, 1000)]
+    result = audit_batches(pieces, AuditPlan(hashes=("xxh3_64",), checks=("shards",), shards=(4,)), threads=1)
+    details = _attribution(result)
+    assert result.run["passes"] == 1 and details["heavy_keys_exact"] and details["heavy_keys_on_shard"] == 0
