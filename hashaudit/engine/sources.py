@@ -12,6 +12,7 @@ from hashaudit.errors import UsageError
 from hashaudit.keys import open_keys
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.options import SourceOptions
+from hashaudit.keys.sql import is_database
 from hashaudit.verdict.result import AuditResult
 
 
@@ -77,7 +78,8 @@ def audit(
         if keys is None:
             keys = sum(len(b) for s, o in zip(sources, per_source, strict=True) for b in open_keys(s, o))
 
-    readable_again = all(str(s) != "-" and os.path.isfile(s) for s in sources)
+    # files, and database queries (run again: on a database that changes meanwhile, audit a snapshot)
+    readable_again = all(str(s) != "-" and (os.path.isfile(s) or is_database(str(s))) for s in sources)
 
     def reopen() -> Iterator[KeyBatch]:
         streams[:] = [open_keys(s, o) for s, o in zip(sources, per_source, strict=True)]  # the last complete read

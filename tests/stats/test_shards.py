@@ -155,3 +155,22 @@ def test_bucket_tables_report_their_heaviest_buckets_by_load():
     from hashaudit.report.json_report import report_dict
 
     assert report_dict(result)["hashes"][0]["tables"][0]["hottest_by_load"][0]["bucket"] == bucket
+
+
+def test_a_database_url_is_queried_again_to_settle_the_heavy_keys(tmp_path):
+    """A database query can be run again (unlike standard input): the heavy keys of a URL source are settled."""
+    pytest.importorskip("sqlalchemy")
+    import sqlite3
+
+    from hashaudit import audit
+    from hashaudit.keys.options import SourceOptions
+
+    path = tmp_path / "lookups.sqlite"
+    with sqlite3.connect(path) as db:
+        db.execute("CREATE TABLE lookups (parcel TEXT)")
+        db.executemany("INSERT INTO lookups VALUES (?)", [(f"parcel-{i}",) for i in range(3000)] + [("hot",)] * 400)
+    plan = AuditPlan(hashes=("xxh3_64",), checks=("shards",), shards=(4,))
+    result = audit([f"sqlite:///{path}"], plan, SourceOptions(query="SELECT parcel FROM lookups"))
+    details = next(f.details for f in result.findings if f.check == "load_attribution")
+    assert result.run["passes"] == 2 and details["heavy_keys_exact"] and details["heavy_count_error"] == 0
+    assert details["heavy_keys_above"] == pytest.approx(3400 / 1001)
