@@ -1,14 +1,15 @@
 """The Dask engine: the same audit on a cluster, for inputs that outgrow one machine.
 
 The input is cut into partitions that workers read themselves: byte ranges of plain key files split on line
-boundaries (a line belongs to the range where it starts), and whole files for the other formats. Three stages:
+boundaries (a line belongs to the range where it starts), and whole files for the other formats. Four stages:
 
 1. **Read and hash** (one task per partition): keys, their 128-bit fingerprints and every audited hash value, each
-   row tagged with its stream position (partition, index). Occurrence loads, the heavy-key summary and the key
-   sample are counted here, on every occurrence. Rows are routed by the top bits of their fingerprint into
+   row tagged with its stream position (partition, index) and its weight. Shard loads, the heavy-key summary and
+   the key sample are counted here, on every occurrence. Rows are routed by the top bits of their fingerprint into
    ``prefix_parts`` groups.
 2. **Tell repeats apart** (one task per fingerprint prefix): a group's rows from every partition, sorted by
-   fingerprint and position; the first occurrence of each key is kept and fed to the same accumulators the local
+   fingerprint and position; loads per bucket count every row (table sizes that follow the key count are known by
+   now), and the first occurrence of each key is kept and fed to the same accumulators the local
    engine uses (bucket counts, output bits, full-width collisions, the first values of the simulated tables, shard
    counts). A key and its repeats share a fingerprint, so they always meet in one group.
 3. **Merge**: partial states are merged pairwise in a tree (not all on one worker), and the client concludes with
@@ -19,8 +20,9 @@ boundaries (a line belongs to the range where it starts), and whole files for th
 
 Where a check needs one machine: the full-width collision values of each hash (8 bytes per distinct key; 16 for
 128-bit functions) and the values kept for the simulated tables (at most ``AUTO_TABLE_SLOTS`` or
-``--table-slots``) are merged on the client. Stage 2 holds one prefix group's rows at a time: with ``prefix_parts``
-groups, about 16 + 8·h bytes × distinct keys / ``prefix_parts`` for h hash functions.
+``--table-slots``) are merged on the client. The rows of stage 1 — 24 + 8·h bytes per key read for h hash functions
+(8 more with weights) — wait in the workers' memory (Dask spills them to disk when it fills) until stage 2 takes
+them, one prefix group per task: about a ``prefix_parts``-th of them at a time.
 """
 
 from __future__ import annotations
@@ -199,26 +201,26 @@ def _stage_read(part: _Partition, plan: AuditPlan, pairs: list, bits: int) -> tu
         for state, v in zip(loads, values, strict=True):
             for counts in state.shards:
                 counts.add_load(v, batch.weights)
-            for bucket_load in state.bucket_loads:
-                bucket_load.add_load(v, batch.weights)
         if sample is not None:
             sample.update(batch)
         if heavy is not None:
             heavy.update(batch, batch.weights)
         positions = (np.int64(part.index) << np.int64(POSITION_SHIFT)) + np.arange(index, index + len(batch))
-        chunks.append((prints, positions, values))
+        chunks.append((prints, positions, values, batch.weights))
         index += len(batch)
     routes: list[list[tuple]] = [[] for _ in range(1 << bits)]
-    for prints, positions, values in chunks:
+    for prints, positions, values, weights in chunks:
         group = (prints[:, 1] >> np.uint64(64 - bits)).astype(np.int64) if bits else np.zeros(len(prints), np.int64)
         order = np.argsort(group, kind="stable")
         bounds = np.searchsorted(group[order], np.arange((1 << bits) + 1))
         for g in range(1 << bits):
             pick = order[bounds[g] : bounds[g + 1]]
             if len(pick):
-                routes[g].append((prints[pick], positions[pick], [v[pick] for v in values]))
-    for state in loads:  # only the loads count here: the distinct-key accumulators are stage 2's
+                routes[g].append((prints[pick], positions[pick], [v[pick] for v in values],
+                                  None if weights is None else weights[pick]))  # fmt: skip
+    for state in loads:  # only the shard loads count here: the rest is stage 2's
         state.tables, state.bits, state.collisions, state.first_values = [], None, None, None
+        state.bucket_loads = []
         for counts in state.shards:
             counts.distinct_[:] = 0
     return routes, _Partial(loads, sample, heavy, index, 0, {part.index: stats})
@@ -238,7 +240,9 @@ def _stage_distinct(routed: list[list[tuple]], plan: AuditPlan, pairs: list) -> 
     states = [_new_state(spec, plan, pairs, 1) for spec in specs]
     pieces = [piece for rows in routed for piece in rows]
     if not pieces:
-        return _Partial(_loads_free(states), distinct=0)
+        for state in states:
+            state.bucket_loads = []
+        return _Partial(states, distinct=0)
     prints = np.concatenate([p[0] for p in pieces])
     positions = np.concatenate([p[1] for p in pieces])
     order = np.lexsort((positions, prints[:, 0], prints[:, 1]))
@@ -246,8 +250,13 @@ def _stage_distinct(routed: list[list[tuple]], plan: AuditPlan, pairs: list) -> 
     first = np.ones(len(order), dtype=bool)
     first[1:] = np.any(ordered[1:] != ordered[:-1], axis=1)
     keep = np.sort(order[first])  # stream order: the accumulators see keys as the local engine does
+    weighted = any(p[3] is not None for p in pieces)
+    weights = np.concatenate([p[3] if p[3] is not None else np.ones(len(p[0])) for p in pieces]) if weighted else None
     for h, state in enumerate(states):
-        values = np.concatenate([p[2][h] for p in pieces])[keep]
+        every = np.concatenate([p[2][h] for p in pieces])
+        for bucket_load in state.bucket_loads:  # loads count every occurrence (sizes are known by now)
+            bucket_load.add_load(every, weights)
+        values = every[keep]
         for accumulator in state.streams():
             accumulator.update(values)
         for counts in state.shards:
@@ -255,13 +264,7 @@ def _stage_distinct(routed: list[list[tuple]], plan: AuditPlan, pairs: list) -> 
         if state.first_values is not None:
             low = values[:, 0] if values.ndim == 2 else values
             state.first_values.update(low, positions[keep])
-    return _Partial(_loads_free(states), distinct=int(first.sum()))
-
-
-def _loads_free(states: list[_HashState]) -> list[_HashState]:
-    for state in states:
-        state.bucket_loads = []  # loads are counted on occurrences in stage 1
-    return states
+    return _Partial(states, distinct=int(first.sum()))
 
 
 def _merge(a: _Partial, b: _Partial) -> _Partial:
@@ -342,18 +345,17 @@ def audit_dask(
         raise UsageError("the dask engine tells distinct keys apart; --all-keys runs on the local engine")
     started = time.perf_counter()
     reads = 1
-    parts = plan_partitions(list(sources), per_source, partition_bytes)
+    located = [_located(str(s)) for s in sources]  # workers elsewhere open files by their absolute path
+    parts = plan_partitions(located, per_source, partition_bytes)
     descriptions = [open_keys(s, o).description for s, o in zip(sources, per_source, strict=True)]
     cluster = None if scheduler else LocalCluster(n_workers=workers, threads_per_worker=1, processes=True)
     client = Client(scheduler or cluster)
     try:
-        pairs_for_loads = plan.tables(None) if not plan.needs_key_count() else []
-        first = [client.submit(_stage_read, part, plan, pairs_for_loads, prefix_bits, pure=False) for part in parts]
+        first = [client.submit(_stage_read, part, plan, [], prefix_bits, pure=False) for part in parts]
         occurrences = sum(client.gather([client.submit(lambda r: r[1].occurrences, f) for f in first]))
         if occurrences == 0:
             raise UsageError("no keys to audit")
-        # automatic sizes follow the key count, known only now: loads per bucket are then not counted
-        pairs = plan.tables(occurrences) if plan.needs_key_count() else pairs_for_loads
+        pairs = plan.tables(occurrences)  # automatic sizes follow the key count, known only now
         groups = [
             client.submit(_stage_distinct, [client.submit(_route, f, g) for f in first], plan, pairs, pure=False)
             for g in range(1 << prefix_bits)
@@ -374,7 +376,7 @@ def audit_dask(
             cluster.close()
     stats = [total.stats[p.index] for p in parts]
     described = []
-    for source, description in zip(sources, descriptions, strict=True):
+    for source, description in zip(located, descriptions, strict=True):
         mine = [s for p, s in zip(parts, stats, strict=True) if p.source == source]
         combined = {
             "records": sum(s.records for s in mine),
@@ -392,6 +394,13 @@ def audit_dask(
     result.run["engine"] = "dask"
     result.run["partitions"] = len(parts)
     return result
+
+
+def _located(source: str) -> str:
+    """A local file's absolute path (a worker's working directory is not the client's); other sources as given."""
+    if source == "-" or "://" in source or not os.path.exists(source):
+        return source
+    return os.path.abspath(source)
 
 
 def _add_skipped(stats: list[SourceStats]) -> dict[str, int]:

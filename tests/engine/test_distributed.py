@@ -68,3 +68,18 @@ def test_parquet_row_groups_are_partitions():
     dist = audit_dask([str(sample)], plan, options, workers=2, prefix_bits=2)
     assert dist.run["partitions"] == 4  # the sample has four row groups of 20,000 rows
     assert _same(local, dist)
+
+
+def test_weighted_loads_with_automatic_table_sizes_match_the_local_engine(tmp_path):
+    """Table sizes follow the key count, known to the Dask engine only after the first stage: the loads per bucket
+    (``hottest_by_load``) are then counted in the second, over every occurrence with its weight."""
+    from pathlib import Path
+
+    sample = Path(__file__).parents[2] / "sample_keys" / "tracking_lookups.csv"
+    plan = AuditPlan(hashes=("murmur3_32",), checks=("buckets", "shards"), shards=(8,), seed=1)
+    options = SourceOptions(columns=("parcel",), weight="bytes")
+    local = audit([sample], plan, options)
+    dist = audit_dask([str(sample)], plan, options, workers=2, prefix_bits=2)
+    tables = report_dict(dist)["hashes"][0]["tables"]
+    assert tables and all(t["hottest_by_load"] for t in tables)
+    assert _same(local, dist)
