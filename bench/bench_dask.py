@@ -95,7 +95,13 @@ def main() -> None:
                 reports[engine] = json.dumps(doc, sort_keys=True)
                 same = "" if engine == "local" else ("yes" if reports["dask"] == reports["local"] else "NO")
                 row = {"keys": size, "engine": engine, "seconds": round(seconds, 2), "peak_rss_mib": peak >> 20}
-                row.update({"partitions": run.get("partitions"), "same_json_as_local": same or None})
+                row.update(
+                    {
+                        "partitions": run.get("partitions"),
+                        "reads": run.get("passes"),
+                        "same_json_as_local": same or None,
+                    }
+                )
                 results["runs"].append(row)
                 print(f"{size:>12,} {engine:<8} {seconds:8.1f} {peak / 2**20:12,.0f} MiB  {same}")
     results["load_after"] = os.getloadavg()

@@ -55,6 +55,19 @@ _SOURCE_OPTIONS = [
         "--db-table", metavar="TABLE", help="Database sources: read --column from TABLE (instead of --query)."
     ),
     click.option(
+        "--db-split-column",
+        metavar="COLUMN",
+        help="Database sources, --engine dask: split the source into key ranges of COLUMN (a column of the query's "
+        "result, or of --db-table), read in parallel: equal-width ranges of an integer column, ntile boundaries of "
+        "any other, plus one for NULLs. The local engine reads the source as one stream.",
+    ),
+    click.option(
+        "--db-split-parts",
+        type=int,
+        metavar="N",
+        help="With --db-split-column: the number of key ranges, 1 to 4096 (default: one per 2,000,000 rows).",
+    ),
+    click.option(
         "--db-driver",
         type=click.Choice(["auto", "adbc", "sqlalchemy"]),
         default="auto",
@@ -125,8 +138,9 @@ def cli(debug: bool) -> None:
 
 def _source_options(kw: dict):  # type: ignore[no-untyped-def]
     from hashaudit.keys.options import SourceOptions
+    from hashaudit.keys.sql import check_split_options
 
-    return SourceOptions(
+    options = SourceOptions(
         format=kw["input_format"],
         columns=tuple(kw["column"]),
         join=kw["join"],
@@ -146,7 +160,11 @@ def _source_options(kw: dict):  # type: ignore[no-untyped-def]
         table=kw.get("db_table"),
         driver=kw.get("db_driver") or "auto",
         on_bad_record=kw.get("on_bad_record") or "fail",
+        split_column=kw.get("db_split_column"),
+        split_parts=kw.get("db_split_parts"),
     )
+    check_split_options(options)
+    return options
 
 
 def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ...]) -> None:

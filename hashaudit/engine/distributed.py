@@ -72,13 +72,18 @@ class _Partial:
 
 
 def plan_partitions(sources: Sequence[str], options: Sequence[SourceOptions], partition_bytes: int) -> list[_Partition]:
-    """Byte ranges of plain key files, whole files otherwise, in stream order."""
+    """Byte ranges of plain key files, Parquet row groups, key ranges of database sources with a split column (in
+    ascending order, then the NULLs), whole files or queries otherwise; in stream order."""
     from hashaudit.keys.open import compression_for, format_for
 
     parts: list[_Partition] = []
     for source, opts in zip(sources, options, strict=True):
         if source == "-":
             raise UsageError("the dask engine reads files that every worker can open, not standard input")
+        if _is_database(source, opts):
+            for key_options in _key_range_options(source, opts):
+                parts.append(_Partition(len(parts), source, key_options))
+            continue
         plain = (opts.format in ("auto", "lines") and format_for(source) == "lines" and not compression_for(source)
                  and "://" not in source)  # fmt: skip
         size = os.path.getsize(source) if plain and os.path.isfile(source) else None
@@ -95,6 +100,26 @@ def plan_partitions(sources: Sequence[str], options: Sequence[SourceOptions], pa
         for start in range(0, max(size, 1), partition_bytes):
             parts.append(_Partition(len(parts), source, opts, start, min(size, start + partition_bytes)))
     return parts
+
+
+def _is_database(source: str, opts: SourceOptions) -> bool:
+    """Read as a database (the rule of ``KeyStream``): ``--format sql``, or a database name or URL, or a query."""
+    from hashaudit.keys.sql import is_database
+
+    if opts.format != "auto":
+        return opts.format == "sql"
+    return is_database(source) or bool(opts.query or opts.table)
+
+
+def _key_range_options(source: str, opts: SourceOptions) -> list[SourceOptions]:
+    """The options of each partition of a database source: one per key range with a split column, else one."""
+    from dataclasses import replace
+
+    from hashaudit.keys.sql import plan_key_ranges
+
+    if opts.split_column is None:
+        return [opts]
+    return [replace(opts, key_range=key_range) for key_range in plan_key_ranges(source, opts)]
 
 
 def _range_bytes(path: str, start: int, end: int) -> bytes:

@@ -9,6 +9,31 @@ SOURCE_FORMATS = ("auto", "lines", "csv", "tsv", "jsonl", "parquet", "arrow", "s
 DRIVERS = ("auto", "adbc", "sqlalchemy")
 INTEGER_FORMATS = ("le64", "decimal")
 ON_BAD_RECORD = ("fail", "skip")
+MAX_SPLIT_PARTS = 4096
+
+
+@dataclass(frozen=True)
+class KeyRange:
+    """One key range of a database source split on a column: the rows whose value ``v`` of the split column has
+    ``lower < v <= upper`` (a bound of None is open), or, with ``is_null``, the rows where it is NULL.
+
+    Parameters
+    ----------
+    lower : object or None
+        Exclusive lower bound, as the driver returned it (None: unbounded below).
+    upper : object or None
+        Inclusive upper bound (None: unbounded above).
+    is_null : bool
+        The partition of the rows whose split column is NULL (the bounds are then None).
+    cast : str or None
+        PostgreSQL through ADBC: the column's type; the bounds are then its text form, cast back on the server
+        (ADBC binds parameters with Arrow types, which do not cover every PostgreSQL type).
+    """
+
+    lower: object = None
+    upper: object = None
+    is_null: bool = False
+    cast: str | None = None
 
 
 @dataclass(frozen=True)
@@ -68,6 +93,14 @@ class SourceOptions:
         it and counts it in ``SourceStats.skipped`` as ``bad_json``, ``missing_field``, ``bad_weight``,
         ``bad_key_format``, ``bad_utf8`` or ``nul_byte``. A row a CSV parser cannot split (ragged, or after an
         unterminated quote) is an error either way.
+    split_column : str or None
+        Database sources, Dask engine: a column of the query's result (with ``table``: of the table) to split the
+        source on into key ranges read in parallel; the local engine reads the source unsplit, as one stream.
+    split_parts : int or None
+        Database sources, Dask engine: how many key ranges (1 to 4096; None: one per 2,000,000 rows), plus one for
+        the rows whose split column is NULL.
+    key_range : KeyRange or None
+        Database sources: read only this range of ``split_column`` (set by the Dask engine for each partition).
     """
 
     format: str = "auto"
@@ -90,3 +123,6 @@ class SourceOptions:
     table: str | None = None
     driver: str = "auto"
     on_bad_record: str = "fail"
+    split_column: str | None = None
+    split_parts: int | None = None
+    key_range: KeyRange | None = None

@@ -35,6 +35,14 @@ def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
         raise UsageError(f"batch_keys must be a positive integer, not {options.batch_keys!r}")
     if (options.query or options.table) and fmt != "sql":
         raise UsageError(f"--query and --db-table apply to database sources, but {name} is read as {fmt}")
+    if fmt == "sql":
+        from hashaudit.keys.sql import check_split_options
+
+        check_split_options(options)
+    elif options.split_column is not None or options.split_parts is not None or options.key_range is not None:
+        raise UsageError(
+            f"--db-split-column and --db-split-parts apply to database sources, but {name} is read as {fmt}"
+        )
     if options.on_bad_record not in ON_BAD_RECORD:
         raise UsageError(f"--on-bad-record takes {' or '.join(ON_BAD_RECORD)}, not {options.on_bad_record!r}")
     if options.driver not in DRIVERS:
@@ -185,7 +193,7 @@ class KeyStream:
                 self.description["compression"] = opened.compression
                 yield from self._keys(self._records(opened.stream), opened)
                 self.stats.bytes_read = opened.bytes_read
-        if self.stats.keys == 0:
+        if self.stats.keys == 0 and self._options.key_range is None:  # one key range of a source may hold none
             raise InputError(self._no_keys_message())
 
     def _keys(self, batches: Iterator[RecordBatch], opened: Any) -> Iterator[KeyBatch]:

@@ -3,16 +3,13 @@ binaries are installed (``.ci/run`` installs them), through ADBC and through SQL
 
 from __future__ import annotations
 
-import glob
 import os
-import shutil
-import socket
 import sqlite3
 import subprocess
-import tempfile
 
 import numpy as np
 import pytest
+from pg_server import throwaway_postgres
 
 from hashaudit.errors import InputError, UsageError
 from hashaudit.keys import open_keys
@@ -71,44 +68,10 @@ def test_passwords_never_show():
     assert "hunter2" not in str(info.value) and "***" in str(info.value) and "\n" not in str(info.value)
 
 
-def _pg_bin() -> str | None:
-    found = sorted(glob.glob("/usr/lib/postgresql/*/bin"))
-    if found and os.path.exists(os.path.join(found[-1], "initdb")):
-        return found[-1]
-    initdb = shutil.which("initdb")
-    return os.path.dirname(initdb) if initdb else None
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
 @pytest.fixture(scope="module")
 def postgres():
-    """A throwaway PostgreSQL cluster (as the postgres user when running as root: initdb refuses root)."""
-    pgbin = _pg_bin()
-    if pgbin is None:
-        pytest.skip("PostgreSQL server binaries are not installed (.ci/run installs them)")
-    root = os.geteuid() == 0
-    if root and shutil.which("runuser") is None:
-        pytest.skip("running as root without runuser: cannot start PostgreSQL as another user")
-    as_pg = ["runuser", "-u", "postgres", "--"] if root else []
-    base = tempfile.mkdtemp(prefix="hashaudit-pg-")
-    os.chmod(base, 0o755)
-    data = os.path.join(base, "data")
-    os.makedirs(data)
-    if root:
-        shutil.chown(data, "postgres", "postgres")
-    os.chmod(data, 0o700)
-    port = _free_port()
-    run = lambda *cmd: subprocess.run([*as_pg, *cmd], check=True, capture_output=True)  # noqa: E731
-    run(f"{pgbin}/initdb", "-D", data, "-U", "postgres", "--auth=trust", "-E", "UTF8", "--no-locale")
-    run(f"{pgbin}/pg_ctl", "-D", data, "-l", f"{data}/server.log", "-w", "-t", "60", "-o",
-        f"-c listen_addresses=127.0.0.1 -p {port} -k {data} -c fsync=off", "start")  # fmt: skip
-    url = f"postgresql://postgres@127.0.0.1:{port}/postgres"
-    try:
+    """A throwaway PostgreSQL cluster holding the parcels table."""
+    with throwaway_postgres() as url:
         import psycopg
 
         with psycopg.connect(url, autocommit=True) as conn:
@@ -119,9 +82,6 @@ def postgres():
             conn.execute("INSERT INTO parcels VALUES (NULL, 1, 1)")
             conn.execute("CREATE SEQUENCE counter")
         yield url
-    finally:
-        subprocess.run([*as_pg, f"{pgbin}/pg_ctl", "-D", data, "-m", "fast", "-w", "stop"], capture_output=True)
-        shutil.rmtree(base, ignore_errors=True)
 
 
 @pytest.mark.parametrize("driver", ["adbc", "sqlalchemy"])
