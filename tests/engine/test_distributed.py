@@ -83,3 +83,22 @@ def test_weighted_loads_with_automatic_table_sizes_match_the_local_engine(tmp_pa
     tables = report_dict(dist)["hashes"][0]["tables"]
     assert tables and all(t["hottest_by_load"] for t in tables)
     assert _same(local, dist)
+
+
+def test_every_check_group_gives_the_local_engines_report(tmp_path):
+    """All groups at once (seeds, neighbours, growth and tags included), on keys with repeats and a hot key."""
+    from hashaudit.engine.checks import CHECK_GROUPS
+
+    rng = np.random.default_rng(23)
+    keys = [b"crate-%d" % x for x in rng.integers(0, 20_000, size=40_000)]
+    keys[::30] = [b"crate-1"] * len(keys[::30])
+    path = tmp_path / "keys.txt"
+    path.write_bytes(b"\n".join(keys) + b"\n")
+    plan = AuditPlan(
+        hashes=("murmur3_32", "fnv1a_64"), checks=tuple(CHECK_GROUPS), shards=(4, 16), tag_bits=(7, None), seed=9
+    )
+    local = audit([path], plan)
+    dist = audit_dask([str(path)], plan, workers=2, partition_bytes=60_000, prefix_bits=2)
+    names = {c["name"] for h in report_dict(dist)["hashes"] for c in h["checks"]}
+    assert {"growth_cost", "order_hazard", "tag_bits", "seed_spread", "neighbour_counter", "hot_keys"} <= names
+    assert dist.run["partitions"] > 5 and _same(local, dist)
