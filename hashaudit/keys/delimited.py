@@ -4,9 +4,18 @@ pyarrow's streaming CSV reader does the parsing, with the key columns read as ``
 bytes reach the hash unchanged (no type inference: ``007`` stays ``007``, ``NULL`` stays ``NULL``). A column
 given by number needs the header's names before the reader opens, so the first row is read ahead with the
 standard :mod:`csv` module and then replayed to pyarrow.
+
+pyarrow ends a quoted field at the end of the input without a word when its closing quote is missing, so a stray
+quote in the last column would silently turn the rest of the file into one value. :class:`_QuoteWatch` follows the
+quotes of the bytes pyarrow reads (a quote opens a field only at its start; inside, ``""`` is a quote and any other
+quote closes it, as pyarrow reads them) and an input that ends inside a quoted field is an error.
 """
 
 from __future__ import annotations
+
+import hashaudit._numba_setup  # noqa: F401
+
+# isort: split
 
 import csv
 import io
@@ -17,6 +26,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.csv as pa_csv
+from numba import njit
 
 from hashaudit.errors import InputError, UsageError
 from hashaudit.keys.batch import KeyBatch
@@ -30,6 +40,48 @@ CSV_BLOCK_BYTES = 4 << 20
 _PROBE_BYTES = 1 << 16
 _MAX_FIRST_ROW_BYTES = 64 << 20
 _LISTED_COLUMNS = 20
+
+
+@njit(cache=True, nogil=True)
+def _follow_quotes(data, delimiter, state):  # pragma: no cover - compiled
+    """Advance ``state`` = [previous byte, inside a quoted field, a quote seen inside one, offset of the quote that
+    opened it, offset of ``data`` in the input] over ``data``."""
+    previous, quoted, pending, base = state[0], state[1], state[2], state[4]
+    for i in range(data.shape[0]):
+        c = data[i]
+        if c != 34:  # not a quote
+            if pending:  # a lone quote inside the field: it closed the field
+                quoted, pending = 0, 0
+            previous = c
+            continue
+        if quoted:
+            pending = 1 - pending  # a first quote may close the field; a second makes it a literal ""
+        elif previous == delimiter or previous == 10 or previous == 13:
+            quoted, state[3] = 1, base + i  # a quote at the start of a field opens it
+        previous = c
+    state[0], state[1], state[2], state[4] = previous, quoted, pending, base + data.shape[0]
+
+
+class _QuoteWatch(io.RawIOBase):
+    """Passes a stream's bytes through, following the quotes (see the module notes)."""
+
+    def __init__(self, inner: io.RawIOBase, delimiter: str) -> None:
+        self._inner = inner
+        self._delimiter = ord(delimiter)
+        self._state = np.array([10, 0, 0, 0, 0], dtype=np.int64)  # the input starts as after a line break
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, buffer) -> int:  # type: ignore[no-untyped-def, override]
+        n = self._inner.readinto(buffer) or 0
+        if n:
+            _follow_quotes(np.frombuffer(buffer, dtype=np.uint8, count=n), self._delimiter, self._state)
+        return n
+
+    def unclosed(self) -> int | None:
+        """The byte offset of a quote whose field the input ended in, or None."""
+        return int(self._state[3]) if self._state[1] and not self._state[2] else None
 
 
 def delimiter_for(fmt: str, options: SourceOptions) -> str:
@@ -188,7 +240,9 @@ def read_delimited(
     separator = pa.scalar(options.join.encode("utf-8"), pa.large_binary())
     rows = 0
     try:
-        reader = pa_csv.open_csv(PrefixedReader(prefix, stream), reader_options, parse_options, convert_options)
+        source: io.RawIOBase = PrefixedReader(prefix, stream)
+        watch = _QuoteWatch(source, delimiter) if quoted else None
+        reader = pa_csv.open_csv(watch or source, reader_options, parse_options, convert_options)
         for table in reader:
             parts = [table.column(c) for c in columns]
             parts = [p.fill_null(b"") if p.null_count else p for p in parts]
@@ -214,6 +268,12 @@ def read_delimited(
                 else:
                     yield RecordBatch(keys.slice(start, stop), int(numbers[start]), numbers[start:stop], part)
             rows += table.num_rows
+        opened = watch.unclosed() if watch is not None else None
+        if opened is not None:
+            raise InputError(
+                f"{name}: the quoted field that opens at byte {opened + 1} never closes: the rest of the input would "
+                "be one value (a stray quote at the start of a field?)"
+            )
     except pa.ArrowException as exc:
         detail = " ".join(str(exc).split())
         where = f" (after data row {rows})" if rows else ""
