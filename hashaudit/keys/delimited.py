@@ -20,6 +20,7 @@ import hashaudit._numba_setup  # noqa: F401
 import csv
 import io
 import math
+import threading
 from collections.abc import Iterator
 
 import numpy as np
@@ -227,10 +228,19 @@ def read_delimited(
     wanted = list(dict.fromkeys(columns + ([weight] if weight is not None else [])))
     skip_bad = options.on_bad_record == "skip"
     reader_options = pa_csv.ReadOptions(block_size=CSV_BLOCK_BYTES, autogenerate_column_names=not options.header)
+    ragged = [0]
+    counting = threading.Lock()
+
+    def skip_ragged(row: object) -> str:  # called by pyarrow for a row with the wrong number of fields
+        with counting:
+            ragged[0] += 1
+        return "skip"
+
     parse_options = pa_csv.ParseOptions(
         delimiter=delimiter,
         quote_char='"' if quoted else False,
         newlines_in_values=quoted,
+        invalid_row_handler=skip_ragged if skip_bad else None,
     )
     types = {c: pa.large_binary() for c in columns}
     if weight is not None:
@@ -268,6 +278,8 @@ def read_delimited(
                 else:
                     yield RecordBatch(keys.slice(start, stop), int(numbers[start]), numbers[start:stop], part)
             rows += table.num_rows
+        stats.records += ragged[0]
+        stats.skip("ragged_row", ragged[0])
         opened = watch.unclosed() if watch is not None else None
         if opened is not None:
             raise InputError(

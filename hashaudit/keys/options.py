@@ -91,8 +91,9 @@ class SourceOptions:
         UTF-8 or holds a NUL byte; a delimited, columnar or database row whose weight is missing, null, negative,
         not finite or not a number. ``fail`` (the default) stops with an error naming the record; ``skip`` drops
         it and counts it in ``SourceStats.skipped`` as ``bad_json``, ``missing_field``, ``bad_weight``,
-        ``bad_key_format``, ``bad_utf8`` or ``nul_byte``. A row a CSV parser cannot split (ragged, or after an
-        unterminated quote) is an error either way.
+        ``bad_key_format``, ``bad_utf8``, ``nul_byte`` or ``ragged_row`` (a delimited row with too few or too many
+        fields). A quoted field that never closes is an error either way: the records after it cannot be told
+        apart.
     split_column : str or None
         Database sources, Dask engine: a column of the query's result (with ``table``: of the table) to split the
         source on into key ranges read in parallel; the local engine reads the source unsplit, as one stream.

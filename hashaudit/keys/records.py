@@ -24,7 +24,7 @@ class SourceStats:
     skipped : dict of str to int
         Records dropped, by reason: ``pattern_no_match``, ``empty``, ``null``, ``blank_line``; with
         ``on_bad_record="skip"`` also ``bad_json``, ``missing_field``, ``bad_weight``, ``bad_key_format``,
-        ``bad_utf8`` and ``nul_byte``.
+        ``bad_utf8``, ``nul_byte`` and ``ragged_row``.
     bytes_read : int
         Bytes taken from the file or pipe (compressed bytes for a compressed file), for progress against
         ``KeyStream.size_bytes``.

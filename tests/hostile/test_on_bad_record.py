@@ -357,11 +357,20 @@ def test_csv_bad_weight_fails_by_default(tmp_path):
         read(path, columns=("k",), weight="w")
 
 
-def test_csv_ragged_rows_fail_in_both_modes(tmp_path):
+def test_csv_ragged_rows_fail_or_are_skipped(tmp_path):
     path = tmp_path / "r.csv"
     path.write_bytes(b"k,v\n1,2\n3\n")
+    with pytest.raises(InputError, match="Expected 2 columns, got 1"):
+        read(path, on_bad_record="fail")
+    stream = open_keys(path, SourceOptions(on_bad_record="skip"))
+    assert [k for batch in stream for k in batch.to_list()] == [b"1"] and stream.stats.skipped == {"ragged_row": 1}
+
+
+def test_csv_unterminated_quote_fails_in_both_modes(tmp_path):
+    path = tmp_path / "q.csv"
+    path.write_bytes(b'k,v\n1,2\n3,"4\n5,6\n')
     for mode in ("fail", "skip"):
-        with pytest.raises(InputError, match="Expected 2 columns, got 1"):
+        with pytest.raises(InputError, match="never closes"):
             read(path, on_bad_record=mode)
 
 

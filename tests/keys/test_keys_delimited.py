@@ -221,3 +221,15 @@ def _open_at_end(data: bytes) -> bool:
         previous = c
         i += 1
     return quoted
+
+
+def test_ragged_rows_are_skipped_and_counted_on_request(tmp_path):
+    path = tmp_path / "ragged.csv"
+    path.write_bytes(b"k,v\n1,2\n3\n4,5,6\n7,8\n")
+    stream = open_keys(path, SourceOptions(columns=("k",), on_bad_record="skip"))
+    assert [k for batch in stream for k in batch.to_list()] == [b"1", b"7"]
+    assert stream.stats.skipped == {"ragged_row": 2} and stream.stats.records == 4 and stream.stats.keys == 2
+    tsv = tmp_path / "ragged.tsv"
+    tsv.write_bytes(b"k\tv\na\tb\nc\n")
+    stream = open_keys(tsv, SourceOptions(columns=("k",), on_bad_record="skip"))
+    assert [k for batch in stream for k in batch.to_list()] == [b"a"] and stream.stats.skipped == {"ragged_row": 1}
