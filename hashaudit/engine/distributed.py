@@ -39,7 +39,6 @@ import numpy as np
 from hashaudit.engine.local import AuditPlan, _conclude, _HashState, _new_state
 from hashaudit.errors import UsageError
 from hashaudit.hashes.registry import REGISTRY
-from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.options import SourceOptions
 from hashaudit.keys.records import SourceStats
 from hashaudit.stats.heavy import HeavyCounts
@@ -139,70 +138,28 @@ def _range_bytes(path: str, start: int, end: int) -> bytes:
 
 
 def _partition_batches(part: _Partition, stats: SourceStats):  # type: ignore[no-untyped-def]
-    """The key batches of one partition, normalised as the local reader does."""
+    """The key batches of one partition, read, normalised and counted as the local reader does."""
     from hashaudit.keys import open_keys
+    from hashaudit.keys.columnar import read_columnar
     from hashaudit.keys.encode import Normaliser
-    from hashaudit.keys.lines import read_lines
+    from hashaudit.keys.stream import counted_keys, line_records
 
-    if part.row_group is not None:
-        yield from _row_group_batches(part, stats)
-        return
-    if part.start is None:
+    if part.start is None and part.row_group is None:
         stream = open_keys(part.source, part.options)
         yield from stream
         stats.records, stats.keys, stats.empty_keys = stream.stats.records, stream.stats.keys, stream.stats.empty_keys
         stats.skipped, stats.bytes_read = dict(stream.stats.skipped), stream.stats.bytes_read
         return
-    data = _range_bytes(part.source, part.start, part.end or 0)
-    stats.bytes_read = (part.end or 0) - part.start
     o = part.options
-    normaliser = Normaliser(o)
-    skip = o.on_bad_record == "skip"
-    for records in read_lines(io.BytesIO(data), part.source, keep_cr=o.keep_cr, check_text=not o.raw_bytes,
-                              batch_keys=o.batch_keys, skip_bad=skip, stats=stats if skip else None):  # fmt: skip
-        if not skip:  # with skip_bad, read_lines counts the records itself
-            stats.records += len(records.keys)
-        if not normaliser.is_identity:
-            records = normaliser.apply(records, stats, lambda r: f"{part.source} line {r} of a partition")
-        keys = records.keys
-        if len(keys):
-            stats.keys += len(keys)
-            stats.empty_keys += int(np.count_nonzero(keys.offsets[1:] == keys.offsets[:-1]))
-            yield keys
-
-
-def _row_group_batches(part: _Partition, stats: SourceStats):  # type: ignore[no-untyped-def]
-    """The keys of one Parquet row group, converted as the local Parquet reader converts them."""
-    import pyarrow.parquet as pq
-
-    from hashaudit.keys.columnar import _resolve, arrow_records
-    from hashaudit.keys.encode import Normaliser
-
-    o = part.options
-    parquet = pq.ParquetFile(part.source)
-    if parquet.num_row_groups == 0:
-        return
-    columns = _resolve(list(o.columns or ("0",)), parquet.schema_arrow, part.source)
-    weight = _resolve([o.weight], parquet.schema_arrow, part.source)[0] if o.weight else None
-    table = parquet.read_row_group(part.row_group, columns=columns + ([weight] if weight else []))
-    first_row = 1 + sum(parquet.metadata.row_group(g).num_rows for g in range(part.row_group or 0))
-    normaliser = Normaliser(o)
-    for batch in table.to_batches(max_chunksize=o.batch_keys):
-        keys = [batch.schema.get_field_index(c) for c in columns]
-        records = arrow_records(batch, keys, batch.schema.get_field_index(weight) if weight else None, o, first_row,
-                                stats, part.source)  # fmt: skip
-        first_row += batch.num_rows
-        if records is None:
-            continue
-        if not normaliser.is_identity:
-            records = normaliser.apply(records, stats, lambda r: f"{part.source} row {r}")
-        out = records.keys
-        if records.weights is not None:
-            out = KeyBatch(out.data, out.offsets, records.weights)
-        if len(out):
-            stats.keys += len(out)
-            stats.empty_keys += int(np.count_nonzero(out.offsets[1:] == out.offsets[:-1]))
-            yield out
+    if part.row_group is not None:
+        records = read_columnar(part.source, "parquet", o, stats, part.row_group)
+        where = "{} row {}"
+    else:
+        data = _range_bytes(part.source, part.start or 0, part.end or 0)
+        stats.bytes_read = (part.end or 0) - (part.start or 0)
+        records = line_records(io.BytesIO(data), part.source, o, stats)
+        where = "{} line {} of the byte range at " + str(part.start)  # lines counted from the range's start
+    yield from counted_keys(records, Normaliser(o), stats, lambda r: where.format(part.source, r))
 
 
 def _stage_read(part: _Partition, plan: AuditPlan, pairs: list, bits: int) -> tuple[list, _Partial]:

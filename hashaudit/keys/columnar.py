@@ -24,24 +24,33 @@ from hashaudit.keys.records import RecordBatch, SourceStats
 COLUMNAR_SUFFIXES = {".parquet": "parquet", ".pq": "parquet", ".arrow": "arrow", ".feather": "arrow", ".ipc": "arrow"}
 
 
-def _open_batches(path: str, fmt: str, columns: list[str], batch_keys: int) -> tuple[pa.Schema, Iterator]:
-    """The file's schema and an iterator of its record batches (only ``columns`` for Parquet)."""
+def _open_batches(
+    path: str, fmt: str, columns: list[str], batch_keys: int, row_group: int | None = None
+) -> tuple[pa.Schema, Iterator, int]:
+    """The file's schema, an iterator of its record batches (only ``columns`` for Parquet; only those of
+    ``row_group`` when given) and the number of rows before the first of them."""
     try:
         if fmt == "parquet":
             import pyarrow.parquet as pq
 
             parquet = pq.ParquetFile(path)
             schema = parquet.schema_arrow
-            _resolve(columns, schema, path)  # name the missing column before reading
-            return schema, parquet.iter_batches(batch_size=batch_keys, columns=_resolve(columns, schema, path))
+            wanted = _resolve(columns, schema, path)  # name the missing column before reading
+            if row_group is None:
+                return schema, parquet.iter_batches(batch_size=batch_keys, columns=wanted), 0
+            before = sum(parquet.metadata.row_group(g).num_rows for g in range(row_group))
+            groups = [row_group] if row_group < parquet.num_row_groups else []
+            return schema, parquet.iter_batches(batch_size=batch_keys, columns=wanted, row_groups=groups), before
+        if row_group is not None:
+            raise UsageError(f"{path}: row groups are Parquet's, not {fmt}'s")
         source = pa.memory_map(path)
         try:
             reader = pa.ipc.open_file(source)
-            return reader.schema, (reader.get_batch(i) for i in range(reader.num_record_batches))
+            return reader.schema, (reader.get_batch(i) for i in range(reader.num_record_batches)), 0
         except pa.ArrowInvalid:
             source = pa.memory_map(path)
             stream = pa.ipc.open_stream(source)
-            return stream.schema, iter(stream)
+            return stream.schema, iter(stream), 0
     except (pa.ArrowException, OSError) as exc:
         raise InputError(f"{path}: cannot read as {fmt}: {' '.join(str(exc).split())}") from None
 
@@ -136,8 +145,11 @@ def arrow_records(
                        weights)  # fmt: skip
 
 
-def read_columnar(path: str, fmt: str, options: SourceOptions, stats: SourceStats) -> Iterator[RecordBatch]:
-    """Yield the key column(s) of a Parquet or Arrow IPC file.
+def read_columnar(
+    path: str, fmt: str, options: SourceOptions, stats: SourceStats, row_group: int | None = None
+) -> Iterator[RecordBatch]:
+    """Yield the key column(s) of a Parquet or Arrow IPC file (of one Parquet row group when ``row_group`` is given,
+    numbered by the file's rows).
 
     Parameters
     ----------
@@ -150,14 +162,13 @@ def read_columnar(path: str, fmt: str, options: SourceOptions, stats: SourceStat
         ``records`` counts rows; rows with a null key are skipped as ``null``.
     """
     wanted = list(options.columns or ("0",))
-    schema, batches = _open_batches(
-        path, fmt, wanted + ([options.weight] if options.weight else []), options.batch_keys
+    schema, batches, rows = _open_batches(
+        path, fmt, wanted + ([options.weight] if options.weight else []), options.batch_keys, row_group
     )
     columns = _resolve(wanted, schema, path)
     weight = _resolve([options.weight], schema, path)[0] if options.weight else None
     if weight is not None and weight in columns:
         raise UsageError(f"--weight-column {options.weight!r} is also a key column")
-    rows = 0
     try:
         for batch in batches:
             key_positions = [batch.schema.get_field_index(c) for c in columns]

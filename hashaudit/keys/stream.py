@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import os
-from collections.abc import Iterator
+from collections.abc import Callable, Iterable, Iterator
 from typing import Any
 
 import numpy as np
@@ -164,17 +164,7 @@ class KeyStream:
                 stream, self._name, o.field or "", self.stats, o.batch_keys, o.weight, skip_bad=self._skip_bad
             )
         else:
-            for records in read_lines(
-                stream,
-                self._name,
-                keep_cr=o.keep_cr,
-                check_text=not o.raw_bytes,
-                batch_keys=o.batch_keys,
-                skip_bad=self._skip_bad,
-                stats=self.stats,
-            ):
-                self.stats.records += len(records.keys)
-                yield records
+            yield from line_records(stream, self._name, o, self.stats)
 
     def _locate(self, record: int) -> str:
         return f"{self._name} {'row' if self._format in (*_DELIMITED, *_COLUMNAR, 'sql') else 'line'} {record}"
@@ -198,20 +188,10 @@ class KeyStream:
 
     def _keys(self, batches: Iterator[RecordBatch], opened: Any) -> Iterator[KeyBatch]:
         """Normalised keys of record batches, counted (``opened``: the byte stream, for progress)."""
-        stats = self.stats
-        normaliser = None if self._normaliser.is_identity else self._normaliser
-        for records in batches:
-            if normaliser is not None:
-                records = normaliser.apply(records, stats, self._locate)
+        for keys in counted_keys(batches, self._normaliser, self.stats, self._locate):
             if opened is not None:
-                stats.bytes_read = opened.bytes_read
-            keys = records.keys
-            if records.weights is not None:
-                keys = KeyBatch(keys.data, keys.offsets, records.weights)
-            if len(keys):
-                stats.keys += len(keys)
-                stats.empty_keys += int(np.count_nonzero(keys.offsets[1:] == keys.offsets[:-1]))
-                yield keys
+                self.stats.bytes_read = opened.bytes_read
+            yield keys
 
     def _no_keys_message(self) -> str:
         stats = self.stats
@@ -219,6 +199,39 @@ class KeyStream:
             return f"{self._name}: no keys"
         skipped = ", ".join(f"{reason} {count}" for reason, count in sorted(stats.skipped.items()))
         return f"{self._name}: no keys ({stats.records} records read" + (f"; skipped: {skipped})" if skipped else ")")
+
+
+def line_records(stream: Readable, name: str, options: SourceOptions, stats: SourceStats) -> Iterator[RecordBatch]:
+    """The records of a one-key-per-line stream, each counted in ``stats.records`` (bad lines that ``skip`` drops
+    are counted by :func:`read_lines` itself)."""
+    for records in read_lines(
+        stream,
+        name,
+        keep_cr=options.keep_cr,
+        check_text=not options.raw_bytes,
+        batch_keys=options.batch_keys,
+        skip_bad=options.on_bad_record == "skip",
+        stats=stats,
+    ):
+        stats.records += len(records.keys)
+        yield records
+
+
+def counted_keys(
+    batches: Iterable[RecordBatch], normaliser: Normaliser, stats: SourceStats, locate: Callable[[int], str]
+) -> Iterator[KeyBatch]:
+    """Record batches as key batches: normalised (``locate`` names a record in messages), weights attached, and
+    counted in ``stats`` (keys, empty keys); batches left empty are dropped."""
+    for records in batches:
+        if not normaliser.is_identity:
+            records = normaliser.apply(records, stats, locate)
+        keys = records.keys
+        if records.weights is not None:
+            keys = KeyBatch(keys.data, keys.offsets, records.weights)
+        if len(keys):
+            stats.keys += len(keys)
+            stats.empty_keys += int(np.count_nonzero(keys.offsets[1:] == keys.offsets[:-1]))
+            yield keys
 
 
 def open_keys(source: str | os.PathLike[str], options: SourceOptions = _DEFAULT_OPTIONS) -> KeyStream:

@@ -102,3 +102,23 @@ def test_every_check_group_gives_the_local_engines_report(tmp_path):
     names = {c["name"] for h in report_dict(dist)["hashes"] for c in h["checks"]}
     assert {"growth_cost", "order_hazard", "tag_bits", "seed_spread", "neighbour_counter", "hot_keys"} <= names
     assert dist.run["partitions"] > 5 and _same(local, dist)
+
+
+def test_normalised_row_groups_and_skipped_lines_are_counted_as_the_local_engine_counts_them(tmp_path):
+    """Source stats (records, keys, skipped) are part of the report: byte ranges with bad lines skipped, and Parquet
+    row groups with a normalisation, must count as the local reader does."""
+    from pathlib import Path
+
+    lines = tmp_path / "k.txt"
+    lines.write_bytes(b"".join(b"k%d\n" % i if i % 97 else b"\xff%d\n" % i for i in range(20_000)))
+    plan = AuditPlan(hashes=("xxh3_64",), buckets=(256,), checks=("buckets",), seed=1)
+    skip = SourceOptions(on_bad_record="skip")
+    local = audit([lines], plan, skip)
+    dist = audit_dask([str(lines)], plan, skip, workers=2, partition_bytes=20_000, prefix_bits=1)
+    assert dist.run["partitions"] > 3 and _same(local, dist)
+    assert report_dict(dist)["sources"][0]["stats"]["records"] == 20_000
+    sample = Path(__file__).resolve().parents[2] / "sample_keys" / "tracking_lookups.parquet"
+    lowered = SourceOptions(columns=("parcel",), lowercase=True)
+    local = audit([sample], plan, lowered)
+    dist = audit_dask([str(sample)], plan, lowered, workers=2, prefix_bits=1)
+    assert dist.run["partitions"] == 4 and _same(local, dist)

@@ -471,3 +471,6 @@ def test_dask_partitions_skip_bad_lines_too(tmp_path):
     keys = [key for batch in _partition_batches(part, stats) for key in batch.to_list()]
     assert keys == [b"a", b"c"]
     assert stats.skipped == {"bad_utf8": 1}
+    local = open_keys(path, SourceOptions(on_bad_record=SKIP))
+    assert [key for batch in local for key in batch.to_list()] == keys
+    assert stats == local.stats and stats.records == 3  # every record counted, kept or skipped
