@@ -28,6 +28,7 @@ range is read in its own session: a table that changes during the audit is read 
 
 from __future__ import annotations
 
+import contextlib
 import os
 import re
 from collections.abc import Iterator
@@ -311,122 +312,90 @@ def _connect_sqlalchemy(url: str) -> tuple[Any, Any]:
     return engine, connection
 
 
-def _read_sqlite(path: str, query: str, options: SourceOptions, stats: SourceStats, parameters: Any = (),
-                 label: str = "") -> Iterator[RecordBatch]:  # fmt: skip
-    import sqlite3
+@contextlib.contextmanager
+def _session(kind: str, url: str, name: str) -> Iterator[Any]:
+    """A read-only connection of the driver ``kind`` (``sqlite``, ``adbc``, ``sqlalchemy``), closed on leaving;
+    a driver error inside becomes a one-line InputError naming ``name``, without the URL's password."""
+    if kind == "sqlite":
+        connection = _connect_sqlite(url, name)
+        close = connection.close
+    elif kind == "adbc":
+        connection = _connect_adbc(url)
+        close = connection.close
+    else:
+        engine, connection = _connect_sqlalchemy(url)
 
-    name = path + label
-    connection = _connect_sqlite(path, name)
+        def close() -> None:
+            connection.close()
+            engine.dispose()
+
     try:
-        cursor = connection.execute(query, parameters)
-        names = [d[0] for d in cursor.description or []]
+        yield connection
+    except (InputError, UsageError):
+        raise
+    except Exception as exc:  # noqa: BLE001 - any driver error is an input error with its message
+        raise InputError(f"{name}: {_clean(exc, url)}") from None
+    finally:
+        close()
+
+
+def _read_rows(kind: str, url: str, query: str, options: SourceOptions, stats: SourceStats, parameters: Any = (),
+               label: str = "") -> Iterator[RecordBatch]:  # fmt: skip
+    """The records of a query: Python rows in batches for SQLite (``fetchmany``) and SQLAlchemy (a server-side
+    cursor and ``yield_per``), Arrow record batches for ADBC (converted like a Parquet column)."""
+    name = (url if kind == "sqlite" else mask_url(url)) + label
+    step = min(options.batch_keys, 1 << 16)
+    with _session(kind, url, name) as connection:
+        if kind == "adbc":
+            from hashaudit.keys.columnar import arrow_records
+
+            with connection.cursor() as cursor:
+                cursor.execute(query, parameters or None)
+                reader = cursor.fetch_record_batch()
+                keys, weight = _key_columns(list(reader.schema.names), options, name)
+                row = 1
+                for batch in reader:
+                    records = arrow_records(batch, keys, weight, options, row, stats, name)
+                    if records is not None:
+                        yield records
+                    row += batch.num_rows
+            return
+        if kind == "sqlite":
+            cursor = connection.execute(query, parameters)
+            names = [d[0] for d in cursor.description or []]
+            pieces = iter(lambda: cursor.fetchmany(step), [])
+        else:
+            import sqlalchemy as sa
+
+            result = connection.execution_options(stream_results=True).execute(sa.text(query), parameters or {})
+            result = result.yield_per(step)  # the option is ignored for text(): call it
+            names = list(result.keys())
+            pieces = (list(map(tuple, rows)) for rows in result.partitions())
         keys, weight = _key_columns(names, options, name)
         row = 1
-        while True:
-            rows = cursor.fetchmany(min(options.batch_keys, 1 << 16))
-            if not rows:
-                break
+        for rows in pieces:
             stats.records += len(rows)
             batch = _rows_to_batch(rows, keys, weight, options, row, stats, name)
             row += len(rows)
             if batch is not None:
                 yield batch
-    except sqlite3.Error as exc:
-        raise InputError(f"{name}: {' '.join(str(exc).split())}") from None
-    finally:
-        connection.close()
-
-
-def _read_adbc(url: str, query: str, options: SourceOptions, stats: SourceStats, parameters: Any = (),
-               label: str = "") -> Iterator[RecordBatch]:  # fmt: skip
-    """PostgreSQL as Arrow batches (ADBC); the conversion is that of Parquet columns."""
-    from hashaudit.keys.columnar import arrow_records
-
-    name = mask_url(url) + label
-    connection = _connect_adbc(url)
-    try:
-        with connection.cursor() as cursor:
-            cursor.execute(query, parameters or None)
-            reader = cursor.fetch_record_batch()
-            names = list(reader.schema.names)
-            keys, weight = _key_columns(names, options, name)
-            row = 1
-            for batch in reader:
-                records = arrow_records(batch, keys, weight, options, row, stats, name)
-                if records is not None:
-                    yield records
-                row += batch.num_rows
-    except (InputError, UsageError):
-        raise
-    except Exception as exc:  # noqa: BLE001
-        raise InputError(f"{name}: {_clean(exc, url)}") from None
-    finally:
-        connection.close()
-
-
-def _read_sqlalchemy(url: str, query: str, options: SourceOptions, stats: SourceStats, parameters: Any = (),
-                     label: str = "") -> Iterator[RecordBatch]:  # fmt: skip
-    import sqlalchemy as sa
-
-    name = mask_url(url) + label
-    engine, connection = _connect_sqlalchemy(url)
-    try:
-        statement = sa.text(query)
-        result = connection.execution_options(stream_results=True).execute(statement, parameters or {})
-        result = result.yield_per(min(options.batch_keys, 1 << 16))  # the option is ignored for text(): call it
-        keys, weight = _key_columns(list(result.keys()), options, name)
-        row = 1
-        for rows in result.partitions():
-            stats.records += len(rows)
-            batch = _rows_to_batch([tuple(r) for r in rows], keys, weight, options, row, stats, name)
-            row += len(rows)
-            if batch is not None:
-                yield batch
-    except (InputError, UsageError):
-        raise
-    except Exception as exc:  # noqa: BLE001
-        raise InputError(f"{name}: {_clean(exc, url)}") from None
-    finally:
-        connection.close()
-        engine.dispose()
 
 
 def _fetch(kind: str, url: str, query: str) -> tuple[list[str], list[tuple]]:
     """The column names and every row of a small query (planning key ranges), in a read-only session of the
     source's driver."""
-    name = mask_url(url)
-    if kind == "sqlite":
-        import sqlite3
+    with _session(kind, url, mask_url(url)) as connection:
+        if kind == "sqlalchemy":
+            import sqlalchemy as sa
 
-        connection = _connect_sqlite(url, name)
+            result = connection.execute(sa.text(query))
+            return list(result.keys()), [tuple(r) for r in result.fetchall()]
+        cursor = connection.cursor()  # DB-API: SQLite and ADBC alike
         try:
-            cursor = connection.execute(query)
-            return [d[0] for d in cursor.description or []], list(cursor.fetchall())
-        except sqlite3.Error as exc:
-            raise InputError(f"{name}: {' '.join(str(exc).split())}") from None
+            cursor.execute(query)
+            return [d[0] for d in cursor.description or []], [tuple(r) for r in cursor.fetchall()]
         finally:
-            connection.close()
-    if kind == "adbc":
-        connection = _connect_adbc(url)
-        try:
-            with connection.cursor() as cursor:
-                cursor.execute(query)
-                return [d[0] for d in cursor.description or []], [tuple(r) for r in cursor.fetchall()]
-        except Exception as exc:  # noqa: BLE001
-            raise InputError(f"{name}: {_clean(exc, url)}") from None
-        finally:
-            connection.close()
-    import sqlalchemy as sa
-
-    engine, connection = _connect_sqlalchemy(url)
-    try:
-        result = connection.execute(sa.text(query))
-        return list(result.keys()), [tuple(r) for r in result.fetchall()]
-    except Exception as exc:  # noqa: BLE001
-        raise InputError(f"{name}: {_clean(exc, url)}") from None
-    finally:
-        connection.close()
-        engine.dispose()
+            cursor.close()
 
 
 def adbc_available() -> bool:
@@ -458,13 +427,13 @@ def read_database(source: str, options: SourceOptions, stats: SourceStats) -> It
     name = mask_url(source)
     query = build_query(options, name)  # the usage errors of the options before any driver is chosen
     kind, url = _route(source, options)
-    reader = {"sqlite": _read_sqlite, "adbc": _read_adbc, "sqlalchemy": _read_sqlalchemy}[kind]
     if options.key_range is None:
-        yield from reader(url, query, options, stats)
+        yield from _read_rows(kind, url, query, options, stats)
         return
     style = _PARAMSTYLES[kind]
     query = build_query(options, name, style)
-    yield from reader(url, query, options, stats, range_parameters(options.key_range, style), _range_label(options))
+    yield from _read_rows(kind, url, query, options, stats, range_parameters(options.key_range, style),
+                          _range_label(options))  # fmt: skip
 
 
 def plan_key_ranges(source: str, options: SourceOptions) -> list[KeyRange]:
