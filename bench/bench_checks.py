@@ -11,8 +11,9 @@ import argparse
 import resource
 import subprocess
 import sys
-import time
 from pathlib import Path
+
+from _timing import median_run
 
 HERE = Path(__file__).parent
 HASHES = ["-H", "murmur3_32", "-H", "xxh3_64", "-H", "crc32"]
@@ -29,18 +30,6 @@ RUNS = {
 }
 
 
-def median_seconds(cmd: list[str]) -> float:
-    subprocess.run(cmd, check=False, stdout=subprocess.DEVNULL)
-    times = []
-    for _ in range(3):
-        t0 = time.perf_counter()
-        code = subprocess.run(cmd, check=False, stdout=subprocess.DEVNULL).returncode
-        times.append(time.perf_counter() - t0)
-        if code not in (0, 1):
-            raise SystemExit(f"{' '.join(cmd)} exited with {code}")
-    return sorted(times)[1]
-
-
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--keys", type=int, default=10_000_000)
@@ -52,7 +41,7 @@ def main() -> None:
         )
     base = [sys.executable, "-m", "hashaudit", "audit", str(path), *HASHES, *TABLES, "-q"]
     for label, extra in RUNS.items():
-        seconds = median_seconds(base + extra)
+        seconds = median_run(base + extra)
         print(f"{label:<30} {seconds:6.2f} s")
     peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
     print(f"{'peak RSS of any run':<30} {peak:6.0f} MiB")

@@ -14,35 +14,14 @@ Usage: ``python bench/bench_shards.py``.
 
 from __future__ import annotations
 
-import subprocess
 import sys
-import time
 from pathlib import Path
 
 import numpy as np
+from _timing import best_of, median_run
 
 HERE = Path(__file__).parent
 KEYS = HERE / "data" / "keys_10000000.txt"
-
-
-def best_of(fn, runs: int = 3) -> float:  # type: ignore[no-untyped-def]
-    fn()
-    times = []
-    for _ in range(runs):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return min(times)
-
-
-def median_run(cmd: list[str]) -> float:
-    subprocess.run(cmd, check=False, stdout=subprocess.DEVNULL)
-    times = []
-    for _ in range(3):
-        t0 = time.perf_counter()
-        subprocess.run(cmd, check=False, stdout=subprocess.DEVNULL)
-        times.append(time.perf_counter() - t0)
-    return sorted(times)[1]
 
 
 def main() -> None:

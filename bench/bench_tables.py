@@ -37,6 +37,8 @@ import sys
 import time
 from pathlib import Path
 
+from _timing import median_run
+
 HERE = Path(__file__).parent
 DATA = HERE / "data"
 SEED = 20261207
@@ -173,18 +175,6 @@ def in_child(*args: str) -> dict:
     return json.loads(out)
 
 
-def median_audit_seconds(cmd: list[str]) -> float:
-    subprocess.run(cmd, check=False, stdout=subprocess.DEVNULL)  # warm-up: numba cache, page cache
-    times = []
-    for _ in range(3):
-        t0 = time.perf_counter()
-        code = subprocess.run(cmd, check=False, stdout=subprocess.DEVNULL).returncode
-        times.append(time.perf_counter() - t0)
-        if code not in (0, 1):
-            raise SystemExit(f"{' '.join(cmd)} exited with {code}")
-    return sorted(times)[1]
-
-
 def audit_cost(path: Path) -> dict | None:
     """Part 4: median seconds of the audit with and without the ``tables`` group."""
     if not path.exists():
@@ -199,8 +189,8 @@ def audit_cost(path: Path) -> dict | None:
     script = Path(sys.executable).with_name("hashaudit")
     program = [str(script)] if script.exists() else [sys.executable, "-m", "hashaudit"]
     base = [*program, "audit", str(path), *HASHES, *TABLES, "-q"]
-    without = median_audit_seconds([*base, "--checks", "buckets"])
-    with_tables = median_audit_seconds([*base, "--checks", "buckets,tables"])
+    without = median_run([*base, "--checks", "buckets"])
+    with_tables = median_run([*base, "--checks", "buckets,tables"])
     return {
         "keys_file": path.name,
         "buckets_seconds": round(without, 2),
