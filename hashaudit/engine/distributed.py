@@ -14,9 +14,11 @@ boundaries (a line belongs to the range where it starts), and whole files for th
    counts). A key and its repeats share a fingerprint, so they always meet in one group.
 3. **Merge**: partial states are merged pairwise in a tree (not all on one worker), and the client concludes with
    the local engine's own tests of fit — so the JSON report is the local engine's, apart from run metadata.
-4. **Settle the heavy keys** (only when the merged heavy-key summary has cut counts and some kept key may exceed
-   its floor): every partition is read again to count the kept keys exactly (``HeavyCounts``), as the local engine
-   does, so the heavy-key figures do not depend on the order partial summaries merged in.
+The heavy-key summaries of stage 1 are merged before stage 2 starts. When the merged one has cut counts and some
+kept key may exceed its floor, stage 2 also counts those keys exactly — it holds every occurrence, grouped by
+fingerprint — and the client settles the summary with the sums (``HeavyKeys.settle``), as the local engine does with
+a second read; so the heavy-key figures do not depend on the order partial summaries merged in, and the input is
+read once.
 
 Where a check needs one machine: the full-width collision values of each hash (8 bytes per distinct key; 16 for
 128-bit functions) and the values kept for the simulated tables (at most ``AUTO_TABLE_SLOTS`` or
@@ -31,7 +33,7 @@ import io
 import os
 import time
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -39,6 +41,7 @@ import numpy as np
 from hashaudit.engine.local import AuditPlan, _conclude, _HashState, _new_state
 from hashaudit.errors import UsageError
 from hashaudit.hashes.registry import REGISTRY
+from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.options import SourceOptions
 from hashaudit.keys.records import SourceStats
 from hashaudit.stats.heavy import HeavyCounts
@@ -68,6 +71,7 @@ class _Partial:
     occurrences: int = 0
     distinct: int = 0
     stats: dict[int, SourceStats] = field(default_factory=dict)
+    heavy_counts: np.ndarray | None = None  # exact loads of the heavy-key candidates (stage 2)
 
 
 def plan_partitions(sources: Sequence[str], options: Sequence[SourceOptions], partition_bytes: int) -> list[_Partition]:
@@ -213,18 +217,47 @@ def _route(result: tuple[list, _Partial], group: int) -> list[tuple]:
 
 
 def _partial_of(result: tuple[list, _Partial]) -> _Partial:
-    return result[1]
+    return replace(result[1], heavy=None)  # the heavy-key summaries are merged apart, before stage 2
 
 
-def _stage_distinct(routed: list[list[tuple]], plan: AuditPlan, pairs: list) -> _Partial:
-    """Stage 2: the first occurrence of every key of one fingerprint group, fed to the accumulators."""
+def _heavy_of(result: tuple[list, _Partial]) -> Any:
+    return result[1].heavy
+
+
+def _merge_heavy(a: Any, b: Any) -> Any:
+    return a.merge(b)
+
+
+def _candidate_loads(ordered: np.ndarray, first: np.ndarray, weights: np.ndarray | None, candidates: np.ndarray,
+                     order: np.ndarray) -> np.ndarray:  # fmt: skip
+    """The load (occurrences, or summed weights) of each candidate fingerprint among the sorted rows ``ordered``,
+    whose runs of equal fingerprints start where ``first`` is set."""
+    starts = np.flatnonzero(first)
+    loads = np.diff(np.append(starts, len(ordered))).astype(np.float64)
+    if weights is not None:
+        loads = np.add.reduceat(weights[order], starts)
+    runs = ordered[starts]
+    out = np.zeros(len(candidates), dtype=np.float64)
+    index = {(int(lo), int(hi)): j for j, (lo, hi) in enumerate(candidates.tolist())}
+    for r in np.flatnonzero(np.isin(runs[:, 1], candidates[:, 1])).tolist():
+        j = index.get((int(runs[r, 0]), int(runs[r, 1])))
+        if j is not None:
+            out[j] = loads[r]
+    return out
+
+
+def _stage_distinct(routed: list[list[tuple]], plan: AuditPlan, pairs: list,
+                    candidates: np.ndarray | None = None) -> _Partial:  # fmt: skip
+    """Stage 2: the first occurrence of every key of one fingerprint group, fed to the accumulators; and the loads
+    of the heavy-key ``candidates`` (128-bit fingerprints, one row each)."""
     specs = [REGISTRY.get(name) for name in plan.hashes]
     states = [_new_state(spec, plan, pairs, 1) for spec in specs]
     pieces = [piece for rows in routed for piece in rows]
+    none = None if candidates is None else np.zeros(len(candidates), dtype=np.float64)
     if not pieces:
         for state in states:
             state.bucket_loads = []
-        return _Partial(states, distinct=0)
+        return _Partial(states, distinct=0, heavy_counts=none)
     prints = np.concatenate([p[0] for p in pieces])
     positions = np.concatenate([p[1] for p in pieces])
     order = np.lexsort((positions, prints[:, 0], prints[:, 1]))
@@ -246,7 +279,8 @@ def _stage_distinct(routed: list[list[tuple]], plan: AuditPlan, pairs: list) -> 
         if state.first_values is not None:
             low = values[:, 0] if values.ndim == 2 else values
             state.first_values.update(low, positions[keep])
-    return _Partial(states, distinct=int(first.sum()))
+    counted = None if candidates is None else _candidate_loads(ordered, first, weights, candidates, order)
+    return _Partial(states, distinct=int(first.sum()), heavy_counts=counted)
 
 
 def _merge(a: _Partial, b: _Partial) -> _Partial:
@@ -277,22 +311,14 @@ def _merge(a: _Partial, b: _Partial) -> _Partial:
         a.heavy = b.heavy
     elif b.heavy is not None:
         a.heavy.merge(b.heavy)
+    if a.heavy_counts is None:
+        a.heavy_counts = b.heavy_counts
+    elif b.heavy_counts is not None:
+        a.heavy_counts = a.heavy_counts + b.heavy_counts
     a.occurrences += b.occurrences
     a.distinct += b.distinct
     a.stats.update(b.stats)
     return a
-
-
-def _count_heavy(part: _Partition, summary: Any) -> Any:
-    """The exact counts of the heavy-key summary's keys in one partition (a second read, to settle them)."""
-    counted = HeavyCounts(summary)
-    for batch in _partition_batches(part, SourceStats()):
-        counted.update(batch, batch.weights)
-    return counted
-
-
-def _add_counts(a: Any, b: Any) -> Any:
-    return a.merge(b)
 
 
 def _tree_merge(client: Any, futures: list, merge: Any = _merge) -> Any:
@@ -326,7 +352,6 @@ def audit_dask(
     if not plan.distinct:
         raise UsageError("the dask engine tells distinct keys apart; --all-keys runs on the local engine")
     started = time.perf_counter()
-    reads = 1
     located = [_located(str(s)) for s in sources]  # workers elsewhere open files by their absolute path
     parts = plan_partitions(located, per_source, partition_bytes)
     descriptions = [open_keys(s, o).description for s, o in zip(sources, per_source, strict=True)]
@@ -338,20 +363,20 @@ def audit_dask(
         if occurrences == 0:
             raise UsageError("no keys to audit")
         pairs = plan.tables(occurrences)  # automatic sizes follow the key count, known only now
+        heavy = None
+        if "shards" in plan.checks:
+            heavy = _tree_merge(client, [client.submit(_heavy_of, f) for f in first], _merge_heavy).result()
+        candidates = _heavy_candidates(heavy)
         groups = [
-            client.submit(_stage_distinct, [client.submit(_route, f, g) for f in first], plan, pairs, pure=False)
+            client.submit(
+                _stage_distinct, [client.submit(_route, f, g) for f in first], plan, pairs, candidates, pure=False
+            )  # fmt: skip
             for g in range(1 << prefix_bits)
         ]
         partials = [client.submit(_partial_of, f) for f in first]
         total = _tree_merge(client, groups + partials).result()
-        if total.heavy is not None and not total.heavy.exact:  # settle its counts: a second read of every partition
-            if total.heavy.prune():
-                summary = client.scatter(total.heavy, broadcast=True)
-                counted = [client.submit(_count_heavy, part, summary, pure=False) for part in parts]
-                total.heavy.settle(_tree_merge(client, counted, _add_counts).result())
-                reads = 2
-            else:
-                total.heavy.settle(HeavyCounts(total.heavy))
+        if heavy is not None and not heavy.exact:
+            heavy.settle(HeavyCounts(heavy, total.heavy_counts))
     finally:
         client.close()
         if cluster is not None:
@@ -371,11 +396,22 @@ def audit_dask(
     hash_seconds = {name: 0.0 for name in plan.hashes}
     result = _conclude(
         total.states, plan, total.distinct, total.occurrences, tuple(described), started, hash_seconds,
-        total.sample, reads, total.heavy,
+        total.sample, 1, heavy,
     )  # fmt: skip
     result.run["engine"] = "dask"
     result.run["partitions"] = len(parts)
     return result
+
+
+def _heavy_candidates(heavy: Any) -> np.ndarray | None:
+    """The 128-bit fingerprints of the keys whose exact loads settle ``heavy`` (None when it needs none), one row
+    per key in the summary's order."""
+    if heavy is None or heavy.exact or not heavy.prune():
+        return None
+    from hashaudit.hashes.murmur import murmur3_128
+    from hashaudit.stats.distinct import FINGERPRINT_SEED
+
+    return murmur3_128(KeyBatch.from_keys([heavy.keys_[int(p)] for p in heavy.prints_]), FINGERPRINT_SEED)
 
 
 def _located(source: str) -> str:

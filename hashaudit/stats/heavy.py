@@ -216,9 +216,11 @@ class HeavyCounts:
     """Exact occurrences (or weights) of the keys a :class:`HeavyKeys` summary kept, counted in a further pass over
     the input; merges like every accumulator (the counts add up)."""
 
-    def __init__(self, summary: HeavyKeys) -> None:
+    def __init__(self, summary: HeavyKeys, counts: np.ndarray | None = None) -> None:
         self.prints_ = summary.prints_.copy()  # sorted: HeavyKeys keeps its prints in ascending order
         self.counts_ = np.zeros(len(self.prints_), dtype=np.float64)
+        if counts is not None:  # counted elsewhere, in the order of ``summary.prints_``
+            self.counts_ += counts
         self._slots: np.ndarray | None = None  # an open-addressing index of the prints, made on first use
 
     def update(self, batch: KeyBatch, weights: np.ndarray | None = None) -> HeavyCounts:

@@ -55,7 +55,7 @@ def test_the_dask_engine_gives_the_local_engines_report(tmp_path):
     assert _same(local, dist)
     attributions = [c for h in report_dict(dist)["hashes"] for c in h["checks"] if c["name"] == "load_attribution"]
     assert attributions and all(c["details"]["heavy_keys_exact"] for c in attributions)
-    assert dist.run["passes"] == local.run["passes"] == 2
+    assert local.run["passes"] == 2 and dist.run["passes"] == 1  # Dask counts the heavy keys in stage 2: one read
 
 
 def test_parquet_row_groups_are_partitions():
