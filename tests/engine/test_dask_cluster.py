@@ -64,7 +64,9 @@ def scheduler(tmp_path_factory):
 def test_a_separately_started_cluster_gives_the_local_engines_report(scheduler, tmp_path, monkeypatch):
     rng = np.random.default_rng(17)
     keys = [b"berth-%d" % x for x in rng.integers(0, 30_000, size=50_000)]
-    keys[::25] = [b"berth-12"] * 2000  # a hot key: the heavy keys are settled (by a second read locally, in stage 2 on the workers)
+    keys[::25] = [
+        b"berth-12"
+    ] * 2000  # a hot key: the heavy keys are settled (by a second read locally, in stage 2 on the workers)
     (tmp_path / "keys.txt").write_bytes(b"\n".join(keys) + b"\n")
     monkeypatch.chdir(tmp_path)  # a relative path: the workers, elsewhere, must still find the file
     args = ["audit", "keys.txt", "-H", "murmur3_32", "-H", "xxh3_64", "-m", "4096", "--shards", "8", "-q"]
