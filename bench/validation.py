@@ -1,6 +1,6 @@
 """Calibration and power study: prints Markdown tables and writes ``bench/data/validation.json``.
 
-Runs :func:`hashaudit.validation.study`: 2,000 independent null audits (random distinct keys, 2,000 to 200,000 of
+Runs :func:`hashaudit.calibration.study`: 2,000 independent null audits (random distinct keys, 2,000 to 200,000 of
 them, through SipHash-2-4, XXH3 or SipHash truncated to 32 bits under a seed drawn per audit; one ``mask`` and one
 ``mod`` table at load factors 0.1 to 8; bucket, bit, full-width collision, avalanche and simulated-table checks),
 40 audits per strength of five planted departures, and 200 null runs of ``probe_cost`` per table size and kind.
@@ -20,7 +20,8 @@ import os
 import time
 from pathlib import Path
 
-from hashaudit import validation
+from hashaudit import calibration
+from hashaudit.calibration.checks import BY_LAW_LEFT_OUT
 
 HERE = Path(__file__).parent
 
@@ -78,7 +79,7 @@ def calibration_tables(null: dict) -> str:
         "| check | null law | runs | KS p (two-sided) | KS p (too many small) | p ≤ 0.01 | p ≤ 0.05 | status |",
         "|---|---|---:|---:|---:|---:|---:|---|",
     ]
-    shown = [r for r in null["laws"] if not r["check"].startswith(("colliding_pairs", "probe_cost"))]
+    shown = [r for r in null["laws"] if not r["check"].startswith(BY_LAW_LEFT_OUT)]
     order = {check: i for i, check in enumerate(dict.fromkeys(r["check"] for r in shown))}
     for row in sorted(shown, key=lambda r: (order[r["check"]], -r["runs"])):
         s = row["summary"]
@@ -162,10 +163,10 @@ def tables(result: dict) -> str:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--workers", type=int, default=os.cpu_count() or 1)
-    parser.add_argument("--null-runs", type=int, default=validation.FULL_NULL_RUNS)
-    parser.add_argument("--power-runs", type=int, default=validation.FULL_POWER_RUNS)
-    parser.add_argument("--probe-cost-runs", type=int, default=validation.PROBE_COST_RUNS)
-    parser.add_argument("--seed", type=int, default=validation.STUDY_SEED)
+    parser.add_argument("--null-runs", type=int, default=calibration.FULL_NULL_RUNS)
+    parser.add_argument("--power-runs", type=int, default=calibration.FULL_POWER_RUNS)
+    parser.add_argument("--probe-cost-runs", type=int, default=calibration.PROBE_COST_RUNS)
+    parser.add_argument("--seed", type=int, default=calibration.STUDY_SEED)
     parser.add_argument("--out", type=Path, default=HERE / "data" / "validation.json")
     parser.add_argument("--render", type=Path, help="print the tables of a JSON written earlier; run nothing")
     args = parser.parse_args()
@@ -173,7 +174,7 @@ def main() -> None:
         print(tables(json.loads(args.render.read_text(encoding="utf-8"))))
         return
     started = time.perf_counter()
-    result = validation.study(
+    result = calibration.study(
         null_runs=args.null_runs,
         power_runs=args.power_runs,
         probe_cost_runs=args.probe_cost_runs,

@@ -16,7 +16,7 @@ except PackageNotFoundError:  # pragma: no cover - running from a source tree wi
 
 _EXPORTS = {
     "REGISTRY": "hashaudit.hashes.registry",
-    "AuditPlan": "hashaudit.engine.local",
+    "AuditPlan": "hashaudit.engine.plan",
     "AuditResult": "hashaudit.verdict.result",
     "BitCounts": "hashaudit.stats.bits",
     "BucketCounts": "hashaudit.stats.buckets",
@@ -31,10 +31,10 @@ _EXPORTS = {
     "KeyBatch": "hashaudit.keys.batch",
     "MergeError": "hashaudit.errors",
     "SourceOptions": "hashaudit.keys.options",
-    "Thresholds": "hashaudit.verdict.findings",
+    "Thresholds": "hashaudit.checks",
     "UsageError": "hashaudit.errors",
     "audit": "hashaudit.engine.sources",
-    "audit_batches": "hashaudit.engine.local",
+    "audit_batches": "hashaudit.engine.runner",
     "bucket_index": "hashaudit.tables.schemes",
     "from_callable": "hashaudit.hashes.registry",
     "get_hash": "hashaudit.hashes.registry",

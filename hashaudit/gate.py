@@ -1,7 +1,7 @@
-"""``hashaudit gate``: an audit read from a TOML file, for a CI job to pass or fail, and the baseline comparison.
+"""``hashaudit gate``: an audit read from a TOML file, for a CI job to pass or fail.
 
 The file is ``hashaudit.toml`` (its top level), or the ``[tool.hashaudit]`` table of ``pyproject.toml``, or any file
-given with ``--config``. Every key is listed in ``KNOWN``; an unknown key is an error that names the key and its
+given with ``--config``. Every key is a declared setting (``hashaudit.settings``); an unknown key is an error that names the key and its
 line, so a misspelt threshold never passes silently. Paths in the file are relative to the file's folder.
 
     seed = 0
@@ -21,15 +21,11 @@ line, so a misspelt threshold never passes silently. Paths in the file are relat
     file = "reports/baseline.json"
     tolerance = 0.05            # an effect may grow by this much before it counts as a regression
 
-A baseline is an earlier JSON report. Checks are matched by hash, check name and table (scheme and size, table
-kind, shard scheme and count); a check regresses when its verdict got worse (pass → warn → fail) or its effect grew
-by more than the tolerance, even when it still passes on its own.
+A baseline is an earlier JSON report; ``hashaudit.report.baseline`` compares the audit with it.
 """
 
 from __future__ import annotations
 
-import json
-import math
 import re
 import tomllib
 from dataclasses import dataclass, field
@@ -37,57 +33,12 @@ from pathlib import Path
 from typing import Any
 
 from hashaudit.errors import UsageError
+from hashaudit.report.baseline import DEFAULT_TOLERANCE
+from hashaudit.report.writers import WRITERS
+from hashaudit.settings import Setting, SettingError
 
-SOURCE_KEYS = {
-    "path": str,
-    "format": str,
-    "columns": list,
-    "join": str,
-    "field": str,
-    "delimiter": str,
-    "header": bool,
-    "key_format": str,
-    "keep_cr": bool,
-    "skip_empty": bool,
-    "raw_bytes": bool,
-    "strip": bool,
-    "lowercase": bool,
-    "pattern": str,
-    "weight": str,
-    "integers": str,
-    "query": str,
-    "table": str,
-    "driver": str,
-    "on_bad_record": str,
-}
-TOP_KEYS = {
-    "seed": int,
-    "alpha": float,
-    "hashes": list,
-    "buckets": list,
-    "schemes": list,
-    "checks": list,
-    "all_keys": bool,
-    "distinct_memory": (int, str),
-    "table_kinds": list,
-    "loads": list,
-    "table_slots": (int, str),
-    "growth": list,
-    "growth_start": (int, str),
-    "tag_bits": (int, str),
-    "shards": list,
-    "shard_schemes": list,
-    "vnodes": int,
-    "shard_weights": list,
-    "sources": list,
-    "thresholds": dict,
-    "baseline": dict,
-    "reports": dict,
-}
-BASELINE_KEYS = {"file": str, "tolerance": float}
-REPORT_KEYS = {"json": str, "markdown": str, "junit": str, "html": str}
-VERDICT_RANK = {"pass": 0, "info": 0, "warn": 1, "fail": 2}
-DEFAULT_TOLERANCE = 0.05
+SECTION_TABLES = ("sources", "thresholds", "baseline", "reports")
+BASELINE_KEYS = ("file", "tolerance")
 
 
 @dataclass
@@ -142,92 +93,86 @@ def _line_of(text: str, key: str, section: str | None) -> int | None:
     return None
 
 
-def _check_keys(table: dict, known: dict, text: str, path: Path, section: str | None) -> None:
-    for key, value in table.items():
+def _where(path: Path, text: str, key: str, section: str | None) -> str:
+    line = _line_of(text, key, section)
+    return f"{path} line {line}" if line else str(path)
+
+
+def _values(
+    table: dict, known: dict[str, Setting], text: str, path: Path, section: str | None, extra: tuple[str, ...] = ()
+) -> dict[str, Any]:
+    """The entries of one TOML table converted by their settings' declarations (a section table is kept as is);
+    a one-line ``UsageError`` names the key and its line for an unknown key or a value of the wrong kind."""
+    aliases = {old: s.name for s in known.values() for old in s.toml_aliases}
+    out: dict[str, Any] = {}
+    for key, raw in table.items():
+        name = aliases.get(key, key)
+        at = _where(path, text, key, section)
         where = f" in [{section}]" if section else ""
-        line = _line_of(text, key, section)
-        at = f"{path} line {line}" if line else str(path)
-        if key not in known:
-            raise UsageError(f"{at}: unknown key {key!r}{where} (known: {', '.join(sorted(known))})")
-        kinds = known[key] if isinstance(known[key], tuple) else (known[key],)
-        if known[key] is float and isinstance(value, int) and not isinstance(value, bool):
+        if key in extra:
+            out[key] = raw
             continue
-        if not isinstance(value, kinds) or (bool not in kinds and isinstance(value, bool)):
-            names = " or ".join(k.__name__ for k in kinds)
-            raise UsageError(f"{at}: {key!r}{where} must be {names}, not {type(value).__name__}")
+        if name not in known:
+            listed = ", ".join(sorted([*known, *extra]))
+            raise UsageError(f"{at}: unknown key {key!r}{where} (known: {listed})")
+        try:
+            out[name] = known[name].value(raw)
+        except SettingError as exc:
+            raise UsageError(f"{at}: {exc.worded(lambda n: n)}") from None
+    return out
+
+
+def _table(document: dict, key: str, path: Path, text: str, kind: type) -> Any:
+    value = document.get(key, kind())
+    if not isinstance(value, kind):
+        wanted = "a table ([" + key + "])" if kind is dict else "a list of tables ([[" + key + "]])"
+        raise UsageError(f"{_where(path, text, key, None)}: {key!r} must be {wanted}")
+    return value
 
 
 def load_config(explicit: str | None) -> GateConfig:
-    """Read and check the gate's TOML; raises ``UsageError`` naming the key and line of any mistake."""
-    from hashaudit.engine.checks import parse_checks
-    from hashaudit.engine.local import AuditPlan
-    from hashaudit.keys.options import SourceOptions
-    from hashaudit.stats.tags import parse_tag_bits
-    from hashaudit.tables.growth import parse_growth
-    from hashaudit.tables.sizes import parse_size
-    from hashaudit.verdict.findings import Thresholds
+    """Read and check the gate's TOML; raises ``UsageError`` naming the key and line of any mistake.
+
+    The keys are the declared settings' names: the audit's and the check groups' at the top level, thresholds in
+    ``[thresholds]`` (``alpha`` there or at the top), source settings in each ``[[sources]]`` with its ``path``,
+    ``file`` and ``tolerance`` in ``[baseline]``, report paths in ``[reports]``.
+    """
+    from hashaudit.checks import Thresholds, plan_settings, threshold_settings
+    from hashaudit.engine.plan import AuditPlan
+    from hashaudit.keys.options import SOURCE_SETTINGS, SourceOptions
 
     path, table, text = find_config(explicit)
-    _check_keys(table, TOP_KEYS, text, path, None)
-    known_thresholds = {name: float for name in Thresholds.effect_names()}
-    _check_keys(table.get("thresholds", {}), known_thresholds, text, path, "thresholds")
-    _check_keys(table.get("baseline", {}), BASELINE_KEYS, text, path, "baseline")
-    _check_keys(table.get("reports", {}), REPORT_KEYS, text, path, "reports")
-    if not table.get("sources"):
+    top = _values(table, {**plan_settings(), "alpha": threshold_settings()["alpha"]}, text, path, None, SECTION_TABLES)
+    limits = _values(_table(table, "thresholds", path, text, dict), threshold_settings(), text, path, "thresholds")
+    baseline = _plain(
+        _table(table, "baseline", path, text, dict), {"file": str, "tolerance": float}, path, text, "baseline"
+    )
+    reports = _plain(_table(table, "reports", path, text, dict), dict.fromkeys(WRITERS, str), path, text, "reports")
+    entries = _table(table, "sources", path, text, list)
+    if not entries:
         raise UsageError(f"{path}: no [[sources]]; give at least one with a path")
     here = path.parent
     sources, options = [], []
-    for entry in table["sources"]:
+    source_settings = {s.name: s for s in SOURCE_SETTINGS}
+    for entry in entries:
         if not isinstance(entry, dict):
             raise UsageError(f"{path}: every entry of sources must be a table ([[sources]])")
-        _check_keys(entry, SOURCE_KEYS, text, path, "sources")
-        if "path" not in entry:
-            raise UsageError(f"{path}: a [[sources]] entry has no path")
-        raw = entry["path"]
+        values = _values(entry, source_settings, text, path, "sources", ("path",))
+        raw = values.pop("path", None)
+        if not isinstance(raw, str) or not raw:
+            raise UsageError(f"{path}: a [[sources]] entry has no path (a string)")
         remote = "://" in raw  # a database URL is not a path
         sources.append(raw if raw == "-" or remote else str(here / raw))
-        settings = {k: v for k, v in entry.items() if k != "path"}
-        if "columns" in settings:
-            settings["columns"] = tuple(str(c) for c in settings["columns"])
-        options.append(SourceOptions(**settings))
-    thresholds = Thresholds(alpha=float(table.get("alpha", 0.01)), **table.get("thresholds", {}))
-    checks_text = ",".join(table["checks"]) if "checks" in table else None
-    groups = parse_checks(checks_text)
-    tag_bits = parse_tag_bits(str(table["tag_bits"])) if "tag_bits" in table else None
-    if tag_bits is not None and "tags" not in groups:
-        groups = (*groups, "tags")
-    if table.get("shards") and "shards" not in groups:
-        groups = (*groups, "shards")
-    start = parse_size(table.get("growth_start", 16))
-    plan_settings: dict[str, Any] = {
-        "buckets": tuple(parse_size(b) for b in table.get("buckets", [])),
-        "schemes": tuple(table.get("schemes", [])),
-        "seed": int(table.get("seed", 0)),
-        "thresholds": thresholds,
-        "distinct": not table.get("all_keys", False),
-        "checks": groups,
-        "tag_bits": tag_bits,
-        "shards": tuple(int(n) for n in table.get("shards", [])),
-        "shard_weights": tuple(float(w) for w in table.get("shard_weights", [])),
-    }
-    for name in ("table_kinds", "shard_schemes"):
-        if name in table:
-            plan_settings[name] = tuple(table[name])
-    if "loads" in table:
-        plan_settings["loads"] = tuple(float(x) for x in table["loads"])
-    if "hashes" in table:
-        plan_settings["hashes"] = tuple(table["hashes"])
-    if "distinct_memory" in table:
-        plan_settings["distinct_memory"] = parse_size(table["distinct_memory"])
-    if "table_slots" in table:
-        plan_settings["table_slots"] = parse_size(table["table_slots"])
-    if "vnodes" in table:
-        plan_settings["vnodes"] = int(table["vnodes"])
-    if "growth" in table:
-        plan_settings["growth"] = tuple(parse_growth(str(g), start) for g in table["growth"])
-    plan = AuditPlan(**plan_settings)
-    baseline = table.get("baseline", {})
-    reports = {k: str(here / v) for k, v in table.get("reports", {}).items()}
+        options.append(SourceOptions(**values))
+    for name in SECTION_TABLES:
+        top.pop(name, None)
+    if "alpha" in top:
+        limits.setdefault("alpha", top.pop("alpha"))
+    try:
+        plan = AuditPlan(thresholds=Thresholds(**limits), **top)
+    except SettingError as exc:
+        raise UsageError(f"{_where(path, text, exc.setting, None)}: {exc.worded(lambda n: n)}") from None
+    reports = {k: str(here / v) for k, v in reports.items()}
     base_file = baseline.get("file")
     return GateConfig(
         path,
@@ -240,120 +185,19 @@ def load_config(explicit: str | None) -> GateConfig:
     )
 
 
-def _identity(check: dict, hash_name: str) -> tuple:
-    return (
-        hash_name,
-        check["name"],
-        check.get("scheme"),
-        check.get("buckets"),
-        check.get("table_kind"),
-        check.get("shard_scheme"),
-        check.get("shards"),
-    )
-
-
-def _label(check: dict) -> str:
-    parts = []
-    if check.get("table_kind"):
-        parts.append(check["table_kind"])
-    if check.get("shard_scheme"):
-        parts.append(f"{check['shard_scheme']} {check['shards']} shards")
-    elif check.get("scheme"):
-        b = check["buckets"]
-        parts.append(f"{check['scheme']} 2^{b.bit_length() - 1}" if b & (b - 1) == 0 else f"{check['scheme']} {b}")
-    return " ".join(parts) or "full value"
-
-
-def compare(new: dict, old: dict, tolerance: float) -> list[dict]:
-    """Rows comparing two JSON reports check by check (see the module notes); regressions first."""
-    if old.get("schema") != new.get("schema"):
-        raise UsageError(f"the baseline's schema is {old.get('schema')!r}, not {new.get('schema')!r}")
-    before = {_identity(c, h["name"]): c for h in old.get("hashes", []) for c in h.get("checks", [])}
-    rows = []
-    for h in new.get("hashes", []):
-        for check in h.get("checks", []):
-            key = _identity(check, h["name"])
-            previous = before.pop(key, None)
-            new_effect = (check.get("effect") or {}).get("value")
-            row = {
-                "hash": h["name"],
-                "check": check["name"],
-                "table": _label(check),
-                "old_verdict": None,
-                "new_verdict": check["verdict"],
-                "old_effect": None,
-                "new_effect": new_effect,
-                "regressed": False,
-                "reason": "new check",
-            }
-            if previous is not None:
-                old_effect = (previous.get("effect") or {}).get("value")
-                row.update(old_verdict=previous["verdict"], old_effect=old_effect, reason="unchanged")
-                worse = VERDICT_RANK[check["verdict"]] > VERDICT_RANK[previous["verdict"]]
-                grew = (
-                    isinstance(new_effect, int | float)
-                    and isinstance(old_effect, int | float)
-                    and math.isfinite(new_effect)
-                    and math.isfinite(old_effect)
-                    and new_effect - old_effect > tolerance
-                    and check["name"] not in ("duplicate_keys", "hot_keys", "load_attribution")  # facts about keys
-                )
-                if worse:
-                    row.update(regressed=True, reason=f"verdict {previous['verdict']} → {check['verdict']}")
-                elif grew:
-                    row.update(
-                        regressed=True,
-                        reason=f"effect {old_effect:.4g} → {new_effect:.4g} (more than {tolerance:g} worse)",
-                    )
-            rows.append(row)
-    for key, check in before.items():
-        rows.append(
-            {
-                "hash": key[0],
-                "check": check["name"],
-                "table": _label(check),
-                "old_verdict": check["verdict"],
-                "new_verdict": None,
-                "old_effect": (check.get("effect") or {}).get("value"),
-                "new_effect": None,
-                "regressed": False,
-                "reason": "no longer checked",
-            }
-        )
-    rows.sort(key=lambda r: (not r["regressed"], r["hash"], r["check"], r["table"]))
-    return rows
-
-
-def read_baseline(path: str) -> dict:
-    """An earlier JSON report; one-line ``UsageError`` when it cannot be read."""
-    try:
-        with open(path, encoding="utf-8") as f:
-            return json.load(f)
-    except FileNotFoundError:
-        raise UsageError(f"baseline {path!r}: no such file") from None
-    except (OSError, ValueError) as exc:
-        raise UsageError(f"baseline {path!r}: not a JSON report ({exc})") from None
-
-
-def comparison_text(rows: list[dict]) -> str:
-    """The comparison for the terminal: regressions first, old and new side by side."""
-
-    def effect(x: float | None) -> str:
-        return "—" if x is None else f"{x:.4g}"
-
-    shown = [r for r in rows if r["regressed"] or r["reason"] not in ("unchanged",)]
-    lines = [
-        f"against the baseline: {sum(r['regressed'] for r in rows)} regressed, "
-        f"{sum(r['reason'] == 'unchanged' for r in rows)} unchanged checks"
-    ]
-    for r in shown:
-        tag = "REGRESSED" if r["regressed"] else "note     "
-        lines.append(
-            f"  {tag} {r['hash']:<12} {r['check']:<22} {r['table']:<22} "
-            f"{r['old_verdict'] or '—':>5} → {r['new_verdict'] or '—':<5}  effect {effect(r['old_effect'])} → "
-            f"{effect(r['new_effect'])}  ({r['reason']})"
-        )
-    return "\n".join(lines)
+def _plain(table: dict, known: dict[str, type], path: Path, text: str, section: str) -> dict[str, Any]:
+    """A small table of plain values (``[baseline]``, ``[reports]``), each checked by type."""
+    for key, value in table.items():
+        at = _where(path, text, key, section)
+        if key not in known:
+            raise UsageError(f"{at}: unknown key {key!r} in [{section}] (known: {', '.join(sorted(known))})")
+        kind = known[key]
+        fits = isinstance(value, kind) and not isinstance(value, bool)
+        if kind is float and isinstance(value, int) and not isinstance(value, bool):
+            fits = True
+        if not fits:
+            raise UsageError(f"{at}: {key!r} in [{section}] must be {'a number' if kind is float else 'a string'}")
+    return dict(table)
 
 
 def resolve_output(cli_value: str | None, config: GateConfig, kind: str) -> str | None:

@@ -38,7 +38,9 @@ from typing import Any
 
 import numpy as np
 
-from hashaudit.engine.local import AuditPlan, _conclude, _HashState, _new_state
+from hashaudit.engine.conclude import conclude
+from hashaudit.engine.plan import AuditPlan
+from hashaudit.engine.state import HashState
 from hashaudit.errors import UsageError
 from hashaudit.hashes.registry import REGISTRY
 from hashaudit.keys.batch import KeyBatch
@@ -65,7 +67,7 @@ class _Partition:
 class _Partial:
     """A mergeable piece of an audit: accumulators per hash, and the counts of the keys seen."""
 
-    states: list[_HashState]
+    states: list[HashState]
     sample: Any = None
     heavy: Any = None
     occurrences: int = 0
@@ -111,7 +113,7 @@ def _is_database(source: str, opts: SourceOptions) -> bool:
 
     if opts.format != "auto":
         return opts.format == "sql"
-    return is_database(source) or bool(opts.query or opts.table)
+    return is_database(source) or bool(opts.query or opts.db_table)
 
 
 def _key_range_options(source: str, opts: SourceOptions) -> list[SourceOptions]:
@@ -120,7 +122,7 @@ def _key_range_options(source: str, opts: SourceOptions) -> list[SourceOptions]:
 
     from hashaudit.keys.sql import plan_key_ranges
 
-    if opts.split_column is None:
+    if opts.db_split_column is None:
         return [opts]
     return [replace(opts, key_range=key_range) for key_range in plan_key_ranges(source, opts)]
 
@@ -168,25 +170,25 @@ def _partition_batches(part: _Partition, stats: SourceStats):  # type: ignore[no
 
 def _stage_read(part: _Partition, plan: AuditPlan, pairs: list, bits: int) -> tuple[list, _Partial]:
     """Stage 1: rows routed by fingerprint prefix, and the occurrence-level accumulators of this partition."""
-    from hashaudit.hashes.murmur import murmur3_128
+    from hashaudit.hashes.fingerprint import key_fingerprints_128
     from hashaudit.stats.avalanche import KeySample
-    from hashaudit.stats.distinct import FINGERPRINT_SEED
     from hashaudit.stats.heavy import HeavyKeys
 
     specs = [REGISTRY.get(name) for name in plan.hashes]
-    loads = [_new_state(spec, plan, pairs, 1) for spec in specs]
-    wants_sample = any(group in plan.checks for group in ("avalanche", "neighbours", "seeds"))
-    sample = KeySample(plan.avalanche_keys, plan.seed) if wants_sample else None
-    heavy = HeavyKeys() if "shards" in plan.checks else None
+    loads = [HashState.build(spec, plan, pairs) for spec in specs]
+    for state in loads:  # only the occurrence loads count here: the rest is stage 2's
+        state.keep_only("loads")
+    groups = plan.groups()
+    sample = KeySample(plan.avalanche_keys, plan.seed) if any(g.needs_sample for g in groups) else None
+    heavy = HeavyKeys() if any(g.needs_heavy for g in groups) else None
     stats = SourceStats()
     chunks: list[tuple] = []
     index = 0
     for batch in _partition_batches(part, stats):
-        prints = murmur3_128(batch, FINGERPRINT_SEED)
+        prints = key_fingerprints_128(batch)
         values = [spec.hash_batch(batch, plan.seed if spec.seeded else 0) for spec in specs]
         for state, v in zip(loads, values, strict=True):
-            for counts in state.shards:
-                counts.add_load(v, batch.weights)
+            state.add_loads(v, batch.weights)
         if sample is not None:
             sample.update(batch)
         if heavy is not None:
@@ -204,11 +206,6 @@ def _stage_read(part: _Partition, plan: AuditPlan, pairs: list, bits: int) -> tu
             if len(pick):
                 routes[g].append((prints[pick], positions[pick], [v[pick] for v in values],
                                   None if weights is None else weights[pick]))  # fmt: skip
-    for state in loads:  # only the shard loads count here: the rest is stage 2's
-        state.tables, state.bits, state.collisions, state.first_values = [], None, None, None
-        state.bucket_loads = []
-        for counts in state.shards:
-            counts.distinct_[:] = 0
     return routes, _Partial(loads, sample, heavy, index, 0, {part.index: stats})
 
 
@@ -251,12 +248,10 @@ def _stage_distinct(routed: list[list[tuple]], plan: AuditPlan, pairs: list,
     """Stage 2: the first occurrence of every key of one fingerprint group, fed to the accumulators; and the loads
     of the heavy-key ``candidates`` (128-bit fingerprints, one row each)."""
     specs = [REGISTRY.get(name) for name in plan.hashes]
-    states = [_new_state(spec, plan, pairs, 1) for spec in specs]
+    states = [HashState.build(spec, plan, pairs) for spec in specs]
     pieces = [piece for rows in routed for piece in rows]
     none = None if candidates is None else np.zeros(len(candidates), dtype=np.float64)
     if not pieces:
-        for state in states:
-            state.bucket_loads = []
         return _Partial(states, distinct=0, heavy_counts=none)
     prints = np.concatenate([p[0] for p in pieces])
     positions = np.concatenate([p[1] for p in pieces])
@@ -269,16 +264,9 @@ def _stage_distinct(routed: list[list[tuple]], plan: AuditPlan, pairs: list,
     weights = np.concatenate([p[3] if p[3] is not None else np.ones(len(p[0])) for p in pieces]) if weighted else None
     for h, state in enumerate(states):
         every = np.concatenate([p[2][h] for p in pieces])
-        for bucket_load in state.bucket_loads:  # loads count every occurrence (sizes are known by now)
+        for bucket_load in state.get("bucket_loads"):  # loads per bucket count every occurrence (sizes known now)
             bucket_load.add_load(every, weights)
-        values = every[keep]
-        for accumulator in state.streams():
-            accumulator.update(values)
-        for counts in state.shards:
-            counts.update(values)
-        if state.first_values is not None:
-            low = values[:, 0] if values.ndim == 2 else values
-            state.first_values.update(low, positions[keep])
+        state.add_values(every[keep], positions[keep])
     counted = None if candidates is None else _candidate_loads(ordered, first, weights, candidates, order)
     return _Partial(states, distinct=int(first.sum()), heavy_counts=counted)
 
@@ -286,23 +274,7 @@ def _stage_distinct(routed: list[list[tuple]], plan: AuditPlan, pairs: list,
 def _merge(a: _Partial, b: _Partial) -> _Partial:
     """Merge two partial audits (associative and commutative, like every accumulator)."""
     for mine, theirs in zip(a.states, b.states, strict=True):
-        for table, table_twin in zip(mine.tables, theirs.tables, strict=False):
-            table.merge(table_twin)
-        if not mine.tables and theirs.tables:
-            mine.tables = theirs.tables
-        for name in ("bits", "collisions", "first_values"):
-            own, other = getattr(mine, name), getattr(theirs, name)
-            if own is None:
-                setattr(mine, name, other)
-            elif other is not None:
-                own.merge(other)
-        for counts, counts_twin in zip(mine.shards, theirs.shards, strict=True):
-            counts.merge(counts_twin)
-        if not mine.bucket_loads:
-            mine.bucket_loads = theirs.bucket_loads
-        elif theirs.bucket_loads:
-            for load, load_twin in zip(mine.bucket_loads, theirs.bucket_loads, strict=True):
-                load.merge(load_twin)
+        mine.merge(theirs)
     if a.sample is None:
         a.sample = b.sample
     elif b.sample is not None:
@@ -364,7 +336,7 @@ def audit_dask(
             raise UsageError("no keys to audit")
         pairs = plan.tables(occurrences)  # automatic sizes follow the key count, known only now
         heavy = None
-        if "shards" in plan.checks:
+        if any(g.needs_heavy for g in plan.groups()):
             heavy = _tree_merge(client, [client.submit(_heavy_of, f) for f in first], _merge_heavy).result()
         candidates = _heavy_candidates(heavy)
         groups = [
@@ -393,11 +365,18 @@ def audit_dask(
             "bytes_read": sum(s.bytes_read for s in mine),
         }
         described.append({**description, "stats": combined})
-    hash_seconds = {name: 0.0 for name in plan.hashes}
-    result = _conclude(
-        total.states, plan, total.distinct, total.occurrences, tuple(described), started, hash_seconds,
-        total.sample, 1, heavy,
-    )  # fmt: skip
+    result = conclude(
+        total.states,
+        plan,
+        keys=total.distinct,
+        occurrences=total.occurrences,
+        tables=pairs,
+        sources=tuple(described),
+        started=started,
+        hash_seconds=dict.fromkeys(plan.hashes, 0.0),
+        sample=total.sample,
+        heavy=heavy,
+    )
     result.run["engine"] = "dask"
     result.run["partitions"] = len(parts)
     return result
@@ -408,10 +387,9 @@ def _heavy_candidates(heavy: Any) -> np.ndarray | None:
     per key in the summary's order."""
     if heavy is None or heavy.exact or not heavy.prune():
         return None
-    from hashaudit.hashes.murmur import murmur3_128
-    from hashaudit.stats.distinct import FINGERPRINT_SEED
+    from hashaudit.hashes.fingerprint import key_fingerprints_128
 
-    return murmur3_128(KeyBatch.from_keys([heavy.keys_[int(p)] for p in heavy.prints_]), FINGERPRINT_SEED)
+    return key_fingerprints_128(KeyBatch.from_keys([heavy.keys_[int(p)] for p in heavy.prints_]))
 
 
 def _located(source: str) -> str:

@@ -688,17 +688,40 @@ def _conclude(
             if families is None:
                 families = neighbour_families(sample, seed=plan.seed)
             tables = [(t.scheme, t.buckets) for t in state.tables]
-            for _family, test in neighbour_tests(state.spec, families, tables, seed=plan.seed):
+            for _family, test in neighbour_tests(
+                state.spec.hash_batch,
+                state.spec.width,
+                families,
+                tables,
+                seed=plan.seed,
+                seeded=state.spec.seeded,
+                integer_keys=state.spec.integer_keys,
+                name=state.spec.name,
+            ):
                 d = test.details
                 family.append((state.spec.name, d.get("worst_scheme"), d.get("worst_buckets"), d["family_keys"], test))
         if sample is not None and len(sample) and "seeds" in plan.checks and state.spec.seeded:
             tables = [(t.scheme, t.buckets) for t in state.tables]
-            runs = seed_runs(state.spec, sample.keys(), tables, null_seed=plan.seed)
+            runs = seed_runs(
+                state.spec.hash_batch,
+                state.spec.width,
+                sample.keys(),
+                tables,
+                null_seed=plan.seed,
+                name=state.spec.name,
+            )
             for test in seed_tests(runs):
                 family.append((state.spec.name, None, None, runs.keys, test))
         if sample is not None and len(sample) and "avalanche" in plan.checks:
             hash_seed = plan.seed if state.spec.seeded else 0
-            matrix = avalanche_matrix(state.spec, sample, seed=hash_seed, max_bytes=plan.avalanche_bytes)
+            matrix = avalanche_matrix(
+                state.spec.hash_batch,
+                state.spec.width,
+                sample,
+                seed=hash_seed,
+                max_bytes=plan.avalanche_bytes,
+                name=state.spec.name,
+            )
             for test in avalanche_tests(matrix):
                 family.append((state.spec.name, None, None, matrix.keys, test))
             plots.setdefault(state.spec.name, {})["avalanche"] = matrix.flip_probability()

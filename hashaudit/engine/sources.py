@@ -3,11 +3,14 @@ on the count, then stream every batch through the local engine."""
 
 from __future__ import annotations
 
+import dataclasses
 import itertools
 import os
 from collections.abc import Callable, Iterator, Sequence
+from typing import Any
 
-from hashaudit.engine.local import AuditPlan, audit_batches
+from hashaudit.engine.plan import AuditPlan
+from hashaudit.engine.runner import audit_batches
 from hashaudit.errors import UsageError
 from hashaudit.keys import open_keys
 from hashaudit.keys.batch import KeyBatch
@@ -95,16 +98,7 @@ def audit(
         reopen=reopen if readable_again else None,
     )
     described = tuple({**stream.description, "stats": _stats_dict(stream.stats)} for stream in streams)
-    final = AuditResult(
-        result.verdict,
-        result.keys,
-        result.hashes,
-        described,
-        result.settings,
-        result.run,
-        result.keys_read,
-        result.plots,
-    )
+    final = dataclasses.replace(result, sources=described)
     if show_keys:
         from hashaudit.engine.showkeys import attach_colliding_keys
 
@@ -143,3 +137,31 @@ def _stats_dict(stats: object) -> dict:
     from dataclasses import asdict, is_dataclass
 
     return asdict(stats) if is_dataclass(stats) and not isinstance(stats, type) else dict(vars(stats))
+
+
+def measure_keys(sources: Sequence[str], hash_name: str, seed: int, options: SourceOptions) -> tuple[int, Any, int]:
+    """Distinct keys of the sources, the values under ``hash_name`` of the first ``PLAN_VALUES`` of them (the
+    low 64 bits), and the hash's width: what ``hashaudit plan`` simulates a recommended table with."""
+    import numpy as np
+
+    from hashaudit.hashes.registry import REGISTRY
+    from hashaudit.stats.distinct import DistinctKeys
+
+    spec = REGISTRY.get(hash_name)
+    store = DistinctKeys()
+    kept: list[np.ndarray] = []
+    held = 0
+    for source in sources:
+        for batch in open_keys(source, options):
+            first = store.update(batch)
+            if held < PLAN_VALUES:
+                values = spec.hash_batch(batch, seed if spec.seeded else 0)[first]
+                values = values[:, 0] if values.ndim == 2 else values
+                kept.append(values[: PLAN_VALUES - held])
+                held += len(kept[-1])
+    if store.distinct_ == 0:
+        raise UsageError("no keys to plan for")
+    return store.distinct_, np.concatenate(kept), spec.width
+
+
+PLAN_VALUES = 1 << 22

@@ -1,1 +1,7 @@
-"""Hash functions: the registry and its batch kernels."""
+"""Hash functions: the registry and its batch kernels.
+
+Importing the package imports :mod:`hashaudit.hashes.fingerprint` (light: it loads no kernel), which provides the
+statistics with their default key fingerprints and sampling priorities (see ``hashaudit.stats._hooks``).
+"""
+
+from hashaudit.hashes import fingerprint as fingerprint  # noqa: F401  (registers the statistics' defaults)

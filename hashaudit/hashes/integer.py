@@ -37,8 +37,7 @@ def _read_le64_kernel(data, offsets, out):  # pragma: no cover - compiled
 def _as_integers(batch: KeyBatch) -> np.ndarray:
     lengths = batch.lengths()
     if len(batch) and bool(np.all(lengths == 8)):
-        start = int(batch.offsets[0])
-        return batch.data[start : start + 8 * len(batch)].view("<u8").astype(np.uint64, copy=True)
+        return batch.words_le64(8).reshape(len(batch))
     out = np.empty(len(batch), dtype=np.uint64)
     _read_le64_kernel(batch.data, batch.offsets, out)
     return out

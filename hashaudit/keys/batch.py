@@ -62,16 +62,93 @@ class KeyBatch:
         return KeyBatch(self.data, self.offsets[start : stop + 1], weights)
 
     def take(self, positions: np.ndarray) -> KeyBatch:
-        """The keys at ``positions`` (increasing, no repeats), copied back to back; weights follow their keys."""
-        positions = np.asarray(positions, dtype=np.int64)
-        lengths = np.diff(self.offsets)
-        wanted = np.zeros(len(self), dtype=bool)
-        wanted[positions] = True
-        data = self.data[int(self.offsets[0]) : int(self.offsets[-1])][np.repeat(wanted, lengths)]
-        offsets = np.zeros(len(positions) + 1, dtype=np.int64)
-        np.cumsum(lengths[positions], out=offsets[1:])
+        """The keys at ``positions``, in that order, copied back to back; weights follow their keys.
+
+        Parameters
+        ----------
+        positions : array_like of int
+            Indices of keys of this batch, in any order; an index may repeat, a negative one counts from the end.
+
+        Returns
+        -------
+        KeyBatch
+            A compact batch (offsets from 0) of ``len(positions)`` keys.
+        """
+        # the copy kernel of the key readers; imported here so that importing KeyBatch does not load numba
+        from hashaudit.keys._kernels import gather
+
+        positions = np.asarray(positions, dtype=np.int64).reshape(-1)
+        if len(positions) and int(positions.min()) < 0:  # count from the end, as sequences do
+            positions = np.where(positions < 0, positions + len(self), positions)
+            if int(positions.min()) < 0:
+                raise IndexError(f"a key position is out of range for a batch of {len(self)} keys")
+        starts, stops = self.offsets[positions], self.offsets[positions + 1]
+        data = np.empty(int(np.sum(stops - starts)), dtype=np.uint8)
+        offsets = np.empty(len(positions) + 1, dtype=np.int64)
+        gather(self.data, starts, stops, data, offsets)
         weights = None if self.weights is None else self.weights[positions]
         return KeyBatch(data, offsets, weights)
+
+    def compact(self) -> KeyBatch:
+        """A copy holding only this batch's own keys: ``data`` is exactly their bytes and offsets start at 0.
+
+        A slice of a large buffer keeps the whole buffer alive; its compact copy does not.
+        """
+        start, stop = int(self.offsets[0]), int(self.offsets[-1])
+        weights = None if self.weights is None else self.weights.copy()
+        return KeyBatch(self.data[start:stop].copy(), self.offsets - start, weights)
+
+    @classmethod
+    def concat(cls, batches: Sequence[KeyBatch]) -> KeyBatch:
+        """The keys of ``batches`` back to back, as one compact batch.
+
+        Parameters
+        ----------
+        batches : sequence of KeyBatch
+            Any batches (slices of larger buffers too).
+
+        Returns
+        -------
+        KeyBatch
+            Weighted when any batch is: a batch without weights contributes weight 1 per key (what no weights
+            means); None when no batch has weights.
+        """
+        batches = list(batches)
+        data = [b.data[int(b.offsets[0]) : int(b.offsets[-1])] for b in batches]
+        lengths = [np.diff(b.offsets) for b in batches]
+        offsets = np.zeros(sum(len(b) for b in batches) + 1, dtype=np.int64)
+        np.cumsum(np.concatenate(lengths) if lengths else np.zeros(0, dtype=np.int64), out=offsets[1:])
+        joined = np.concatenate(data) if data else np.zeros(0, dtype=np.uint8)
+        weights = None
+        if any(b.weights is not None for b in batches):
+            weights = np.concatenate([np.ones(len(b)) if b.weights is None else b.weights for b in batches])
+        return cls(joined, offsets, weights)
+
+    def words_le64(self, length: int | None = None) -> np.ndarray:
+        """Every key read as little-endian 64-bit words, when all keys have one length, a multiple of 8 bytes.
+
+        Parameters
+        ----------
+        length : int, optional
+            The length every key must have; default: that of the first key (8 for an empty batch).
+
+        Returns
+        -------
+        numpy.ndarray of uint64, shape (n, length / 8)
+            A fresh native-order array; row i holds the words of key i, its first bytes first.
+
+        Raises
+        ------
+        ValueError
+            When a key has another length, or the length is not a positive multiple of 8.
+        """
+        lengths = np.diff(self.offsets)
+        width = int(length if length is not None else lengths[0] if len(lengths) else 8)
+        if width <= 0 or width % 8 or not bool(np.all(lengths == width)):
+            raise ValueError(f"words_le64 needs keys of one length, a positive multiple of 8 bytes (asked: {width})")
+        start = int(self.offsets[0])
+        words = self.data[start : start + width * len(self)].view("<u8")
+        return words.astype(np.uint64, copy=True).reshape(len(self), width // 8)
 
     @classmethod
     def from_keys(cls, keys: Sequence[bytes] | Iterable[bytes]) -> KeyBatch:

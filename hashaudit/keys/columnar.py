@@ -163,12 +163,12 @@ def read_columnar(
     """
     wanted = list(options.columns or ("0",))
     schema, batches, rows = _open_batches(
-        path, fmt, wanted + ([options.weight] if options.weight else []), options.batch_keys, row_group
+        path, fmt, wanted + ([options.weight_column] if options.weight_column else []), options.batch_keys, row_group
     )
     columns = _resolve(wanted, schema, path)
-    weight = _resolve([options.weight], schema, path)[0] if options.weight else None
+    weight = _resolve([options.weight_column], schema, path)[0] if options.weight_column else None
     if weight is not None and weight in columns:
-        raise UsageError(f"--weight-column {options.weight!r} is also a key column")
+        raise UsageError(f"--weight-column {options.weight_column!r} is also a key column")
     try:
         for batch in batches:
             key_positions = [batch.schema.get_field_index(c) for c in columns]

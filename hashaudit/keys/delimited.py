@@ -221,10 +221,10 @@ def read_delimited(
     names = first if options.header else [f"f{i}" for i in range(len(first))]
     columns = resolve_columns(options.columns, names, options.header, name)
     weight = None
-    if options.weight is not None:
-        (weight,) = resolve_columns((options.weight,), names, options.header, name)
+    if options.weight_column is not None:
+        (weight,) = resolve_columns((options.weight_column,), names, options.header, name)
         if weight in columns:
-            raise UsageError(f"--weight-column {options.weight!r} is also a key column")
+            raise UsageError(f"--weight-column {options.weight_column!r} is also a key column")
     wanted = list(dict.fromkeys(columns + ([weight] if weight is not None else [])))
     skip_bad = options.on_bad_record == "skip"
     reader_options = pa_csv.ReadOptions(block_size=CSV_BLOCK_BYTES, autogenerate_column_names=not options.header)
@@ -262,7 +262,7 @@ def read_delimited(
             if weight is None:
                 weights = None
             elif not skip_bad:
-                weights = _weights(table.column(weight), name, rows, options.weight)
+                weights = _weights(table.column(weight), name, rows, options.weight_column)
             else:
                 weights, bad = _weights_or_bad(table.column(weight))
                 if bad.any():

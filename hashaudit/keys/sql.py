@@ -80,7 +80,7 @@ def _clean(message: object, url: str) -> str:
 
 def check_split_options(options: SourceOptions) -> None:
     """Refuse key-range options that cannot work (a UsageError quoting the value)."""
-    column, parts = options.split_column, options.split_parts
+    column, parts = options.db_split_column, options.db_split_parts
     if parts is not None:
         if column is None:
             raise UsageError("--db-split-parts needs --db-split-column (the column to split on)")
@@ -93,7 +93,7 @@ def check_split_options(options: SourceOptions) -> None:
 
 
 def build_query(options: SourceOptions, name: str, paramstyle: str = "qmark") -> str:
-    """The query of a source: ``options.query``, or a SELECT of ``options.columns`` from ``options.table``.
+    """The query of a source: ``options.query``, or a SELECT of ``options.columns`` from ``options.db_table``.
 
     With ``options.key_range``, that query (with ``table``, plus the split column) wrapped to keep the rows of the
     range; its bounds are parameters in the driver's ``paramstyle`` (``qmark``, ``named`` or ``numeric_dollar``),
@@ -119,7 +119,7 @@ def range_parameters(key_range: KeyRange, paramstyle: str = "qmark") -> tuple | 
 def _quoted_split(options: SourceOptions, alias: str = "hashaudit_q") -> str:
     """The split column qualified by the alias of the nested query: unqualified, SQLite would read a double-quoted
     name that is no column as a string literal."""
-    return f'{alias}."{options.split_column}"'
+    return f'{alias}."{options.db_split_column}"'
 
 
 def _bare(query: str) -> str:
@@ -155,7 +155,7 @@ def _range_label(options: SourceOptions) -> str:
     key_range = options.key_range
     if key_range is None:
         return ""
-    column = f'"{options.split_column}"'
+    column = f'"{options.db_split_column}"'
     if key_range.is_null:
         return f" (rows where {column} IS NULL)"
     terms = [f"{column} > {_shown(key_range.lower)}"] if key_range.lower is not None else []
@@ -169,25 +169,25 @@ def _shown(value: object) -> str:
 
 
 def _base_query(options: SourceOptions, name: str, *, with_split: bool) -> str:
-    """``options.query``, or the SELECT of ``options.table`` (``with_split``: with the split column too)."""
-    if options.query and options.table:
+    """``options.query``, or the SELECT of ``options.db_table`` (``with_split``: with the split column too)."""
+    if options.query and options.db_table:
         raise UsageError("give --query or --db-table, not both")
     if options.query:
         return options.query
-    if not options.table:
+    if not options.db_table:
         raise UsageError(f'{name}: give --query "SELECT …" or --db-table TABLE --column COLUMN')
     columns = list(options.columns)
     if not columns:
         raise UsageError("--db-table needs --column (the key column)")
-    selected = columns + ([options.weight] if options.weight else [])
-    for identifier in [options.table, *selected]:
+    selected = columns + ([options.weight_column] if options.weight_column else [])
+    for identifier in [options.db_table, *selected]:
         if not _IDENTIFIER.match(identifier):
             raise UsageError(f"{identifier!r} is not a plain table or column name; write the SELECT with --query")
     quoted = ", ".join(f'"{c}"' for c in selected)
-    table = ".".join(f'"{part}"' for part in options.table.split("."))
-    if with_split and options.split_column and options.split_column not in selected:
+    table = ".".join(f'"{part}"' for part in options.db_table.split("."))
+    if with_split and options.db_split_column and options.db_split_column not in selected:
         # last, after the key columns that _key_columns takes; qualified, so that a missing column is an error
-        quoted += f', {table}."{options.split_column}"'
+        quoted += f', {table}."{options.db_split_column}"'
     return f"SELECT {quoted} FROM {table}"
 
 
@@ -217,10 +217,10 @@ def _value_bytes(value: Any, integers: str) -> bytes:
 def _key_columns(names: list[str], options: SourceOptions, name: str) -> tuple[list[int], int | None]:
     """Positions of the key columns (default: every column but the weight) and of the weight column."""
     weight = None
-    if options.weight is not None:
-        if options.weight not in names:
-            raise UsageError(f"{name}: the query has no column {options.weight!r} for --weight-column")
-        weight = names.index(options.weight)
+    if options.weight_column is not None:
+        if options.weight_column not in names:
+            raise UsageError(f"{name}: the query has no column {options.weight_column!r} for --weight-column")
+        weight = names.index(options.weight_column)
     if options.query and options.columns:
         missing = [c for c in options.columns if c not in names]
         if missing:
@@ -250,7 +250,9 @@ def _rows_to_batch(rows: list[tuple], keys: list[int], weight: int | None, optio
                 if options.on_bad_record == "skip":
                     stats.skip("bad_weight")
                     continue
-                raise InputError(f"{name} row {first + offset}: weight {options.weight!r} is {w!r}, not a number ≥ 0")
+                raise InputError(
+                    f"{name} row {first + offset}: weight {options.weight_column!r} is {w!r}, not a number ≥ 0"
+                )
             weights.append(float(w))
         out.append(join.join(_value_bytes(p, options.integers) for p in parts))
         numbers.append(first + offset)
@@ -412,7 +414,11 @@ def _route(source: str, options: SourceOptions) -> tuple[str, str]:
     if not _URL.match(source):
         return "sqlite", source
     scheme = source.split("://", 1)[0].lower()
-    if scheme in ("postgresql", "postgres", "postgresql+adbc") and options.driver != "sqlalchemy" and adbc_available():
+    if (
+        scheme in ("postgresql", "postgres", "postgresql+adbc")
+        and options.db_driver != "sqlalchemy"
+        and adbc_available()
+    ):
         return "adbc", source.replace("postgres://", "postgresql://", 1)
     if scheme == "postgresql+adbc":
         raise UsageError("postgresql+adbc needs the ADBC driver: pip install adbc-driver-postgresql")
@@ -423,7 +429,7 @@ def _route(source: str, options: SourceOptions) -> tuple[str, str]:
 
 def read_database(source: str, options: SourceOptions, stats: SourceStats) -> Iterator[RecordBatch]:
     """Yield the keys a database source's query returns (see the module notes); with ``options.key_range``, only
-    those of the rows in that range of ``options.split_column``."""
+    those of the rows in that range of ``options.db_split_column``."""
     name = mask_url(source)
     query = build_query(options, name)  # the usage errors of the options before any driver is chosen
     kind, url = _route(source, options)
@@ -437,7 +443,7 @@ def read_database(source: str, options: SourceOptions, stats: SourceStats) -> It
 
 
 def plan_key_ranges(source: str, options: SourceOptions) -> list[KeyRange]:
-    """The key ranges of a database source on ``options.split_column``, in ascending order (see the module notes).
+    """The key ranges of a database source on ``options.db_split_column``, in ascending order (see the module notes).
 
     Parameters
     ----------
@@ -463,7 +469,7 @@ def plan_key_ranges(source: str, options: SourceOptions) -> list[KeyRange]:
     """
     name = mask_url(source)
     check_split_options(options)
-    if options.split_column is None:
+    if options.db_split_column is None:
         raise UsageError(f"{name}: give --db-split-column to split a database source into key ranges")
     options = replace(options, key_range=None)
     kind, url = _route(source, options)
@@ -478,9 +484,9 @@ def plan_key_ranges(source: str, options: SourceOptions) -> list[KeyRange]:
         row = _fetch(kind, url, summary)[1][0]
     except InputError:
         names = _result_columns(kind, url, inner)
-        if names is not None and options.split_column not in names:
+        if names is not None and options.db_split_column not in names:
             raise UsageError(
-                f"{name}: the query has no column {options.split_column!r} for --db-split-column "
+                f"{name}: the query has no column {options.db_split_column!r} for --db-split-column "
                 f"(it has: {', '.join(names)})"
             ) from None
         raise
@@ -491,8 +497,8 @@ def plan_key_ranges(source: str, options: SourceOptions) -> list[KeyRange]:
         if cast in _PG_INTEGERS and lowest is not None and highest is not None:
             lowest, highest, cast = int(lowest), int(highest), None
         elif not _PG_TYPE.match(cast):
-            raise InputError(f"{name}: cannot split on {options.split_column!r}, a column of type {cast!r}")
-    parts = options.split_parts or min(MAX_SPLIT_PARTS, max(1, -(-filled // SPLIT_ROWS)))
+            raise InputError(f"{name}: cannot split on {options.db_split_column!r}, a column of type {cast!r}")
+    parts = options.db_split_parts or min(MAX_SPLIT_PARTS, max(1, -(-filled // SPLIT_ROWS)))
     if filled == 0:
         ranges = [KeyRange()]
     elif type(lowest) is int and type(highest) is int:  # not bool, a subclass of int

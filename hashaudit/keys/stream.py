@@ -33,20 +33,20 @@ def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
     """Refuse options that cannot work, or that the chosen format would silently ignore."""
     if not isinstance(options.batch_keys, int) or options.batch_keys < 1:
         raise UsageError(f"batch_keys must be a positive integer, not {options.batch_keys!r}")
-    if (options.query or options.table) and fmt != "sql":
+    if (options.query or options.db_table) and fmt != "sql":
         raise UsageError(f"--query and --db-table apply to database sources, but {name} is read as {fmt}")
     if fmt == "sql":
         from hashaudit.keys.sql import check_split_options
 
         check_split_options(options)
-    elif options.split_column is not None or options.split_parts is not None or options.key_range is not None:
+    elif options.db_split_column is not None or options.db_split_parts is not None or options.key_range is not None:
         raise UsageError(
             f"--db-split-column and --db-split-parts apply to database sources, but {name} is read as {fmt}"
         )
     if options.on_bad_record not in ON_BAD_RECORD:
         raise UsageError(f"--on-bad-record takes {' or '.join(ON_BAD_RECORD)}, not {options.on_bad_record!r}")
-    if options.driver not in DRIVERS:
-        raise UsageError(f"--db-driver takes {', '.join(DRIVERS)}, not {options.driver!r}")
+    if options.db_driver not in DRIVERS:
+        raise UsageError(f"--db-driver takes {', '.join(DRIVERS)}, not {options.db_driver!r}")
     if fmt not in (*_DELIMITED, *_COLUMNAR, "sql"):
         if options.columns:
             raise UsageError(
@@ -60,7 +60,7 @@ def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
             raise InputError(f"{name}: --field is required for JSON Lines (the dotted path of the key, e.g. user.id)")
     elif options.field is not None:
         raise UsageError(f"--field applies to JSON Lines sources, but {name} is read as {fmt} (use --format jsonl)")
-    if options.weight is not None and fmt not in (*_DELIMITED, *_COLUMNAR, "jsonl", "sql"):
+    if options.weight_column is not None and fmt not in (*_DELIMITED, *_COLUMNAR, "jsonl", "sql"):
         raise UsageError(
             f"--weight-column applies to csv, tsv, JSON Lines, parquet and arrow sources, but {name} is read as {fmt}"
         )
@@ -96,7 +96,7 @@ class KeyStream:
         if options.format not in SOURCE_FORMATS:
             raise UsageError(f"unknown source format {options.format!r}; choose one of {', '.join(SOURCE_FORMATS)}")
         if options.format == "auto":
-            self._format = "sql" if is_database(path) or options.query or options.table else format_for(path)
+            self._format = "sql" if is_database(path) or options.query or options.db_table else format_for(path)
         else:
             self._format = options.format
         _check_options(options, self._format, self._name)
@@ -123,7 +123,7 @@ class KeyStream:
             "columns": list(options.columns or ("0",)) if self._format in (*_DELIMITED, *_COLUMNAR, "sql") else [],
             "join": options.join if len(options.columns) > 1 else None,
             "field": options.field,
-            "weight": options.weight,
+            "weight_column": options.weight_column,
             "integers": options.integers if self._format in (*_COLUMNAR, "sql") else None,
             "delimiter": delimiter,
             "header": options.header if self._format in _DELIMITED else None,
@@ -161,7 +161,7 @@ class KeyStream:
             from hashaudit.keys.jsonl import read_jsonl
 
             yield from read_jsonl(
-                stream, self._name, o.field or "", self.stats, o.batch_keys, o.weight, skip_bad=self._skip_bad
+                stream, self._name, o.field or "", self.stats, o.batch_keys, o.weight_column, skip_bad=self._skip_bad
             )
         else:
             yield from line_records(stream, self._name, o, self.stats)

@@ -85,7 +85,7 @@ def _summary(result: AuditResult, counts: dict[str, int]) -> str:
     sources = [str(s.get("source", "?")) for s in result.sources]
     origin = f" from {', '.join(escape(s, in_table=False) for s in sources)}" if sources else ""
     read = result.keys_read if result.keys_read >= 0 else result.keys
-    if result.settings.get("count") == "all":
+    if result.settings.get("all_keys"):
         keys = f"{read:,} keys read{origin}, every occurrence counted"
     else:
         keys = f"{read:,} keys read{origin}, {result.keys:,} distinct"

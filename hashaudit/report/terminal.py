@@ -73,9 +73,9 @@ def render(result: AuditResult, *, show_all: bool = False, colour: bool = False)
             f"{result.keys_read:,} keys ({result.keys:,} distinct; the {result.repeated_keys:,} repeats are not "
             "counted against the hash)"
         )
-    elif result.settings.get("count") == "all":
+    elif result.settings.get("all_keys"):
         counted = f"{result.keys:,} keys (every occurrence counted)"
-    tables = len(result.settings.get("tables", []))
+    tables = len(result.tables)
     lines.append(
         f"hashaudit: {counted} from {sources}; {len(result.hashes)} hash functions"
         + (f", {tables} tables each" if tables else "")

@@ -10,11 +10,11 @@ Two checks from the design of block ciphers, applied to the keys a system really
   independently of each other (Webster & Tavares 1985), measured by the phi coefficient of their flip
   indicators.
 
-The keys come from ``KeySample``, a bottom-k sample: every key gets a priority from a keyed PRF (SipHash-2-4
-under a key derived from the sample seed) and the ``size`` distinct keys with the smallest priorities are kept.
-The sample is therefore a uniform sample of the distinct keys, depends only on the set of keys and the seed
-(never on batch boundaries or order), and two samples merge exactly into the sample of the union (Cohen &
-Kaplan 2007).
+The keys come from ``KeySample`` (``hashaudit.stats.sample``, also importable from here), a bottom-k sample:
+every key gets a priority from a keyed PRF (SipHash-2-4 under a key derived from the sample seed) and the ``size``
+distinct keys with the smallest priorities are kept. The sample is therefore a uniform sample of the distinct
+keys, depends only on the set of keys and the seed (never on batch boundaries or order), and two samples merge
+exactly into the sample of the union (Cohen & Kaplan 2007).
 
 Under an ideal (random) hash the XOR of the hashes of two distinct keys is uniform. The flips of one cell are
 then independent — except when both a key and its flipped neighbour are in the sample (sequential ids make
@@ -44,22 +44,16 @@ from typing import Any
 import numpy as np
 from numba import njit, uint64
 
-from hashaudit.errors import MergeError, UsageError
-from hashaudit.hashes.registry import HashSpec
+from hashaudit.errors import UsageError
 from hashaudit.keys.batch import KeyBatch
+from hashaudit.stats import _hooks
 from hashaudit.stats._bitops import popcount
+from hashaudit.stats._hooks import Fingerprint, HashBatch
 from hashaudit.stats._lazy import special
 from hashaudit.stats.outcome import Effect, FitTest
+from hashaudit.stats.sample import DEFAULT_SAMPLE_SIZE, KeySample, _bottom_k, _key_compare
 from hashaudit.stats.tails import expected_max_abs_normal
 
-_MASK64 = (1 << 64) - 1
-_MASK128 = (1 << 128) - 1
-# Mixed into the SipHash key of the sample priorities, so that a sample seed equal to the seed of the audited
-# hash does not select keys by the audited hash's own output.
-PRIORITY_DOMAIN = 0x6B65_7973_616D_706C  # "keysampl"
-# Fingerprints telling whether a flipped key is itself in the sample (any exact collision is checked bytewise).
-MEMBER_SEED = 0xF11F_5EED_0A7A_0001
-DEFAULT_SAMPLE_SIZE = 4096
 DEFAULT_MAX_BYTES = 16
 MIN_TRIALS_FOR_EFFECT = 30  # cells with fewer trials have too coarse a flip probability to enter the effect
 # Flips hashed at once: bounds memory for long keys (bytes) and keeps the bit columns of the pair counts in cache.
@@ -70,72 +64,6 @@ _EXPECTED_MAX_GRID = 4001
 
 # ---------------------------------------------------------------------------------------------------------
 # Kernels
-
-
-@njit(cache=True, nogil=True)
-def _key_compare(data_a, start_a, len_a, data_b, start_b, len_b):  # pragma: no cover - compiled
-    """-1, 0 or 1: lexicographic order of two byte strings (a proper prefix sorts first)."""
-    common = min(len_a, len_b)
-    for t in range(common):
-        x = data_a[start_a + t]
-        y = data_b[start_b + t]
-        if x != y:
-            return -1 if x < y else 1
-    if len_a == len_b:
-        return 0
-    return -1 if len_a < len_b else 1
-
-
-@njit(cache=True, nogil=True)
-def _bottom_k_kernel(data, offsets, priorities, order, limit, out):  # pragma: no cover - compiled
-    """Walk keys in priority order (``order``), drop repeated keys, order keys sharing a priority by their bytes,
-    and write the first ``limit`` distinct keys (whole priority runs) to ``out``; returns how many were written."""
-    n = order.shape[0]
-    written = 0
-    i = 0
-    while i < n and written < limit:
-        run_priority = priorities[order[i]]
-        j = i
-        run_start = written
-        while j < n and priorities[order[j]] == run_priority:
-            k = order[j]
-            s = offsets[k]
-            length = offsets[k + 1] - s
-            # insertion into out[run_start:written], sorted by bytes; equal bytes = a repeat of a kept key
-            position = written
-            duplicate = False
-            for q in range(run_start, written):
-                other = out[q]
-                c = _key_compare(data, s, length, data, offsets[other], offsets[other + 1] - offsets[other])
-                if c == 0:
-                    duplicate = True
-                    break
-                if c < 0:
-                    position = q
-                    break
-            if not duplicate:
-                for q in range(written, position, -1):
-                    out[q] = out[q - 1]
-                out[position] = k
-                written += 1
-            j += 1
-        i = j
-    return written
-
-
-@njit(cache=True, nogil=True)
-def _gather_kernel(data, offsets, index, out_data, out_offsets):  # pragma: no cover - compiled
-    """Copy keys ``index`` into a fresh buffer; ``out_offsets`` is filled here (starts at 0)."""
-    position = 0
-    out_offsets[0] = 0
-    for r in range(index.shape[0]):
-        k = index[r]
-        s = offsets[k]
-        length = offsets[k + 1] - s
-        for t in range(length):
-            out_data[position + t] = data[s + t]
-        position += length
-        out_offsets[r + 1] = position
 
 
 @njit(cache=True, nogil=True)
@@ -215,177 +143,6 @@ def _pair_kernel(columns, used_words, pair_counts):  # pragma: no cover - compil
             pair_counts[j, k] += total
             if k != j:
                 pair_counts[k, j] += total
-
-
-# ---------------------------------------------------------------------------------------------------------
-# Helpers on KeyBatches
-
-
-def _gather(batch: KeyBatch, index: np.ndarray) -> KeyBatch:
-    """Keys ``index`` of ``batch`` as a new compact batch."""
-    index = np.ascontiguousarray(index, dtype=np.int64)
-    lengths = np.diff(batch.offsets)[index]
-    out_data = np.empty(int(lengths.sum()), dtype=np.uint8)
-    out_offsets = np.empty(len(index) + 1, dtype=np.int64)
-    _gather_kernel(batch.data, batch.offsets, index, out_data, out_offsets)
-    return KeyBatch(out_data, out_offsets)
-
-
-def _concat(first: KeyBatch, second: KeyBatch) -> KeyBatch:
-    """Two batches back to back, compacted."""
-    a, b = _gather(first, np.arange(len(first))), _gather(second, np.arange(len(second)))
-    offsets = np.concatenate([a.offsets, b.offsets[1:] + a.offsets[-1]])
-    return KeyBatch(np.concatenate([a.data, b.data]), offsets)
-
-
-def _bottom_k(batch: KeyBatch, priorities: np.ndarray, limit: int) -> np.ndarray:
-    """Indices of the ``limit`` distinct keys with the smallest (priority, bytes), in that order."""
-    order = np.argsort(priorities, kind="stable").astype(np.int64)
-    out = np.empty(len(batch), dtype=np.int64)  # whole priority runs are written: room for every key
-    written = _bottom_k_kernel(batch.data, batch.offsets, priorities, order, limit, out)
-    return out[: min(written, limit)]
-
-
-def _priority_bound(priorities: np.ndarray, size: int) -> int:
-    """A value t such that at least ``size`` distinct priorities are <= t (or the largest priority)."""
-    count = 2 * size
-    while count < len(priorities):
-        kth = np.partition(priorities, count - 1)[count - 1]
-        distinct = np.unique(priorities[priorities <= kth])
-        if len(distinct) >= size:
-            return int(distinct[size - 1])
-        count *= 4
-    distinct = np.unique(priorities)
-    return int(distinct[min(size, len(distinct)) - 1])
-
-
-def _sample_priorities(batch: KeyBatch, seed: int) -> np.ndarray:
-    from hashaudit.hashes.siphash import siphash24
-
-    key = (seed ^ (PRIORITY_DOMAIN << 64)) & _MASK128
-    return siphash24(batch, key)
-
-
-def _fingerprints(batch: KeyBatch) -> np.ndarray:
-    from hashaudit.hashes.xxh import xxh3_64
-
-    return xxh3_64(batch, MEMBER_SEED)
-
-
-# ---------------------------------------------------------------------------------------------------------
-# The sample
-
-
-class KeySample:
-    """A deterministic, mergeable uniform sample of the distinct keys of a stream (a bottom-k sample).
-
-    Every key gets a 64-bit priority, SipHash-2-4 of its bytes under a key derived from ``seed``; the sample
-    is the ``size`` distinct keys with the smallest (priority, bytes). It depends only on the set of keys seen
-    and the seed: not on the order of the keys, on how they were split into batches, or on repeats. Only the
-    sampled keys' bytes are kept.
-
-    Follows the accumulator contract of the project: ``update(batch)``, ``merge(other)`` (exact: the merge of
-    two samples is the sample of the union), ``copy()``, equality and pickling; ``keys()`` (also ``result()``)
-    returns the sample as a ``KeyBatch`` in priority order.
-
-    Parameters
-    ----------
-    size : int, default 4096
-        Keys to keep.
-    seed : int, default 0
-        Seed of the priorities (non-negative; taken modulo 2^128). Record it: the same seed and keys give the
-        same sample.
-
-    References
-    ----------
-    E. Cohen, H. Kaplan, "Summarizing data using bottom-k sketches", PODC 2007.
-    J.-P. Aumasson, D. J. Bernstein, "SipHash: a fast short-input PRF", INDOCRYPT 2012.
-    """
-
-    def __init__(self, size: int = DEFAULT_SAMPLE_SIZE, seed: int = 0) -> None:
-        if int(size) != size or size < 1:
-            raise UsageError(f"the key sample size must be a positive integer, not {size!r}")
-        if int(seed) != seed or seed < 0:
-            raise UsageError(f"the key sample seed must be a non-negative integer, not {seed!r}")
-        self.size = int(size)
-        self.seed = int(seed)
-        self.data_ = np.zeros(0, dtype=np.uint8)
-        self.offsets_ = np.zeros(1, dtype=np.int64)
-        self.priorities_ = np.zeros(0, dtype=np.uint64)
-        self.keys_seen_ = 0
-
-    def settings(self) -> tuple[int, int]:
-        """The settings two samples must share to be merged."""
-        return (self.size, self.seed)
-
-    def __len__(self) -> int:
-        return len(self.priorities_)
-
-    def _absorb(self, batch: KeyBatch, priorities: np.ndarray) -> None:
-        """Keep the bottom ``size`` of the current sample plus the candidates ``batch``."""
-        combined = _concat(KeyBatch(self.data_, self.offsets_), batch)
-        combined_priorities = np.concatenate([self.priorities_, priorities])
-        chosen = _bottom_k(combined, combined_priorities, self.size)
-        kept = _gather(combined, chosen)
-        self.data_, self.offsets_ = kept.data, kept.offsets
-        self.priorities_ = combined_priorities[chosen]
-
-    def update(self, batch: KeyBatch) -> KeySample:
-        """Offer every key of ``batch`` to the sample."""
-        if len(batch) == 0:
-            return self
-        priorities = _sample_priorities(batch, self.seed)
-        if len(self) >= self.size:
-            # ties with the current largest priority may still enter (they are ordered by bytes)
-            candidates = np.flatnonzero(priorities <= self.priorities_[-1])
-        else:
-            candidates = np.arange(len(batch))
-        if len(candidates) > 2 * self.size:
-            bound = _priority_bound(priorities[candidates], self.size)
-            candidates = candidates[priorities[candidates] <= np.uint64(bound)]
-        if len(candidates):
-            self._absorb(_gather(batch, candidates), priorities[candidates])
-        self.keys_seen_ += len(batch)
-        return self
-
-    def merge(self, other: KeySample) -> KeySample:
-        """Make this the sample of the union of both streams (in place); size and seed must match."""
-        if not isinstance(other, KeySample) or other.settings() != self.settings():
-            theirs = other.settings() if isinstance(other, KeySample) else type(other).__name__
-            raise MergeError(f"cannot merge key sample {theirs} into {self.settings()}: size or seed differ")
-        self._absorb(KeyBatch(other.data_, other.offsets_), other.priorities_)
-        self.keys_seen_ += other.keys_seen_
-        return self
-
-    def copy(self) -> KeySample:
-        """An independent copy."""
-        twin = KeySample(self.size, self.seed)
-        twin.data_, twin.offsets_ = self.data_.copy(), self.offsets_.copy()
-        twin.priorities_ = self.priorities_.copy()
-        twin.keys_seen_ = self.keys_seen_
-        return twin
-
-    def keys(self) -> KeyBatch:
-        """The sampled keys, in order of increasing (priority, bytes)."""
-        return KeyBatch(self.data_.copy(), self.offsets_.copy())
-
-    def result(self) -> KeyBatch:
-        """Same as :meth:`keys` (the accumulator contract's name)."""
-        return self.keys()
-
-    def __eq__(self, other: object) -> bool:
-        if not isinstance(other, KeySample):
-            return NotImplemented
-        return (
-            self.settings() == other.settings()
-            and self.keys_seen_ == other.keys_seen_
-            and bool(np.array_equal(self.priorities_, other.priorities_))
-            and bool(np.array_equal(self.offsets_, other.offsets_))
-            and bool(np.array_equal(self.data_, other.data_))
-        )
-
-    def __repr__(self) -> str:
-        return f"KeySample(size={self.size}, seed={self.seed}, sampled={len(self)}, keys_seen={self.keys_seen_})"
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -483,8 +240,9 @@ class AvalancheResult:
             return np.where(self.trials[:, None] > 0, self.flip_counts / np.maximum(self.trials, 1)[:, None], np.nan)
 
 
-def _distinct(batch: KeyBatch) -> KeyBatch:
-    return _gather(batch, np.sort(_bottom_k(batch, _fingerprints(batch), len(batch))))
+def _distinct(batch: KeyBatch, fingerprint: Fingerprint) -> KeyBatch:
+    """The distinct keys of ``batch``, each at its first occurrence, in batch order."""
+    return batch.take(np.sort(_bottom_k(batch, fingerprint(batch), len(batch))))
 
 
 def _chunks(sample: KeyBatch, max_bytes: int) -> list[tuple[int, int]]:
@@ -503,20 +261,35 @@ def _as_words(hashes: np.ndarray) -> np.ndarray:
 
 
 def avalanche_matrix(
-    spec: HashSpec, sample: KeySample | KeyBatch, seed: int = 0, max_bytes: int = DEFAULT_MAX_BYTES
+    hash_batch: HashBatch,
+    width: int,
+    sample: KeySample | KeyBatch,
+    seed: int = 0,
+    max_bytes: int = DEFAULT_MAX_BYTES,
+    name: str = "",
+    *,
+    fingerprint: Fingerprint | None = None,
 ) -> AvalancheResult:
     """Flip counts of every (input bit, output bit) cell, and co-flip counts of every pair of output bits.
 
     Parameters
     ----------
-    spec : HashSpec
-        The hash function; all ``spec.width`` output bits are used.
+    hash_batch : callable
+        The hash function, ``(batch, seed) -> uint64[n]`` (``uint64[n, 2]``, low word first, for 128 bits), such
+        as ``HashSpec.hash_batch``.
+    width : int
+        Its output bits (32, 64 or 128); all of them are used.
     sample : KeySample or KeyBatch
         The keys (repeated keys of a ``KeyBatch`` are counted once).
     seed : int, default 0
         Seed of the hash function.
     max_bytes : int, default 16
         Bits of the first ``max_bytes`` bytes of each key are flipped.
+    name : str, default ""
+        The hash function's name, recorded in the result.
+    fingerprint : callable, optional
+        ``batch -> uint64[n]``, a fixed-seed fingerprint telling whether a flipped key is a sample key (every
+        match is confirmed bytewise); default ``hashaudit.hashes.fingerprint.member_fingerprints``.
 
     Returns
     -------
@@ -524,26 +297,28 @@ def avalanche_matrix(
 
     Notes
     -----
-    Hashes are computed with ``spec.hash_batch`` over whole batches of flipped keys. When the flipped key is
-    itself in the sample, the unordered pair is counted once (from the key whose flipped bit is 0), so that the
-    flips of a cell stay independent under an ideal hash.
+    Hashes are computed with ``hash_batch`` over whole batches of flipped keys. When the flipped key is itself in
+    the sample, the unordered pair is counted once (from the key whose flipped bit is 0), so that the flips of a
+    cell stay independent under an ideal hash.
 
     References
     ----------
     A. F. Webster, S. E. Tavares, "On the design of S-boxes", CRYPTO '85, LNCS 218 (1986) 523-534.
     """
     max_bytes = _check_max_bytes(max_bytes)
+    if width not in (32, 64, 128):
+        raise UsageError(f"hash {name!r}: width must be 32, 64 or 128, not {width!r}")
+    member = _hooks.resolve(_hooks.MEMBER, fingerprint)
     sample_seed = sample.seed if isinstance(sample, KeySample) else None
-    keys = sample.keys() if isinstance(sample, KeySample) else _distinct(sample)
-    width = spec.width
+    keys = sample.keys() if isinstance(sample, KeySample) else _distinct(sample, member)
     input_bits = 8 * max_bytes
     flip_counts = np.zeros((input_bits, width), dtype=np.int64)
     pair_counts = np.zeros((width, width), dtype=np.int64)
     trials = np.zeros(input_bits, dtype=np.int64)
     counted = skipped = 0
     if len(keys):
-        original = _as_words(spec.hash_batch(keys, seed))
-        fingerprints = _fingerprints(keys)
+        original = _as_words(hash_batch(keys, seed))
+        fingerprints = member(keys)
         member_order = np.argsort(fingerprints, kind="stable").astype(np.int64)
         member_sorted = fingerprints[member_order]
         for start, stop in _chunks(keys, max_bytes):
@@ -552,7 +327,7 @@ def avalanche_matrix(
             if len(flips) == 0:
                 continue
             parent += start
-            flip_fingerprints = _fingerprints(flips)
+            flip_fingerprints = member(flips)
             in_sample = np.empty(len(flips), dtype=np.bool_)
             _member_kernel(
                 keys.data,
@@ -569,7 +344,7 @@ def avalanche_matrix(
             byte = keys.data[keys.offsets[parent] + input_bit // 8]
             bit_was_set = ((byte >> (input_bit % 8).astype(np.uint8)) & 1).astype(np.bool_)
             keep = ~(in_sample & bit_was_set)
-            flipped = _as_words(spec.hash_batch(flips, seed))
+            flipped = _as_words(hash_batch(flips, seed))
             columns = np.zeros((width, (len(flips) + 63) // 64), dtype=np.uint64)
             kept = _accumulate_kernel(original, flipped, parent, input_bit, keep, width, flip_counts, columns)
             _pair_kernel(columns, (kept + 63) // 64, pair_counts)
@@ -579,7 +354,7 @@ def avalanche_matrix(
     for array in (trials, flip_counts, pair_counts):
         array.setflags(write=False)
     return AvalancheResult(
-        spec.name,
+        name,
         int(seed),
         sample_seed,
         width,
@@ -779,3 +554,15 @@ def avalanche_tests(result: AvalancheResult) -> list[FitTest]:
     if result.flips == 0:
         return []
     return [_avalanche_test(result), _bit_independence_test(result)]
+
+
+__all__ = [
+    "DEFAULT_MAX_BYTES",
+    "DEFAULT_SAMPLE_SIZE",
+    "AvalancheResult",
+    "KeySample",
+    "avalanche_matrix",
+    "avalanche_tests",
+    "expected_max_bias",
+    "flip_batch",
+]

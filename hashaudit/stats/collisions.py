@@ -63,8 +63,8 @@ import numpy as np
 from numba import njit, uint64
 
 from hashaudit.errors import MergeError, UsageError
-from hashaudit.stats.outcome import Effect, FitTest
-from hashaudit.stats.tails import poisson_tails
+from hashaudit.stats.outcome import FitTest
+from hashaudit.stats.tails import colliding_pairs_test
 
 DEFAULT_MEMORY_BYTES = 1 << 30
 PARTITIONS = 256  # partitions, chosen by the top 8 bits of the value times GOLDEN
@@ -648,16 +648,6 @@ def collision_tests(result: FullCollisionsResult) -> list[FitTest]:
     d, b = result.keys, result.width
     if d == 0:
         return []
-    expected = result.expected_pairs
-    observed = result.colliding_pairs
-    p_upper, p_lower = poisson_tails(observed, expected)
-    effect = Effect(
-        "collision_excess",
-        (observed - expected) / max(expected, 1.0),
-        float(observed),
-        expected,
-        "colliding pairs of distinct keys (same full hash value)",
-    )
     details = {
         "width": b,
         "distinct_keys": d,
@@ -666,8 +656,7 @@ def collision_tests(result: FullCollisionsResult) -> list[FitTest]:
         "largest_groups": [{"hash": g.hex(b), "keys": g.keys} for g in result.largest],
     }
     method = "Poisson law of the colliding pairs (birthday problem)"
+    counted = "colliding pairs of distinct keys (same full hash value)"
     return [
-        FitTest(
-            "full_collisions", float(observed), expected, float(observed), p_upper, p_lower, method, effect, details
-        )
+        colliding_pairs_test("full_collisions", result.colliding_pairs, result.expected_pairs, counted, method, details)
     ]

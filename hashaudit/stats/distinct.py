@@ -1,7 +1,8 @@
 """``DistinctKeys``: tells first occurrences of keys from repeats, so the hash is judged on distinct keys.
 
 A key repeated in a dump is not the hash's fault (DESIGN.md, "Judge the hash on distinct keys"). Each key is
-identified by a 128-bit fingerprint — MurmurHash3 x64_128 under a fixed seed that no audit uses — so two distinct
+identified by a 128-bit fingerprint — by default MurmurHash3 x64_128 under a fixed seed that no audit uses
+(``hashaudit.hashes.fingerprint.key_fingerprints_128``, passed in by the hash layer) — so two distinct
 keys are taken for one with probability about d^2 / 2^129 over d distinct keys (4e-23 for d = 10^9, by the birthday
 bound): never, in practice. Only the fingerprint is kept, 16 bytes, not the key.
 
@@ -29,8 +30,9 @@ from numba import njit, uint64
 
 from hashaudit.errors import MergeError, UsageError
 from hashaudit.keys.batch import KeyBatch
+from hashaudit.stats import _hooks
+from hashaudit.stats._hooks import Fingerprint
 
-FINGERPRINT_SEED = 0x5EED_D157
 DEFAULT_MEMORY_BYTES = 640 << 20  # 30 M distinct keys in one read; more are read in parts
 _MIN_SLOTS = 1 << 16
 _MAX_LOAD = 4 / 5
@@ -173,15 +175,25 @@ class DistinctKeys:
         Keep only the keys whose fingerprint's top bits are ``part`` out of ``parts`` (a power of two); the others
         are marked not first. Reading the input once per part finds every distinct key exactly once in a
         ``parts``-th of the memory: how an input with more distinct keys than the budget is handled.
+    fingerprint : callable, optional
+        ``batch -> uint64[n, 2]``, the 128-bit fingerprint of every key (low half, high half); default
+        ``hashaudit.hashes.fingerprint.key_fingerprints_128``. Two stores merge only when they share it.
     """
 
-    def __init__(self, memory_bytes: int = DEFAULT_MEMORY_BYTES, part: int = 0, parts: int = 1) -> None:
+    def __init__(
+        self,
+        memory_bytes: int = DEFAULT_MEMORY_BYTES,
+        part: int = 0,
+        parts: int = 1,
+        fingerprint: Fingerprint | None = None,
+    ) -> None:
         if memory_bytes < 1 << 22:
             raise UsageError(f"the distinct-key memory budget must be at least 4 MiB, not {memory_bytes} bytes")
         if parts < 1 or parts & (parts - 1) or not 0 <= part < parts:
             raise UsageError(f"part {part} of {parts}: parts must be a power of two and part below it")
         self.memory_bytes = int(memory_bytes)
         self.part, self.parts = int(part), int(parts)
+        self.fingerprint = _hooks.resolve(_hooks.DISTINCT, fingerprint)
         self._drop = np.uint64(parts.bit_length() - 1)  # the top bits, equal within a part, do not place a key
         self.slots_ = _MIN_SLOTS
         self.table_ = np.zeros((self._length(self.slots_), 2), dtype=np.uint64)  # rows of (high, low)
@@ -238,9 +250,7 @@ class DistinctKeys:
 
     def update(self, batch: KeyBatch) -> np.ndarray:
         """Mark the keys of ``batch`` seen for the first time (in stream order); returns a bool array."""
-        from hashaudit.hashes.murmur import murmur3_128
-
-        prints = murmur3_128(batch, FINGERPRINT_SEED)
+        prints = self.fingerprint(batch)
         if self.parts == 1:
             first = np.empty(len(prints), dtype=np.bool_)
             self._insert(prints, first)
@@ -268,7 +278,9 @@ class DistinctKeys:
         if not isinstance(other, DistinctKeys) or (other.part, other.parts) != (self.part, self.parts):
             what = type(other).__name__ if not isinstance(other, DistinctKeys) else f"part {other.part}/{other.parts}"
             raise MergeError(f"cannot merge {what} into DistinctKeys part {self.part}/{self.parts}")
-        theirs = other.fingerprints()[:, ::-1].copy()  # as (low, high), the layout of murmur3_128's output
+        if other.fingerprint is not self.fingerprint:
+            raise MergeError("cannot merge DistinctKeys whose fingerprints come from different functions")
+        theirs = other.fingerprints()[:, ::-1].copy()  # as (low, high), the layout of the fingerprint function
         self.reserve(self.distinct_ + len(theirs))
         self._insert(theirs, np.empty(len(theirs), dtype=np.bool_))
         self.keys_seen_ += other.keys_seen_

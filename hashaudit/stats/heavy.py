@@ -33,8 +33,9 @@ from numba import njit, uint64
 
 from hashaudit.errors import MergeError
 from hashaudit.keys.batch import KeyBatch
+from hashaudit.stats import _hooks
+from hashaudit.stats._hooks import Fingerprint
 
-FINGERPRINT_SEED = 0x4EA7_0001
 DEFAULT_CAPACITY = 1000
 
 
@@ -108,10 +109,14 @@ class HeavyKeys:
     ----------
     capacity : int
         Counters kept; keys heavier than 1/(capacity + 1) of the total are never missed.
+    fingerprint : callable, optional
+        ``batch -> uint64[n]``, the 64-bit fingerprint that identifies a key; default
+        ``hashaudit.hashes.fingerprint.heavy_fingerprints``. Two summaries merge only when they share it.
     """
 
-    def __init__(self, capacity: int = DEFAULT_CAPACITY) -> None:
+    def __init__(self, capacity: int = DEFAULT_CAPACITY, fingerprint: Fingerprint | None = None) -> None:
         self.capacity = int(capacity)
+        self.fingerprint = _hooks.resolve(_hooks.HEAVY, fingerprint)
         self.prints_ = np.zeros(0, dtype=np.uint64)
         self.counts_ = np.zeros(0, dtype=np.float64)
         self.keys_: dict[int, bytes] = {}
@@ -125,11 +130,9 @@ class HeavyKeys:
 
     def update(self, batch: KeyBatch, weights: np.ndarray | None = None) -> HeavyKeys:
         """Count the keys of ``batch`` (each occurrence counts 1, or its weight)."""
-        from hashaudit.hashes.xxh import xxh3_64
-
         if len(batch) == 0:
             return self
-        prints = xxh3_64(batch, FINGERPRINT_SEED)
+        prints = self.fingerprint(batch)
         w = np.ones(len(prints)) if weights is None else np.ascontiguousarray(weights, dtype=np.float64)
         self.total_ += float(w.sum())
         self._absorb(prints, w, lambda i: _key_bytes(batch, i))
@@ -170,6 +173,8 @@ class HeavyKeys:
         """Combine two summaries (Agarwal et al. 2012: the error bounds add up)."""
         if not isinstance(other, HeavyKeys) or other.capacity != self.capacity:
             raise MergeError("cannot merge heavy-key summaries of different capacities")
+        if other.fingerprint is not self.fingerprint:
+            raise MergeError("cannot merge heavy-key summaries whose fingerprints come from different functions")
         theirs = other.prints_.tolist()
         self.total_ += other.total_
         self.error_ += other.error_
@@ -214,9 +219,11 @@ class HeavyKeys:
 
 class HeavyCounts:
     """Exact occurrences (or weights) of the keys a :class:`HeavyKeys` summary kept, counted in a further pass over
-    the input; merges like every accumulator (the counts add up)."""
+    the input (keys identified by the summary's fingerprint function); merges like every accumulator (the counts
+    add up)."""
 
     def __init__(self, summary: HeavyKeys, counts: np.ndarray | None = None) -> None:
+        self.fingerprint = summary.fingerprint
         self.prints_ = summary.prints_.copy()  # sorted: HeavyKeys keeps its prints in ascending order
         self.counts_ = np.zeros(len(self.prints_), dtype=np.float64)
         if counts is not None:  # counted elsewhere, in the order of ``summary.prints_``
@@ -225,21 +232,23 @@ class HeavyCounts:
 
     def update(self, batch: KeyBatch, weights: np.ndarray | None = None) -> HeavyCounts:
         """Add the occurrences (or weights) in ``batch`` of the counted keys."""
-        from hashaudit.hashes.xxh import xxh3_64
-
         if len(batch) == 0 or len(self.prints_) == 0:
             return self
         if self._slots is None:
             size = 1 << max(4, (4 * len(self.prints_) - 1).bit_length())  # load at most 1/4: short probes
             self._slots = np.full(size, -1, dtype=np.int64)
             _place(self.prints_, self._slots)
-        prints = xxh3_64(batch, FINGERPRINT_SEED)
+        prints = self.fingerprint(batch)
         w = np.ones(0) if weights is None else np.ascontiguousarray(weights, dtype=np.float64)
         _count(prints, w, weights is not None, self.prints_, self._slots, self.counts_)
         return self
 
     def merge(self, other: HeavyCounts) -> HeavyCounts:
-        if not isinstance(other, HeavyCounts) or not np.array_equal(other.prints_, self.prints_):
+        if (
+            not isinstance(other, HeavyCounts)
+            or other.fingerprint is not self.fingerprint
+            or not np.array_equal(other.prints_, self.prints_)
+        ):
             raise MergeError("cannot merge exact counts of different keys")
         self.counts_ += other.counts_
         return self

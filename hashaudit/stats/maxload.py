@@ -58,8 +58,8 @@ from scipy.fft import next_fast_len, rfft
 
 from hashaudit.errors import UsageError
 
-# Module-private helpers of the same subpackage: the numerics are shared with the closed forms.
-from hashaudit.stats.theory import (
+# The numerics shared with the closed forms; hashaudit.stats.theory imports this module, never the reverse.
+from hashaudit.stats._numeric import (
     _as_count,
     _poisson_logpmf,
     _rho,

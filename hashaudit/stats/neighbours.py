@@ -56,23 +56,27 @@ sequences like ``PART1``, ``PART2``, ... — and why a hash must spread them).
 
 from __future__ import annotations
 
-import hashaudit._numba_setup  # noqa: F401
-
-# isort: split
-
 from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from numba import njit
 
 from hashaudit.errors import UsageError
-from hashaudit.hashes.registry import HashSpec
 from hashaudit.keys.batch import KeyBatch
-from hashaudit.stats.avalanche import KeySample
+from hashaudit.stats import _hooks
+from hashaudit.stats._hooks import Fingerprint, HashBatch
+from hashaudit.stats._neighbour_kernels import (
+    append_kernel,
+    case_kernel,
+    counter_kernel,
+    first_occurrence_kernel,
+    one_char_kernel,
+    prefix_kernel,
+)
 from hashaudit.stats.buckets import BucketCounts
 from hashaudit.stats.collisions import FullCollisions
 from hashaudit.stats.outcome import FitTest
+from hashaudit.stats.sample import KeySample
 
 FAMILIES: tuple[str, ...] = ("counter", "one_char", "case", "shared_prefix", "appended_byte")
 FAMILY_DESCRIPTIONS: dict[str, str] = {
@@ -91,203 +95,8 @@ PREFIX_LENGTHS: tuple[int, ...] = (16, 32, 64, 128, 256, 512, 1024)
 # Bytes of candidates one family may generate before repeats are dropped and the cap applies: only very long
 # keys reach it (then only the first sample keys give neighbours; a KeySample is in random order).
 CANDIDATE_BYTES = 64 << 20
-# Fingerprints for dropping repeats (every match confirmed bytewise); any fixed seed does.
-DEDUP_SEED = 0x6E65_6967_6862_6F72  # "neighbor"
 # Mixed into the seed of the subsets and offsets, so a family's draws differ from the other seeded draws.
 FAMILY_DOMAIN = 0x6661_6D69_6C69_6573  # "families"
-
-
-# ---------------------------------------------------------------------------------------------------------
-# Kernels: each writes its candidates into preallocated buffers (sized from an upper bound) and returns how
-# many keys and bytes it wrote.
-
-
-@njit(cache=True, nogil=True)
-def _is_digit(c):  # pragma: no cover - compiled
-    return 48 <= c <= 57
-
-
-@njit(cache=True, nogil=True)
-def _counter_kernel(data, offsets, steps, out_data, out_offsets):  # pragma: no cover - compiled
-    """For each key with a digit, the next ``steps`` values of its last run of digits (same width)."""
-    position = 0
-    f = 0
-    out_offsets[0] = 0
-    for i in range(offsets.shape[0] - 1):
-        s = offsets[i]
-        length = offsets[i + 1] - s
-        end = length
-        while end > 0 and not _is_digit(data[s + end - 1]):
-            end -= 1
-        if end == 0:
-            continue
-        begin = end - 1
-        while begin > 0 and _is_digit(data[s + begin - 1]):
-            begin -= 1
-        digits = data[s + begin : s + end].copy()
-        for _ in range(steps):
-            # add one with carry; a carry out of the leftmost digit would widen the counter: stop
-            j = digits.shape[0] - 1
-            while j >= 0 and digits[j] == 57:
-                digits[j] = 48
-                j -= 1
-            if j < 0:
-                break
-            digits[j] += 1
-            for t in range(begin):
-                out_data[position + t] = data[s + t]
-            for t in range(end - begin):
-                out_data[position + begin + t] = digits[t]
-            for t in range(end, length):
-                out_data[position + t] = data[s + t]
-            position += length
-            f += 1
-            out_offsets[f] = position
-    return f, position
-
-
-@njit(cache=True, nogil=True)
-def _is_printable(data, s, length):  # pragma: no cover - compiled
-    for t in range(length):
-        if data[s + t] < 32 or data[s + t] > 126:
-            return False
-    return True
-
-
-@njit(cache=True, nogil=True)
-def _in_window(j, length, positions):  # pragma: no cover - compiled
-    return j < positions or j >= length - positions
-
-
-@njit(cache=True, nogil=True)
-def _one_char_kernel(data, offsets, positions, out_data, out_offsets):  # pragma: no cover - compiled
-    """Byte j plus one, then minus one, for every j in the window of every key."""
-    position = 0
-    f = 0
-    out_offsets[0] = 0
-    for i in range(offsets.shape[0] - 1):
-        s = offsets[i]
-        length = offsets[i + 1] - s
-        low, high = (32, 126) if _is_printable(data, s, length) else (0, 255)
-        for j in range(length):
-            if not _in_window(j, length, positions):
-                continue
-            for delta in (1, -1):
-                v = np.int64(data[s + j]) + delta
-                if v < low or v > high:
-                    continue
-                for t in range(length):
-                    out_data[position + t] = data[s + t]
-                out_data[position + j] = np.uint8(v)
-                position += length
-                f += 1
-                out_offsets[f] = position
-    return f, position
-
-
-@njit(cache=True, nogil=True)
-def _case_kernel(data, offsets, positions, out_data, out_offsets):  # pragma: no cover - compiled
-    """The case of letter j flipped, for every ASCII letter j in the window of every key."""
-    position = 0
-    f = 0
-    out_offsets[0] = 0
-    for i in range(offsets.shape[0] - 1):
-        s = offsets[i]
-        length = offsets[i + 1] - s
-        for j in range(length):
-            c = data[s + j]
-            if not _in_window(j, length, positions) or not (65 <= c <= 90 or 97 <= c <= 122):
-                continue
-            for t in range(length):
-                out_data[position + t] = data[s + t]
-            out_data[position + j] = c ^ np.uint8(32)
-            position += length
-            f += 1
-            out_offsets[f] = position
-    return f, position
-
-
-@njit(cache=True, nogil=True)
-def _append_kernel(data, offsets, per_key, first_value, out_data, out_offsets):  # pragma: no cover - compiled
-    """Key i followed by one byte, for the ``per_key`` values ``first_value[i], first_value[i] + 1, ...`` mod 256."""
-    position = 0
-    f = 0
-    out_offsets[0] = 0
-    for i in range(offsets.shape[0] - 1):
-        s = offsets[i]
-        length = offsets[i + 1] - s
-        for r in range(per_key):
-            for t in range(length):
-                out_data[position + t] = data[s + t]
-            out_data[position + length] = np.uint8((first_value[i] + r) & 255)
-            position += length + 1
-            f += 1
-            out_offsets[f] = position
-    return f, position
-
-
-@njit(cache=True, nogil=True)
-def _prefix_kernel(data, offsets, skip, prefix, lengths, out_data, out_offsets):  # pragma: no cover - compiled
-    """``prefix[:L] + key[skip:]`` for every L in ``lengths`` (outer loop) and every key."""
-    position = 0
-    f = 0
-    out_offsets[0] = 0
-    for L in lengths:
-        for i in range(offsets.shape[0] - 1):
-            s = offsets[i] + skip
-            tail = offsets[i + 1] - s
-            for t in range(L):
-                out_data[position + t] = prefix[t]
-            for t in range(tail):
-                out_data[position + L + t] = data[s + t]
-            position += L + tail
-            f += 1
-            out_offsets[f] = position
-    return f, position
-
-
-@njit(cache=True, nogil=True)
-def _gather_kernel(data, offsets, index, out_offsets, out_data):  # pragma: no cover - compiled
-    """Copy keys ``index`` to ``out_data`` at ``out_offsets`` (filled by the caller)."""
-    for r in range(index.shape[0]):
-        s = offsets[index[r]]
-        o = out_offsets[r]
-        for t in range(out_offsets[r + 1] - o):
-            out_data[o + t] = data[s + t]
-
-
-@njit(cache=True, nogil=True)
-def _same_key(data, a, b, offsets):  # pragma: no cover - compiled
-    sa = offsets[a]
-    la = offsets[a + 1] - sa
-    sb = offsets[b]
-    if offsets[b + 1] - sb != la:
-        return False
-    for t in range(la):
-        if data[sa + t] != data[sb + t]:
-            return False
-    return True
-
-
-@njit(cache=True, nogil=True)
-def _first_occurrence_kernel(data, offsets, fingerprints, order, keep):  # pragma: no cover - compiled
-    """``keep[k]``: no earlier key (smaller index) has the same bytes. ``order`` sorts the fingerprints stably,
-    so within a run of equal fingerprints the indices increase."""
-    n = order.shape[0]
-    i = 0
-    while i < n:
-        j = i + 1
-        while j < n and fingerprints[order[j]] == fingerprints[order[i]]:
-            j += 1
-        keep[order[i]] = True
-        for q in range(i + 1, j):
-            k = order[q]
-            keep[k] = True
-            for r in range(i, q):
-                if _same_key(data, order[r], k, offsets):
-                    keep[k] = False
-                    break
-        i = j
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -298,45 +107,21 @@ def _empty() -> KeyBatch:
     return KeyBatch(np.zeros(0, dtype=np.uint8), np.zeros(1, dtype=np.int64))
 
 
-def _compact(batch: KeyBatch) -> KeyBatch:
-    """The same keys with offsets starting at 0 and no bytes outside them."""
-    start, stop = int(batch.offsets[0]), int(batch.offsets[-1])
-    return KeyBatch(np.ascontiguousarray(batch.data[start:stop]), batch.offsets - start)
-
-
-def _take(batch: KeyBatch, index: np.ndarray) -> KeyBatch:
-    """Keys ``index`` of a batch, as a new compact batch."""
-    index = np.ascontiguousarray(index, dtype=np.int64)
-    out_offsets = np.zeros(len(index) + 1, dtype=np.int64)
-    np.cumsum(np.diff(batch.offsets)[index], out=out_offsets[1:])
-    out_data = np.empty(int(out_offsets[-1]), dtype=np.uint8)
-    _gather_kernel(batch.data, batch.offsets, index, out_offsets, out_data)
-    return KeyBatch(out_data, out_offsets)
-
-
-def _concat(first: KeyBatch, second: KeyBatch) -> KeyBatch:
-    """Two compact batches back to back."""
-    offsets = np.concatenate([first.offsets, second.offsets[1:] + first.offsets[-1]])
-    return KeyBatch(np.concatenate([first.data, second.data]), offsets)
-
-
-def _first_occurrences(batch: KeyBatch) -> np.ndarray:
+def _first_occurrences(batch: KeyBatch, fingerprint: Fingerprint) -> np.ndarray:
     """Boolean mask of the keys of a compact batch that no earlier key repeats."""
-    from hashaudit.hashes.xxh import xxh3_64
-
-    fingerprints = xxh3_64(batch, DEDUP_SEED)
-    order = np.argsort(fingerprints, kind="stable").astype(np.int64)
+    prints = fingerprint(batch)
+    order = np.argsort(prints, kind="stable").astype(np.int64)
     keep = np.zeros(len(batch), dtype=np.bool_)
-    _first_occurrence_kernel(batch.data, batch.offsets, fingerprints, order, keep)
+    first_occurrence_kernel(batch.data, batch.offsets, prints, order, keep)
     return keep
 
 
-def _new_keys(sample: KeyBatch, candidates: KeyBatch) -> KeyBatch:
+def _new_keys(sample: KeyBatch, candidates: KeyBatch, fingerprint: Fingerprint) -> KeyBatch:
     """The candidates that are neither a sample key nor a repeat of an earlier candidate, in order."""
     if len(candidates) == 0:
         return candidates
-    keep = _first_occurrences(_concat(sample, candidates))[len(sample) :]
-    return _take(candidates, np.flatnonzero(keep))
+    keep = _first_occurrences(KeyBatch.concat([sample, candidates]), fingerprint)[len(sample) :]
+    return candidates.take(np.flatnonzero(keep))
 
 
 def _rng(seed: int, family: str) -> np.random.Generator:
@@ -348,7 +133,7 @@ def _cap(keys: KeyBatch, target: int, rng: np.random.Generator) -> KeyBatch:
     if len(keys) <= target:
         return keys
     chosen = np.sort(rng.choice(len(keys), size=target, replace=False))
-    return _take(keys, chosen)
+    return keys.take(chosen)
 
 
 def _run(  # type: ignore[no-untyped-def]
@@ -396,19 +181,19 @@ def _counter(sample: KeyBatch, target: int, positions: int, rng: np.random.Gener
     if with_digits == 0:
         return _empty(), 0
     steps = -(-target // with_digits)
-    return _run(_counter_kernel, sample, steps * has_digit, steps * lengths * has_digit, np.int64(steps))
+    return _run(counter_kernel, sample, steps * has_digit, steps * lengths * has_digit, np.int64(steps))
 
 
 def _one_char(sample: KeyBatch, target: int, positions: int, rng: np.random.Generator) -> tuple[KeyBatch, int]:
     lengths = sample.lengths()
     window = _window(lengths, positions)
-    return _run(_one_char_kernel, sample, 2 * window, 2 * window * lengths, np.int64(positions))
+    return _run(one_char_kernel, sample, 2 * window, 2 * window * lengths, np.int64(positions))
 
 
 def _case(sample: KeyBatch, target: int, positions: int, rng: np.random.Generator) -> tuple[KeyBatch, int]:
     lengths = sample.lengths()
     window = _window(lengths, positions)
-    return _run(_case_kernel, sample, window, window * lengths, np.int64(positions))
+    return _run(case_kernel, sample, window, window * lengths, np.int64(positions))
 
 
 def _appended_byte(sample: KeyBatch, target: int, positions: int, rng: np.random.Generator) -> tuple[KeyBatch, int]:
@@ -417,7 +202,7 @@ def _appended_byte(sample: KeyBatch, target: int, positions: int, rng: np.random
     offset = int(rng.integers(256))
     first_value = (offset + per_key * np.arange(n, dtype=np.int64)) % 256
     per = np.full(n, per_key, dtype=np.int64)
-    return _run(_append_kernel, sample, per, per * (sample.lengths() + 1), np.int64(per_key), first_value)
+    return _run(append_kernel, sample, per, per * (sample.lengths() + 1), np.int64(per_key), first_value)
 
 
 def _shared_prefix(sample: KeyBatch, target: int, positions: int, rng: np.random.Generator) -> tuple[KeyBatch, int]:
@@ -441,7 +226,7 @@ def _shared_prefix(sample: KeyBatch, target: int, positions: int, rng: np.random
     prefix_lengths = np.array(chosen_lengths, dtype=np.int64)
     count = np.full(n, len(prefix_lengths), dtype=np.int64)
     per_key_bytes = int(prefix_lengths.sum()) + count * (sample.lengths() - len(common))
-    return _run(_prefix_kernel, sample, count, per_key_bytes, np.int64(len(common)), prefix, prefix_lengths)
+    return _run(prefix_kernel, sample, count, per_key_bytes, np.int64(len(common)), prefix, prefix_lengths)
 
 
 _GENERATORS = {
@@ -492,12 +277,13 @@ class NeighbourFamily:
         return FAMILY_DESCRIPTIONS[self.name]
 
 
-def _distinct_sample(sample: KeyBatch | KeySample) -> KeyBatch:
-    batch = _compact(sample.keys() if isinstance(sample, KeySample) else sample)
+def _distinct_sample(sample: KeyBatch | KeySample, fingerprint: Fingerprint) -> KeyBatch:
+    """The distinct keys of a sample, compact, at their first occurrences (weights play no part)."""
+    batch = sample.keys() if isinstance(sample, KeySample) else KeyBatch(sample.data, sample.offsets).compact()
     if len(batch) == 0:
         return batch
-    keep = _first_occurrences(batch)
-    return batch if keep.all() else _take(batch, np.flatnonzero(keep))
+    keep = _first_occurrences(batch, fingerprint)
+    return batch if keep.all() else batch.take(np.flatnonzero(keep))
 
 
 def _check_settings(seed: int, target: int, positions: int, names: Sequence[str]) -> None:
@@ -519,6 +305,7 @@ def neighbour_family(
     seed: int = 0,
     target: int = DEFAULT_TARGET,
     positions: int = DEFAULT_POSITIONS,
+    fingerprint: Fingerprint | None = None,
 ) -> NeighbourFamily:
     """One neighbour family of a key sample (see the module notes for the transformations).
 
@@ -534,22 +321,28 @@ def neighbour_family(
         Largest family size; ``counter`` and ``appended_byte`` also size their steps from it.
     positions : int, default 16
         ``one_char`` and ``case`` change the first and the last ``positions`` bytes of each key.
+    fingerprint : callable, optional
+        ``batch -> uint64[n]``, a fixed-seed fingerprint that finds repeated keys (every match is confirmed
+        bytewise); default ``hashaudit.hashes.fingerprint.dedup_fingerprints``.
 
     Returns
     -------
     NeighbourFamily
     """
     _check_settings(seed, target, positions, [name])
-    return _family(name, _distinct_sample(sample), int(seed), int(target), int(positions))
+    dedup = _hooks.resolve(_hooks.DEDUP, fingerprint)
+    return _family(name, _distinct_sample(sample, dedup), int(seed), int(target), int(positions), dedup)
 
 
-def _family(name: str, sample: KeyBatch, seed: int, target: int, positions: int) -> NeighbourFamily:
+def _family(
+    name: str, sample: KeyBatch, seed: int, target: int, positions: int, fingerprint: Fingerprint
+) -> NeighbourFamily:
     rng = _rng(seed, name)
     if len(sample) == 0:
         empty = _empty()
         return NeighbourFamily(name, empty, 0, 0, 0, seed, target, positions)
     candidates, used = _GENERATORS[name](sample, target, positions, rng)
-    fresh = _new_keys(sample, candidates)
+    fresh = _new_keys(sample, candidates, fingerprint)
     return NeighbourFamily(name, _cap(fresh, target, rng), len(sample), used, len(fresh), seed, target, positions)
 
 
@@ -560,14 +353,16 @@ def neighbour_families(
     target: int = DEFAULT_TARGET,
     positions: int = DEFAULT_POSITIONS,
     names: Sequence[str] = FAMILIES,
+    fingerprint: Fingerprint | None = None,
 ) -> list[NeighbourFamily]:
     """Every requested neighbour family of a key sample, in the order of ``names`` (empty ones included).
 
     Parameters are those of :func:`neighbour_family`; ``names`` selects the families.
     """
     _check_settings(seed, target, positions, names)
-    distinct = _distinct_sample(sample)
-    return [_family(name, distinct, int(seed), int(target), int(positions)) for name in dict.fromkeys(names)]
+    dedup = _hooks.resolve(_hooks.DEDUP, fingerprint)
+    distinct = _distinct_sample(sample, dedup)
+    return [_family(name, distinct, int(seed), int(target), int(positions), dedup) for name in dict.fromkeys(names)]
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -631,17 +426,24 @@ def _combine(family: NeighbourFamily, components: list[tuple[str | None, int | N
 
 
 def neighbour_tests(
-    spec: HashSpec,
+    hash_batch: HashBatch,
+    width: int,
     families: Sequence[NeighbourFamily],
     tables: Sequence[tuple[str, int]],
     seed: int = 0,
+    seeded: bool = True,
+    integer_keys: bool = False,
+    name: str = "",
 ) -> list[tuple[str, FitTest]]:
     """One test of fit per non-empty neighbour family, for one hash function.
 
     Parameters
     ----------
-    spec : HashSpec
-        The hash function.
+    hash_batch : callable
+        The hash function, ``(batch, seed) -> uint64[n]`` (``uint64[n, 2]``, low word first, for 128 bits), such
+        as ``HashSpec.hash_batch``.
+    width : int
+        Its output bits (32, 64 or 128).
     families : sequence of NeighbourFamily
         From :func:`neighbour_families`.
     tables : sequence of (scheme, buckets)
@@ -649,6 +451,13 @@ def neighbour_tests(
         the family has keys (the colliding-pairs test handles sparse tables).
     seed : int, default 0
         Seed of the hash (when it takes one) and of the simulated nulls of small tables, as in the audit.
+    seeded : bool, default True
+        Whether the function takes a seed; an unseeded one is called with seed 0.
+    integer_keys : bool, default False
+        A function of 8-byte integer keys (it reads 8 bytes whatever the length): only the families that keep
+        their keys' length (``LENGTH_KEEPING``) are tested.
+    name : str, default ""
+        The hash function's name, given to the accumulators (it appears in their error messages).
 
     Returns
     -------
@@ -668,18 +477,18 @@ def neighbour_tests(
     from hashaudit.stats.collisions import collision_tests
     from hashaudit.stats.fit import bucket_tests
 
-    hash_seed = seed if spec.seeded else 0
+    hash_seed = seed if seeded else 0
     out: list[tuple[str, FitTest]] = []
     for family in families:
-        if len(family) == 0 or (spec.integer_keys and family.name not in LENGTH_KEEPING):
+        if len(family) == 0 or (integer_keys and family.name not in LENGTH_KEEPING):
             continue
-        values = spec.hash_batch(family.keys, hash_seed)
+        values = hash_batch(family.keys, hash_seed)
         components: list[tuple[str | None, int | None, FitTest]] = []
         for scheme, buckets in tables:
-            counts = BucketCounts(spec.name, seed, scheme, int(buckets), spec.width).update(values).result()
+            counts = BucketCounts(name, seed, scheme, int(buckets), width).update(values).result()
             pairs = next(t for t in bucket_tests(counts, seed=seed, with_max_load=False) if t.name == "colliding_pairs")
             components.append((scheme, int(buckets), pairs))
-        with FullCollisions(spec.name, seed, spec.width) as collisions:
+        with FullCollisions(name, seed, width) as collisions:
             collisions.update(values)
             (full,) = collision_tests(collisions.result())
         components.append((None, None, full))

@@ -30,7 +30,7 @@ import numpy as np
 
 from hashaudit.stats._lazy import LazyModule
 from hashaudit.stats.outcome import Effect, FitTest
-from hashaudit.tables.growth import GrowthPolicy, GrowthResult, replay_growth
+from hashaudit.tables.growth import GrowthPolicy, GrowthResult, insertion_orders, replay_growth
 from hashaudit.tables.simulate import ProbeCell, simulate
 
 stats = LazyModule("scipy.stats")
@@ -296,3 +296,34 @@ def order_tests(
             details,
         )
     ]
+
+
+RANDOM_ORDERS = 8
+ORDER_PROBE_LIMIT = 64  # an order replay stops past this many times the random orders' mean probes
+
+
+def order_hazard(
+    values: np.ndarray, width: int, kind: str, policy: GrowthPolicy, scheme: str, slots: int, seed: int
+) -> FitTest:
+    """Replay the keys in every order of ``insertion_orders`` (and ``RANDOM_ORDERS`` random ones) into a growing
+    table and test the totals."""
+
+    def work(order: np.ndarray, limit: int | None = None) -> tuple[int, int, bool]:
+        replay = replay_growth(
+            values, width, kind, policy, scheme, order=order, measure_moments=False, probe_limit=limit
+        )
+        return replay.insert_probes + replay.rehash_probes, replay.insert_worst, replay.stopped
+
+    orders = insertion_orders(values, width, slots, scheme, seed)
+    rng = np.random.default_rng([seed, len(values), 0x0D3F])
+    random_runs = [work(rng.permutation(len(values)))[:2] for _ in range(RANDOM_ORDERS)]
+    # an order far costlier than random is stopped early: its total is then a lower bound, and enough to judge
+    limit = ORDER_PROBE_LIMIT * int(np.mean([total for total, _ in random_runs]))
+    full = {name: work(order, limit) for name, order in orders.items() if name != "random"}
+    runs = {name: (total, high) for name, (total, high, _) in full.items()}
+    totals = {name: total for name, (total, _) in runs.items()}
+    worst = {name: high for name, (_, high) in runs.items()}
+    (test,) = order_tests(kind, policy.label, totals, [total for total, _ in random_runs], worst)
+    test.details["random_worst_insertion"] = max(high for _, high in random_runs)
+    test.details["stopped_orders"] = [name for name, (_, _, stopped) in full.items() if stopped]
+    return test

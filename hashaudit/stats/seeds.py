@@ -51,11 +51,11 @@ from typing import Any
 import numpy as np
 
 from hashaudit.errors import UsageError
-from hashaudit.hashes.registry import HashSpec
 from hashaudit.keys.batch import KeyBatch
+from hashaudit.stats._hooks import HashBatch
 from hashaudit.stats.buckets import BucketCounts
 from hashaudit.stats.outcome import Effect, FitTest
-from hashaudit.stats.tails import poisson_tails
+from hashaudit.stats.tails import colliding_pairs_test
 
 DEFAULT_SEEDS: tuple[int, ...] = (1, 2, 3, 4, 5, 6, 7, 8)
 LARGEST_GROUPS = 10  # group sizes shown in the collision details
@@ -159,16 +159,6 @@ def _check_seeds(seeds: Sequence[int]) -> tuple[int, ...]:
     return tuple(checked)
 
 
-def _gather(batch: KeyBatch, index: np.ndarray) -> KeyBatch:
-    """Keys ``index`` of ``batch`` as a new compact batch."""
-    starts = batch.offsets[index]
-    lengths = batch.offsets[index + 1] - starts
-    offsets = np.zeros(len(index) + 1, dtype=np.int64)
-    np.cumsum(lengths, out=offsets[1:])
-    source = np.arange(offsets[-1], dtype=np.int64) + np.repeat(starts - offsets[:-1], lengths)
-    return KeyBatch(batch.data[source], offsets)
-
-
 def _rows(values: np.ndarray) -> np.ndarray:
     """Hash values as ``uint64[n, w]`` rows (w = 2 for 128-bit functions)."""
     return np.ascontiguousarray(values, dtype=np.uint64).reshape(len(values), 2 if values.ndim == 2 else 1)
@@ -200,7 +190,7 @@ def _refine(index: np.ndarray, labels: np.ndarray | None, rows: np.ndarray) -> t
 
 def _check_distinct(keys: KeyBatch, survivors: np.ndarray) -> None:
     """Refuse repeated keys (they are among the survivors: a key collides with itself under every seed)."""
-    surviving = _gather(keys, survivors).to_list()
+    surviving = keys.take(survivors).to_list()
     repeats = len(surviving) - len(set(surviving))
     if repeats:
         raise UsageError(
@@ -214,19 +204,25 @@ def _check_distinct(keys: KeyBatch, survivors: np.ndarray) -> None:
 
 
 def seed_runs(
-    spec: HashSpec,
+    hash_batch: HashBatch,
+    width: int,
     keys: KeyBatch,
     tables: Sequence[tuple[str, int]],
     seeds: Sequence[int] = DEFAULT_SEEDS,
     null_seed: int = 0,
+    seeded: bool = True,
+    name: str = "",
 ) -> SeedRuns:
     """Hash the same distinct keys under every seed; count them into every table; find the pairs of keys whose
     full hash values are equal under every seed.
 
     Parameters
     ----------
-    spec : HashSpec
-        The hash function. For an unseeded function (``spec.seeded`` false) nothing is computed.
+    hash_batch : callable
+        The hash function, ``(batch, seed) -> uint64[n]`` (``uint64[n, 2]``, low word first, for 128 bits), such
+        as ``HashSpec.hash_batch``.
+    width : int
+        Its output bits b (32, 64 or 128).
     keys : KeyBatch
         Distinct keys (for example ``KeySample.keys()``); a repeated key raises ``UsageError``.
     tables : sequence of (scheme, buckets)
@@ -236,6 +232,10 @@ def seed_runs(
         such as MurmurHash3's is taken modulo 2^32, so 1 and 2^32 + 1 would be the same seed).
     null_seed : int, default 0
         Seed of the simulated null distributions of small tables (``bucket_tests``).
+    seeded : bool, default True
+        Whether the function takes a seed; for an unseeded one nothing is computed.
+    name : str, default ""
+        The hash function's name, recorded in the result.
 
     Returns
     -------
@@ -250,12 +250,10 @@ def seed_runs(
     seeds = _check_seeds(seeds)
     tables = tuple((str(scheme), int(m)) for scheme, m in tables)
     n, t_count = len(keys), len(tables)
-    if not spec.seeded:
+    if not seeded:
         empty = np.zeros((0, t_count))
         nothing = (empty, empty.copy(), empty.copy(), empty.copy(), np.zeros(t_count))
-        return SeedRuns(
-            spec.name, spec.width, False, n, seeds, tables, null_seed, *nothing, (), np.zeros(0, dtype=np.int64), ()
-        )
+        return SeedRuns(name, width, False, n, seeds, tables, null_seed, *nothing, (), np.zeros(0, dtype=np.int64), ())
     from hashaudit.stats.fit import bucket_tests  # imports scipy
 
     chi_square = np.zeros((len(seeds), t_count))
@@ -270,10 +268,10 @@ def seed_runs(
     for i, seed in enumerate(seeds):
         values: np.ndarray | None = None
         if tables or i == 0:
-            values = spec.hash_batch(keys, seed)
+            values = hash_batch(keys, seed)
         for t, (scheme, m) in enumerate(tables):
             assert values is not None
-            counts = BucketCounts(spec.name, seed, scheme, m, spec.width).update(values).result()
+            counts = BucketCounts(name, seed, scheme, m, width).update(values).result()
             chi = next(
                 (
                     test
@@ -290,7 +288,7 @@ def seed_runs(
                 methods.append(chi.method)
         if i == 0 or len(index):
             if values is None:
-                rows = _rows(spec.hash_batch(_gather(keys, index), seed))
+                rows = _rows(hash_batch(keys.take(index), seed))
             else:
                 rows = _rows(values if i == 0 else values[index])
             index, labels = _refine(index, labels, rows)
@@ -303,8 +301,8 @@ def seed_runs(
     for array in (chi_square, p_upper, p_lower, lookup_cost, ideal, group_sizes):
         array.setflags(write=False)
     return SeedRuns(
-        spec.name,
-        spec.width,
+        name,
+        width,
         True,
         n,
         seeds,
@@ -430,15 +428,6 @@ def _spread_test(runs: SeedRuns) -> FitTest:
 
 def _collision_test(runs: SeedRuns) -> FitTest:
     observed = runs.colliding_pairs
-    expected = runs.expected_pairs
-    p_upper, p_lower = poisson_tails(observed, expected)
-    effect = Effect(
-        "collision_excess",
-        (observed - expected) / max(expected, 1.0),
-        float(observed),
-        expected,
-        "pairs of distinct keys with equal full hash values under every seed",
-    )
     details: dict[str, Any] = {
         "width": runs.width,
         "seeds": list(runs.seeds),
@@ -454,17 +443,8 @@ def _collision_test(runs: SeedRuns) -> FitTest:
         f"Poisson law of the pairs of distinct keys colliding under all {len(runs.seeds)} seeds, mean "
         f"C(n, 2) / 2^({runs.width}·{len(runs.seeds)}) for independent seeds"
     )
-    return FitTest(
-        "seed_independent_collisions",
-        float(observed),
-        expected,
-        float(observed),
-        p_upper,
-        p_lower,
-        method,
-        effect,
-        details,
-    )
+    counted = "pairs of distinct keys with equal full hash values under every seed"
+    return colliding_pairs_test("seed_independent_collisions", observed, runs.expected_pairs, counted, method, details)
 
 
 def seed_tests(runs: SeedRuns) -> list[FitTest]:

@@ -37,7 +37,7 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit, uint64
 
-from hashaudit.errors import UsageError
+from hashaudit.settings import SettingError
 
 SHARD_SCHEMES = ("mod", "jump", "rendezvous", "ring")
 DEFAULT_VNODES = 160
@@ -136,20 +136,20 @@ class ShardLayout:
 
     def __post_init__(self) -> None:
         if self.scheme not in SHARD_SCHEMES:
-            raise UsageError(f"unknown shard scheme {self.scheme!r}; choose from {', '.join(SHARD_SCHEMES)}")
+            raise SettingError("shard_schemes", f"takes one of {', '.join(SHARD_SCHEMES)}, not {self.scheme!r}")
         if not 1 <= self.shards <= 2 * MAX_SHARDS:  # the movement check also lays out N + 1 and 2N shards
-            raise UsageError(f"--shards must be between 1 and {MAX_SHARDS:,}, not {self.shards}")
+            raise SettingError("shards", f"must be between 1 and {MAX_SHARDS:,}, not {self.shards:,}")
         if self.weights:
             if len(self.weights) != self.shards:
-                raise UsageError(f"--shard-weights gives {len(self.weights)} weights for {self.shards} shards")
+                raise SettingError("shard_weights", f"gives {len(self.weights)} weights for {self.shards} shards")
             if not all(math.isfinite(w) and w > 0 for w in self.weights):
-                raise UsageError("--shard-weights must all be positive numbers")
+                raise SettingError("shard_weights", "must all be positive numbers")
             if min(self.weights) < 1e-6 * max(self.weights):
-                raise UsageError("--shard-weights: the smallest weight must be at least a millionth of the largest")
+                raise SettingError("shard_weights", ": the smallest weight must be at least a millionth of the largest")
             if self.scheme in ("mod", "jump"):
-                raise UsageError(f"the {self.scheme} scheme cannot weight shards; use rendezvous or ring")
+                raise SettingError("shard_weights", f"cannot weight the {self.scheme} scheme; use rendezvous or ring")
         if not 1 <= self.vnodes <= 1 << 16:
-            raise UsageError(f"--vnodes must be between 1 and 65,536, not {self.vnodes}")
+            raise SettingError("vnodes", f"must be between 1 and 65,536, not {self.vnodes}")
 
     def resized(self, shards: int) -> ShardLayout:
         """The same scheme with ``shards`` shards (new shards weigh the mean weight)."""

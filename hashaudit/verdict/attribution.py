@@ -12,15 +12,10 @@ from __future__ import annotations
 import math
 from typing import Any
 
-import numpy as np
-
-from hashaudit.keys.batch import KeyBatch
 from hashaudit.stats.heavy import HeavyKeys
 from hashaudit.stats.outcome import Effect
 from hashaudit.stats.shards import attribute_load, rounded
-from hashaudit.verdict.findings import Finding, Thresholds
-
-HEAVY_SHOWN = 20  # the heaviest keys placed on shards for the attribution
+from hashaudit.verdict.findings import Finding
 
 
 def _pct(x: float) -> str:
@@ -34,35 +29,38 @@ def _points(points: float, excess: float) -> str:
     return f"{100 * points:.1f} of its {100 * excess:.1f} points"
 
 
-def load_findings(states: list[Any], heavy: HeavyKeys, thresholds: Thresholds, seed: int = 0) -> list[Finding]:
-    """The ``hot_keys`` and ``load_attribution`` findings of every hash and shard layout."""
-    top = heavy.top(HEAVY_SHOWN)
+def load_findings(
+    hash_name: str, placed: list[tuple[Any, list[tuple[bytes, float, int]]]], heavy: HeavyKeys, shard_imbalance: float
+) -> list[Finding]:
+    """The ``hot_keys`` and ``load_attribution`` findings of one hash function.
+
+    Parameters
+    ----------
+    hash_name : str
+    placed : list of (ShardCounts, list of (key, load, shard))
+        Each shard layout's counts, with the heaviest keys placed on its shards by this hash.
+    heavy : HeavyKeys
+        The summary the keys come from (whether their loads are exact, its error bound and floor).
+    shard_imbalance : float
+        The threshold above which the hottest shard's excess counts as hot.
+    """
     findings = []
-    for state in states:
-        if not state.shards:
+    for counts, keys in placed:
+        if float(counts.load_.sum()) <= 0:  # every weight zero: no load to attribute
             continue
-        spec = state.spec
-        values = spec.hash_batch(KeyBatch.from_keys([k for k, _ in top]), seed if spec.seeded else 0) if top else None
-        for counts in state.shards:
-            if float(counts.load_.sum()) <= 0:  # every weight zero: no load to attribute
-                continue
-            where = counts.layout.assign(values, spec.width) if values is not None else np.zeros(0, np.int64)
-            placed = [(key, load, int(s)) for (key, load), s in zip(top, where.tolist(), strict=True)]
-            a = attribute_load(counts, placed, float(counts.load_.sum()))
-            a["heavy_keys_exact"] = heavy.exact
-            a["heavy_count_error"] = rounded(heavy.error_)
-            a["heavy_keys_above"] = rounded(
-                heavy.floor_
-            )  # settled: every key heavier than this is listed, counted exactly
-            findings += _findings(spec.name, int(counts.distinct_.sum()), a, thresholds)
+        a = attribute_load(counts, keys, float(counts.load_.sum()))
+        a["heavy_keys_exact"] = heavy.exact
+        a["heavy_count_error"] = rounded(heavy.error_)
+        a["heavy_keys_above"] = rounded(heavy.floor_)  # settled: every key heavier than this is listed, exactly
+        findings += _findings(hash_name, int(counts.distinct_.sum()), a, shard_imbalance)
     return findings
 
 
-def _findings(hash_name: str, keys: int, a: dict, thresholds: Thresholds) -> list[Finding]:
+def _findings(hash_name: str, keys: int, a: dict, shard_imbalance: float) -> list[Finding]:
     shard, share, fair = a["hottest_shard"], a["load_share"], a["fair_share"]
     excess = share - fair
     points = a["points_from_heavy_keys"]
-    hot = excess / fair > thresholds.shard_imbalance and points >= 0.5 * excess
+    hot = excess / fair > shard_imbalance and points >= 0.5 * excess
     many = a["heavy_keys_on_shard"]
     keys_word = f"{many} key" + ("" if many == 1 else "s")
     verb = "makes" if many == 1 else "make"
@@ -108,7 +106,7 @@ def _findings(hash_name: str, keys: int, a: dict, thresholds: Thresholds) -> lis
             1.0,
             "heaviest keys from a Misra-Gries summary, placed on shards by this hash",
             effect,
-            thresholds.shard_imbalance,
+            shard_imbalance,
             verdict,
             "none",
             message,

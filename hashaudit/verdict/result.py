@@ -82,8 +82,10 @@ class AuditResult:
     run: dict = field(default_factory=dict, compare=False)
     keys_read: int = -1
     plots: dict = field(default_factory=dict, compare=False, repr=False)
-    """Data for figures that the JSON does not carry, by hash name (see ``hashaudit.engine.local``):
+    """Data for figures that the JSON does not carry, by hash name (see ``hashaudit.engine.conclude``):
     ``avalanche`` (flip probabilities, input bit × output bit) and ``no_collision`` (the subsample curve)."""
+    tables: tuple[tuple[str, int], ...] = ()
+    """The (scheme, buckets) tables every hash function was counted in (sizes resolved when automatic)."""
 
     @property
     def repeated_keys(self) -> int:
@@ -126,6 +128,7 @@ class AuditResult:
                 ],
             },
             "settings": self.settings,
+            "tables": [{"scheme": scheme, "buckets": buckets} for scheme, buckets in self.tables],
             "sources": list(self.sources),
             "hashes": [h.to_dict() for h in self.hashes],
             "run": self.run,

@@ -77,7 +77,7 @@ def test_weighted_loads_with_automatic_table_sizes_match_the_local_engine(tmp_pa
 
     sample = Path(__file__).parents[2] / "sample_keys" / "tracking_lookups.csv"
     plan = AuditPlan(hashes=("murmur3_32",), checks=("buckets", "shards"), shards=(8,), seed=1)
-    options = SourceOptions(columns=("parcel",), weight="bytes")
+    options = SourceOptions(columns=("parcel",), weight_column="bytes")
     local = audit([sample], plan, options)
     dist = audit_dask([str(sample)], plan, options, workers=2, prefix_bits=2)
     tables = report_dict(dist)["hashes"][0]["tables"]

@@ -37,7 +37,7 @@ def test_a_known_weak_combination_fails_and_passes_without_it(tmp_path):
             'buckets = ["2^12"]\n[[sources]]\npath = "k.txt"\ncolumn = "a"\n',
             "line 4: unknown key 'column' in [sources]",
         ),
-        ('buckets = "2^12"\n', "'buckets' must be list"),
+        ('buckets = "2^12"\n', "line 1: buckets takes a list, not a string"),
         ("buckets = [\n", "not valid TOML"),
         ('buckets = ["2^12"]\n', "no [[sources]]"),
     ],

@@ -218,7 +218,7 @@ def test_json_lines_skip(tmp_path):
     path.write_bytes(EVENTS)
     pairs = numbered(path, field="k", weight="w")
     assert pairs == [(1, b"a"), (6, b"d"), (13, b'{"a":1}')]
-    stream = open_keys(path, SourceOptions(field="k", weight="w", on_bad_record=SKIP))
+    stream = open_keys(path, SourceOptions(field="k", weight_column="w", on_bad_record=SKIP))
     weights = np.concatenate([b.weights for b in stream])
     assert weights.tolist() == [1.0, 2.5, 3.0]
     assert stream.stats.skipped == {
@@ -309,7 +309,7 @@ def test_key_format_skip_through_a_source(tmp_path):
 def test_key_format_skip_keeps_weights_with_their_keys(tmp_path):
     path = tmp_path / "w.csv"
     path.write_bytes(b"k,w\n0a,1\nzz,2\n0b,3\n0,4\n0c,5\n")
-    stream = open_keys(path, SourceOptions(columns=("k",), weight="w", key_format="hex", on_bad_record=SKIP))
+    stream = open_keys(path, SourceOptions(columns=("k",), weight_column="w", key_format="hex", on_bad_record=SKIP))
     batches = list(stream)
     assert [k for b in batches for k in b.to_list()] == [b"\x0a", b"\x0b", b"\x0c"]
     assert np.concatenate([b.weights for b in batches]).tolist() == [1.0, 3.0, 5.0]
@@ -332,7 +332,7 @@ def test_many_bad_integers_are_skipped_in_one_pass():
 def test_csv_bad_weights_skipped(tmp_path):
     path = tmp_path / "w.csv"
     path.write_bytes(b"k,w\na,1\nb,heavy\nc,-1\nd, 2 \ne,\nf,inf\ng,NaN\nh,3e0\ni,1_0\n")
-    stream = open_keys(path, SourceOptions(columns=("k",), weight="w", on_bad_record=SKIP))
+    stream = open_keys(path, SourceOptions(columns=("k",), weight_column="w", on_bad_record=SKIP))
     batches = list(stream)
     assert [k for b in batches for k in b.to_list()] == [b"a", b"d", b"h"]
     assert np.concatenate([b.weights for b in batches]).tolist() == [1.0, 2.0, 3.0]
@@ -345,7 +345,7 @@ def test_csv_good_weights_read_alike_in_both_modes(tmp_path):
     path.write_bytes(b"k,w\na,1\nb,2.5\nc,+3\nd,.5\ne,1e3\nf, 7\n")
     weights = {}
     for mode in ("fail", "skip"):
-        stream = open_keys(path, SourceOptions(columns=("k",), weight="w", on_bad_record=mode))
+        stream = open_keys(path, SourceOptions(columns=("k",), weight_column="w", on_bad_record=mode))
         weights[mode] = np.concatenate([b.weights for b in stream]).tolist()
     assert weights["fail"] == weights["skip"] == [1.0, 2.5, 3.0, 0.5, 1000.0, 7.0]
 
@@ -386,7 +386,7 @@ def test_parquet_bad_weights_skipped_and_null_keys_counted_apart(tmp_path):
         }
     )
     pq.write_table(table, path)
-    stream = open_keys(path, SourceOptions(columns=("k",), weight="w", on_bad_record=SKIP))
+    stream = open_keys(path, SourceOptions(columns=("k",), weight_column="w", on_bad_record=SKIP))
     batches = list(stream)
     assert [k for b in batches for k in b.to_list()] == [b"a"]
     assert stream.stats.skipped == {"null": 2, "bad_weight": 3}
@@ -398,7 +398,7 @@ def test_parquet_clean_weights_alike_in_both_modes(tmp_path):
     path = tmp_path / "w.parquet"
     pq.write_table(pa.table({"k": ["a", None, "c"], "w": [1, 2, 3]}), path)
     for mode in ("fail", "skip"):
-        stream = open_keys(path, SourceOptions(columns=("k",), weight="w", on_bad_record=mode))
+        stream = open_keys(path, SourceOptions(columns=("k",), weight_column="w", on_bad_record=mode))
         batches = list(stream)
         assert np.concatenate([b.weights for b in batches]).tolist() == [1.0, 3.0]
         assert stream.stats.skipped == {"null": 1}
@@ -413,7 +413,7 @@ def test_sqlite_bad_weights_skipped(tmp_path):
             [("a", 1), ("b", "x"), ("c", -1), (None, 1), ("e", None), ("f", 2.5)],
         )
     connection.close()
-    stream = open_keys(path, SourceOptions(table="t", columns=("k",), weight="w", on_bad_record=SKIP))
+    stream = open_keys(path, SourceOptions(db_table="t", columns=("k",), weight_column="w", on_bad_record=SKIP))
     batches = list(stream)
     assert [k for b in batches for k in b.to_list()] == [b"a", b"f"]
     assert np.concatenate([b.weights for b in batches]).tolist() == [1.0, 2.5]

@@ -111,7 +111,7 @@ from hashaudit.keys.options import SourceOptions
 url, limit, driver = sys.argv[1], int(sys.argv[2]), sys.argv[3]
 base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 query = f"SELECT id FROM big LIMIT {limit}"
-keys = sum(len(b) for b in open_keys(url, SourceOptions(query=query, driver=driver, batch_keys=50_000)))
+keys = sum(len(b) for b in open_keys(url, SourceOptions(query=query, db_driver=driver, batch_keys=50_000)))
 print(keys, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss - base)
 """
 

@@ -20,8 +20,9 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from hashaudit.hashes.fingerprint import sample_priorities
 from hashaudit.keys.batch import KeyBatch
-from hashaudit.stats.avalanche import KeySample, _sample_priorities
+from hashaudit.stats.avalanche import KeySample
 from hashaudit.stats.bits import BitCounts
 from hashaudit.stats.buckets import BucketCounts
 from hashaudit.stats.collisions import LARGEST_GROUPS, CollisionGroup, FullCollisions
@@ -512,6 +513,6 @@ def test_key_sample_merge_equals_one_sample_of_everything(size, seed, data):
         assert sample == single, way
     # Reference: the ``size`` distinct keys with the smallest (priority, bytes), priorities of the keys one by one.
     distinct = sorted({k for part in parts for b in part for k in b})
-    priority = {k: int(_sample_priorities(KeyBatch.from_keys([k]), seed)[0]) for k in distinct}
+    priority = {k: int(sample_priorities(KeyBatch.from_keys([k]), seed)[0]) for k in distinct}
     expected = sorted(distinct, key=lambda k: (priority[k], k))[:size]
     assert single.result().to_list() == expected

@@ -59,7 +59,7 @@ def plans(tmp_path_factory) -> dict[str, AuditPlan]:
             hashes=("poly31", "murmur3_128", "fnv1a_64"), collision_memory=0, spill_dir=spill, **common
         ),
         # every occurrence counted, repeats included
-        "all-occurrences": AuditPlan(hashes=("murmur3_32", "poly31"), distinct=False, **common),
+        "all-occurrences": AuditPlan(hashes=("murmur3_32", "poly31"), all_keys=True, **common),
     }
 
 

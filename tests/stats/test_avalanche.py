@@ -11,19 +11,19 @@ from scipy import stats
 
 import hashaudit.stats.avalanche as avalanche_module
 from hashaudit.errors import MergeError, UsageError
+from hashaudit.hashes.fingerprint import PRIORITY_DOMAIN, member_fingerprints, sample_priorities
 from hashaudit.hashes.registry import from_callable, get_hash
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.stats.avalanche import (
-    PRIORITY_DOMAIN,
     KeySample,
     _binomial_two_sided,
-    _bottom_k,
     avalanche_matrix,
     avalanche_tests,
     expected_max_abs_normal,
     expected_max_bias,
     flip_batch,
 )
+from hashaudit.stats.sample import _bottom_k
 
 
 def realistic_keys(n: int = 3000, seed: int = 20240611) -> list[bytes]:
@@ -40,6 +40,12 @@ REALISTIC_SAMPLE = KeySample(4096, 0).update(KeyBatch.from_keys(REALISTIC))
 # A hash whose output is the key's first 8 bytes read little-endian: flipping input bit i flips output bit i and
 # nothing else, so every flip count is known exactly (the identity-hash fixture of STYLE.md).
 FIRST_EIGHT_BYTES = from_callable("first_eight_bytes", lambda key: int.from_bytes(key[:8], "little"), width=64)
+
+
+def function_of(name: str):  # type: ignore[no-untyped-def]
+    """The batch function and width of a registered hash: what the statistics take."""
+    spec = get_hash(name)
+    return spec.hash_batch, spec.width
 
 
 def stream_with_repeats(seed: int = 5, n: int = 1200) -> list[bytes]:
@@ -67,7 +73,7 @@ class TestKeySample:
 
     def test_matches_a_plain_python_bottom_k(self):
         sample = self.whole()
-        priorities = avalanche_module._sample_priorities(STREAM_BATCH, self.seed).tolist()
+        priorities = sample_priorities(STREAM_BATCH, self.seed).tolist()
         priority = dict(zip(STREAM, priorities, strict=True))
         reference = sorted(set(STREAM), key=lambda key: (priority[key], key))[: self.size]
         assert sample.keys().to_list() == reference
@@ -80,7 +86,7 @@ class TestKeySample:
         for seed in (0, self.seed, 2**64 + 3):
             key = ((seed ^ (PRIORITY_DOMAIN << 64)) % 2**128).to_bytes(16, "little")
             expected = [siphashc.siphash(key, k) for k in keys]
-            assert avalanche_module._sample_priorities(KeyBatch.from_keys(keys), seed).tolist() == expected
+            assert sample_priorities(KeyBatch.from_keys(keys), seed).tolist() == expected
 
     @pytest.mark.parametrize("chunk", [1, 2, 50, len(STREAM), len(STREAM) + 42])
     def test_chunking_does_not_change_the_sample(self, chunk):
@@ -133,7 +139,7 @@ class TestKeySample:
     def test_sample_is_uniform_over_the_keys(self):
         # 1000 of the integers 0..9999 fall evenly in ten deciles (chi-square with 9 d.f., scipy.stats)
         sample = KeySample(1000, 11).update(KeyBatch.from_uint64(np.arange(10_000, dtype=np.uint64)))
-        values = np.frombuffer(sample.keys().data.tobytes(), dtype="<u8")
+        values = sample.keys().words_le64(8)[:, 0]
         counts = np.bincount(values // 1000, minlength=10)
         assert stats.chisquare(counts).pvalue > 1e-3
 
@@ -214,7 +220,7 @@ class TestAvalancheMatrix:
     @pytest.mark.parametrize("name", ["fnv1a_32", "murmur3_128", "xxh3_64"])
     def test_matches_a_plain_python_reference(self, name):
         spec = get_hash(name)
-        result = avalanche_matrix(spec, KeyBatch.from_keys(SMALL_KEYS), 0, max_bytes=16)
+        result = avalanche_matrix(spec.hash_batch, spec.width, KeyBatch.from_keys(SMALL_KEYS), 0, max_bytes=16)
         counts, trials, pairs, skipped = reference_matrix(spec, SMALL_KEYS, 16)
         assert result.pairs_counted_once == skipped > 0  # sequential ids: many keys one bit apart
         np.testing.assert_array_equal(result.trials, trials)
@@ -227,7 +233,7 @@ class TestAvalancheMatrix:
     def test_first_eight_bytes_hash_flips_exactly_the_flipped_bit(self):
         rng = np.random.default_rng(3)
         keys = [rng.bytes(int(n)) for n in rng.integers(8, 13, 200)]
-        result = avalanche_matrix(FIRST_EIGHT_BYTES, KeyBatch.from_keys(keys), max_bytes=8)
+        result = avalanche_matrix(FIRST_EIGHT_BYTES.hash_batch, 64, KeyBatch.from_keys(keys), max_bytes=8)
         assert result.pairs_counted_once == 0  # random keys: no two one bit apart
         np.testing.assert_array_equal(result.trials, np.full(64, 200))
         np.testing.assert_array_equal(result.flip_counts, 200 * np.eye(64, dtype=np.int64))
@@ -236,7 +242,7 @@ class TestAvalancheMatrix:
     def test_a_pair_of_sample_keys_one_bit_apart_is_counted_once(self):
         pad = b"\x00" * 7
         keys = [b"\x00" + pad, b"\x01" + pad, b"\x03" + pad]
-        result = avalanche_matrix(FIRST_EIGHT_BYTES, KeyBatch.from_keys(keys), max_bytes=8)
+        result = avalanche_matrix(FIRST_EIGHT_BYTES.hash_batch, 64, KeyBatch.from_keys(keys), max_bytes=8)
         # by hand: bit 0 joins 00-01 (counted from 00) and 03-02 (02 is not a sample key); bit 1 joins 00-02 and
         # 01-03 (counted from 01); every other bit has three separate pairs
         assert result.trials[:2].tolist() == [2, 2]
@@ -245,40 +251,42 @@ class TestAvalancheMatrix:
 
     def test_sample_and_batch_of_the_same_keys_agree(self):
         spec = get_hash("murmur3_32")
-        from_sample = avalanche_matrix(spec, KeySample(100, 1).update(KeyBatch.from_keys(SMALL_KEYS)), 5)
-        from_batch = avalanche_matrix(spec, KeyBatch.from_keys(SMALL_KEYS[::-1]), 5)
+        from_sample = avalanche_matrix(
+            spec.hash_batch, spec.width, KeySample(100, 1).update(KeyBatch.from_keys(SMALL_KEYS)), 5
+        )
+        from_batch = avalanche_matrix(spec.hash_batch, spec.width, KeyBatch.from_keys(SMALL_KEYS[::-1]), 5)
         assert from_sample.sample_seed == 1 and from_batch.sample_seed is None
         for field in ("trials", "flip_counts", "pair_counts"):
             np.testing.assert_array_equal(getattr(from_sample, field), getattr(from_batch, field))
 
     def test_chunk_budget_does_not_change_the_counts(self, monkeypatch):
         spec = get_hash("siphash24")
-        whole = avalanche_matrix(spec, KeyBatch.from_keys(SMALL_KEYS), 9)
+        whole = avalanche_matrix(spec.hash_batch, spec.width, KeyBatch.from_keys(SMALL_KEYS), 9)
         monkeypatch.setattr(avalanche_module, "FLIP_CHUNK_FLIPS", 100)
-        chunked = avalanche_matrix(spec, KeyBatch.from_keys(SMALL_KEYS), 9)
+        chunked = avalanche_matrix(spec.hash_batch, spec.width, KeyBatch.from_keys(SMALL_KEYS), 9)
         for field in ("trials", "flip_counts", "pair_counts"):
             np.testing.assert_array_equal(getattr(whole, field), getattr(chunked, field))
 
     def test_the_hash_seed_is_used(self):
         spec = get_hash("xxh3_64")
-        a = avalanche_matrix(spec, KeyBatch.from_keys(SMALL_KEYS), 1)
-        b = avalanche_matrix(spec, KeyBatch.from_keys(SMALL_KEYS), 2)
+        a = avalanche_matrix(spec.hash_batch, spec.width, KeyBatch.from_keys(SMALL_KEYS), 1)
+        b = avalanche_matrix(spec.hash_batch, spec.width, KeyBatch.from_keys(SMALL_KEYS), 2)
         assert not np.array_equal(a.flip_counts, b.flip_counts)
         assert a.hash_seed == 1
 
     def test_no_flips_no_tests(self):
         for keys in ([], [b"", b""]):
-            result = avalanche_matrix(get_hash("crc32"), KeyBatch.from_keys(keys))
+            result = avalanche_matrix(*function_of("crc32"), KeyBatch.from_keys(keys))
             assert result.flips == 0
             assert avalanche_tests(result) == []
 
     def test_result_is_read_only(self):
-        result = avalanche_matrix(get_hash("crc32"), KeyBatch.from_keys(SMALL_KEYS))
+        result = avalanche_matrix(*function_of("crc32"), KeyBatch.from_keys(SMALL_KEYS))
         with pytest.raises(ValueError):
             result.flip_counts[0, 0] = 1
 
     def test_flip_probability_is_nan_for_input_bits_no_key_has(self):
-        result = avalanche_matrix(FIRST_EIGHT_BYTES, KeyBatch.from_keys([b"ab", b"c"]), max_bytes=4)
+        result = avalanche_matrix(FIRST_EIGHT_BYTES.hash_batch, 64, KeyBatch.from_keys([b"ab", b"c"]), max_bytes=4)
         probability = result.flip_probability()
         assert result.trials.tolist() == [2] * 8 + [1] * 8 + [0] * 16
         assert np.isnan(probability[16:]).all()
@@ -289,7 +297,9 @@ class TestAvalancheTests:
     def first_eight_bytes_tests(self):
         rng = np.random.default_rng(3)
         keys = [rng.bytes(int(n)) for n in rng.integers(8, 13, 200)]
-        return avalanche_tests(avalanche_matrix(FIRST_EIGHT_BYTES, KeyBatch.from_keys(keys), max_bytes=8))
+        return avalanche_tests(
+            avalanche_matrix(FIRST_EIGHT_BYTES.hash_batch, 64, KeyBatch.from_keys(keys), max_bytes=8)
+        )
 
     def test_statistics_of_the_first_eight_bytes_hash_by_hand(self):
         aval, independence = self.first_eight_bytes_tests()
@@ -309,7 +319,7 @@ class TestAvalancheTests:
     def test_phi_matches_numpy_corrcoef(self):
         spec = get_hash("murmur3_32")
         keys = list(dict.fromkeys(SMALL_KEYS))
-        result = avalanche_matrix(spec, KeyBatch.from_keys(keys))
+        result = avalanche_matrix(spec.hash_batch, spec.width, KeyBatch.from_keys(keys))
         rows = []
         for key in keys:
             base = spec.hash_key(key)
@@ -326,7 +336,7 @@ class TestAvalancheTests:
 
     @pytest.mark.parametrize("name", ["crc32", "poly31", "djb2"])
     def test_weak_hashes_fail_on_realistic_keys(self, name):
-        aval, independence = avalanche_tests(avalanche_matrix(get_hash(name), REALISTIC_SAMPLE))
+        aval, independence = avalanche_tests(avalanche_matrix(*function_of(name), REALISTIC_SAMPLE))
         assert aval.p_upper < 1e-12
         assert aval.effect.value > 0.25 > 4 * aval.effect.ideal  # some cells flip (almost) always or never
         assert independence.p_upper < 1e-12
@@ -334,7 +344,7 @@ class TestAvalancheTests:
 
     @pytest.mark.parametrize("name", ["xxh3_64", "murmur3_32", "siphash24", "blake2b_64"])
     def test_strong_hashes_pass_on_realistic_keys(self, name):
-        result = avalanche_matrix(get_hash(name), REALISTIC_SAMPLE)
+        result = avalanche_matrix(*function_of(name), REALISTIC_SAMPLE)
         assert result.keys == len(REALISTIC) and result.pairs_counted_once > 0
         for test in avalanche_tests(result):
             assert test.p_upper > 1e-3, test
@@ -348,7 +358,9 @@ class TestAvalancheTests:
         population = KeyBatch.from_keys(realistic_keys(6000, seed=99))
         rows = []
         for seed in range(30):
-            aval, independence = avalanche_tests(avalanche_matrix(spec, KeySample(512, seed).update(population)))
+            aval, independence = avalanche_tests(
+                avalanche_matrix(spec.hash_batch, spec.width, KeySample(512, seed).update(population))
+            )
             rows.append(
                 [
                     aval.details["chi_square_p_upper"],
@@ -387,10 +399,46 @@ class TestAvalancheTests:
         np.testing.assert_allclose(_binomial_two_sided(successes, trials), expected, rtol=1e-9)
 
     def test_details_name_the_worst_cell_and_the_seeds(self):
-        aval, independence = avalanche_tests(avalanche_matrix(get_hash("crc32"), REALISTIC_SAMPLE, seed=3))
+        aval, independence = avalanche_tests(avalanche_matrix(*function_of("crc32"), REALISTIC_SAMPLE, seed=3))
         for test in (aval, independence):
             assert test.details["sample_seed"] == 0 and test.details["hash_seed"] == 3
             assert test.details["keys"] == len(REALISTIC)
             assert test.p_lower >= 0.0
         assert 0 <= aval.details["worst_input_bit"] < 128 and 0 <= aval.details["worst_output_bit"] < 32
         assert aval.details["cells"] == aval.details["input_bits_used"] * 32
+
+
+class TestKeyFunctions:
+    """The statistics take the hash and the key fingerprints as functions, not registry entries."""
+
+    def test_a_plain_batch_function_and_a_name(self):
+        def low_word(batch: KeyBatch, seed: int) -> np.ndarray:
+            return batch.words_le64(8)[:, 0] ^ np.uint64(seed)
+
+        keys = KeyBatch.from_uint64(np.arange(100, dtype=np.uint64) * np.uint64(977))
+        result = avalanche_matrix(low_word, 64, keys, seed=5, max_bytes=8, name="low word")
+        assert result.hash_name == "low word" and result.width == 64
+        np.testing.assert_array_equal(result.flip_counts, np.diag(result.trials))
+
+    def test_a_width_the_tables_cannot_take_is_refused(self):
+        with pytest.raises(UsageError, match="width must be 32, 64 or 128"):
+            avalanche_matrix(get_hash("xxh3_64").hash_batch, 48, KeyBatch.from_keys(SMALL_KEYS))
+
+    def test_the_default_member_fingerprint_is_the_hash_layers(self):
+        batch = KeyBatch.from_keys(SMALL_KEYS)
+        default = avalanche_matrix(*function_of("murmur3_32"), batch, 3)
+        explicit = avalanche_matrix(*function_of("murmur3_32"), batch, 3, fingerprint=member_fingerprints)
+        for field in ("trials", "flip_counts", "pair_counts"):
+            np.testing.assert_array_equal(getattr(default, field), getattr(explicit, field))
+
+    def test_a_sample_takes_its_priorities_from_the_function_given(self):
+        def by_length(batch: KeyBatch, seed: int) -> np.ndarray:
+            return batch.lengths().astype(np.uint64)
+
+        keys = [b"ccc", b"a", b"bb", b"dddd", b"a"]
+        sample = KeySample(2, 0, priority=by_length).update(KeyBatch.from_keys(keys))
+        assert sample.keys().to_list() == [b"a", b"bb"]
+        assert sample.copy() == sample and sample.copy().priority is by_length
+        with pytest.raises(MergeError, match="different functions"):
+            KeySample(2, 0).merge(sample)
+        assert KeySample(2, 0) != KeySample(2, 0, priority=by_length)

@@ -512,3 +512,15 @@ def test_twenty_million_64_bit_values(budget, tmp_path, capsys):
             assert extra < data + 2 * (64 << 20)  # the values, plus a slab or two while they are gathered
         else:
             assert extra < budget + 3 * (64 << 20)  # the budget, plus a slab and its partitioned copy
+
+
+def test_one_poisson_test_of_colliding_pairs():
+    """``full_collisions`` and ``seed_independent_collisions`` share one test: Poisson tails and collision_excess."""
+    from hashaudit.stats.tails import colliding_pairs_test, poisson_tails
+
+    test = colliding_pairs_test("some_pairs", 3, 0.25, "pairs counted", "Poisson law", {"k": 1})
+    assert (test.p_upper, test.p_lower) == poisson_tails(3, 0.25)
+    assert (test.statistic, test.expected, test.observed) == (3.0, 0.25, 3.0)
+    assert test.effect.name == "collision_excess" and test.effect.value == 2.75  # (3 - 0.25) / max(0.25, 1)
+    assert (test.name, test.method, test.details) == ("some_pairs", "Poisson law", {"k": 1})
+    assert colliding_pairs_test("x", 300, 200.0, "", "", {}).effect.value == 0.5  # relative above one pair

@@ -83,13 +83,14 @@ def test_growing_in_place_keeps_the_table_sorted_and_exact():
 
 
 def test_fingerprints_are_murmur3_x64_128():
-    """The fingerprint is MurmurHash3 x64_128 (checked against the mmh3 reference binding) under the store's seed."""
+    """The default fingerprint is MurmurHash3 x64_128 (checked against the mmh3 reference binding) under the
+    distinct-key seed of the hash layer."""
     mmh3 = pytest.importorskip("mmh3")
-    from hashaudit.stats.distinct import FINGERPRINT_SEED
+    from hashaudit.hashes.fingerprint import DISTINCT_SEED
 
     store = DistinctKeys()
     store.update(KeyBatch.from_keys([b"crate-0001"]))
-    ref = mmh3.hash128(b"crate-0001", FINGERPRINT_SEED, x64arch=True, signed=False)
+    ref = mmh3.hash128(b"crate-0001", DISTINCT_SEED, x64arch=True, signed=False)
     ((hi, lo),) = store.fingerprints().tolist()
     assert (lo, hi) == (ref & (2**64 - 1), ref >> 64)
 

@@ -14,6 +14,7 @@ import re
 import numpy as np
 import pytest
 
+from hashaudit.checks import Thresholds, judge
 from hashaudit.errors import UsageError
 from hashaudit.hashes.registry import from_callable, get_hash
 from hashaudit.keys.batch import KeyBatch
@@ -28,7 +29,6 @@ from hashaudit.stats.neighbours import (
     neighbour_family,
     neighbour_tests,
 )
-from hashaudit.verdict.findings import Thresholds, judge
 
 THRESHOLDS = Thresholds()
 TABLES = [("mask", 1 << 16), ("mod", 65521), ("mask", 1 << 12)]
@@ -201,7 +201,7 @@ class TestTransformations:
         assert {f.name: len(f) for f in no_letters}["case"] == 0
         nothing = neighbour_families(KeyBatch.from_keys([]))
         assert [len(f) for f in nothing] == [0] * len(FAMILIES)
-        assert neighbour_tests(get_hash("xxh3_64"), nothing, TABLES) == []
+        assert spec_tests(get_hash("xxh3_64"), nothing, TABLES) == []
 
 
 class TestGeneration:
@@ -259,6 +259,13 @@ class TestGeneration:
 # The test of fit
 
 
+def spec_tests(spec, families, tables, seed: int = 0):  # type: ignore[no-untyped-def]
+    """``neighbour_tests`` of a registered hash: its batch function, width, use of the seed and kind of keys."""
+    return neighbour_tests(
+        spec.hash_batch, spec.width, families, tables, seed, spec.seeded, spec.integer_keys, spec.name
+    )
+
+
 def component(test, table: str) -> dict:
     return next(c for c in test.details["components"] if c["table"] == table)
 
@@ -276,7 +283,7 @@ def test_bonferroni_arithmetic():
 
 def test_combination_is_bonferroni_over_the_components():
     families = neighbour_families(REALISTIC, seed=1, target=5000)
-    results = neighbour_tests(get_hash("murmur3_32"), families, TABLES, seed=7)
+    results = spec_tests(get_hash("murmur3_32"), families, TABLES, seed=7)
     assert [name for name, _ in results] == list(FAMILIES)
     for name, test in results:
         parts = test.details["components"]
@@ -300,7 +307,7 @@ def test_identity_on_integer_keys_fails_one_char_at_a_mask():
     rng = np.random.default_rng(31)
     sample = KeyBatch.from_uint64(rng.integers(0, 2**63, 2000, dtype=np.uint64))
     families = neighbour_families(sample, seed=1, names=["one_char"])
-    ((name, test),) = neighbour_tests(get_hash("identity"), families, TABLES)
+    ((name, test),) = spec_tests(get_hash("identity"), families, TABLES)
     assert name == "one_char"
     assert test.p_upper < 1e-100
     assert test.details["worst"] == "mask 2^16"
@@ -315,7 +322,7 @@ def test_byte_sum_fails_counter_everywhere():
     byte_sum = from_callable("byte_sum", lambda key: sum(key), width=32)
     orders = KeyBatch.from_keys(REALISTIC.to_list()[:1000])
     families = neighbour_families(orders, seed=1, names=["counter"], target=20_000)
-    ((_, test),) = neighbour_tests(byte_sum, families, TABLES)
+    ((_, test),) = neighbour_tests(byte_sum.hash_batch, 32, families, TABLES)
     assert test.p_upper == 0.0
     mask = component(test, "mask 2^16")
     assert mask["p_upper"] < 1e-300 and mask["effect"] > 100 * THRESHOLDS.lookup_cost_excess
@@ -330,7 +337,7 @@ def test_poly31_on_order_numbers_shows_excess_collisions_in_counter():
     # mask 2^12 by ~18 %; with a prime modulus the counts are consistent with uniform (p ~ 1). The family fails.
     orders = KeyBatch.from_keys(REALISTIC.to_list()[:1000])
     families = neighbour_families(orders, seed=1, names=["counter"])
-    ((_, test),) = neighbour_tests(get_hash("poly31"), families, TABLES)
+    ((_, test),) = spec_tests(get_hash("poly31"), families, TABLES)
     mask16 = component(test, "mask 2^16")
     assert mask16["p_upper"] < 1e-100 and mask16["effect"] > THRESHOLDS.lookup_cost_excess
     assert component(test, "mod 65521")["p_upper"] > 1e-3
@@ -341,7 +348,7 @@ def test_poly31_on_order_numbers_shows_excess_collisions_in_counter():
 @pytest.mark.parametrize("hash_name", ["xxh3_64", "murmur3_32"])
 def test_strong_hashes_pass_every_family(hash_name):
     families = neighbour_families(REALISTIC, seed=3)
-    results = neighbour_tests(get_hash(hash_name), families, TABLES, seed=5)
+    results = spec_tests(get_hash(hash_name), families, TABLES, seed=5)
     assert len(results) == len(FAMILIES)
     for name, test in results:
         assert test.p_upper > 1e-3, name
@@ -352,7 +359,7 @@ def test_strong_hashes_pass_every_family(hash_name):
 
 def test_128_bit_hash_runs():
     families = neighbour_families(REALISTIC, seed=3, target=2000)
-    results = neighbour_tests(get_hash("murmur3_128"), families, TABLES[:1], seed=5)
+    results = spec_tests(get_hash("murmur3_128"), families, TABLES[:1], seed=5)
     assert all(component(t, "full value")["p_upper"] == 1.0 for _, t in results)  # no pair of 128-bit values
 
 
@@ -364,7 +371,7 @@ def test_null_calibration_of_a_seeded_hash():
     tables = [("mask", 1 << 16), ("mod", 65521)]
     p_upper, p_lower = [], []
     for seed in range(1, 21):
-        for _, test in neighbour_tests(get_hash("murmur3_32"), families, tables, seed=seed):
+        for _, test in spec_tests(get_hash("murmur3_32"), families, tables, seed=seed):
             p_upper.append(test.p_upper)
             p_lower.append(test.p_lower)
     assert len(p_upper) == 20 * len(FAMILIES)
@@ -377,10 +384,25 @@ def test_null_calibration_of_a_seeded_hash():
 def test_integer_key_functions_get_only_length_keeping_families():
     """identity reads 8 bytes whatever the key's length: families that change lengths say nothing about it."""
     from hashaudit.hashes.registry import get_hash
-    from hashaudit.stats.neighbours import LENGTH_KEEPING, neighbour_families, neighbour_tests
+    from hashaudit.stats.neighbours import LENGTH_KEEPING, neighbour_families
 
     sample = KeyBatch.from_keys([b"%08d" % i for i in range(0, 4000, 7)])
     families = neighbour_families(sample, seed=3, target=5000)
-    names = {name for name, _ in neighbour_tests(get_hash("identity"), families, [("mod", 1021)])}
+    names = {name for name, _ in spec_tests(get_hash("identity"), families, [("mod", 1021)])}
     assert names and names <= LENGTH_KEEPING
-    assert {name for name, _ in neighbour_tests(get_hash("xxh3_64"), families, [("mod", 1021)])} - LENGTH_KEEPING
+    assert {name for name, _ in spec_tests(get_hash("xxh3_64"), families, [("mod", 1021)])} - LENGTH_KEEPING
+
+
+def test_families_take_their_repeat_fingerprint_as_a_function():
+    from hashaudit.hashes.fingerprint import dedup_fingerprints
+
+    default = neighbour_families(REALISTIC, seed=2, target=3000)
+    explicit = neighbour_families(REALISTIC, seed=2, target=3000, fingerprint=dedup_fingerprints)
+    assert [f.keys.to_list() for f in default] == [f.keys.to_list() for f in explicit]
+    # any fingerprint finds the same repeats: every match is confirmed bytewise, even when all keys share one
+    constant = neighbour_families(
+        REALISTIC.slice(0, 200), seed=2, target=500, fingerprint=lambda b: np.zeros(len(b), np.uint64)
+    )
+    assert [f.keys.to_list() for f in constant] == [
+        f.keys.to_list() for f in neighbour_families(REALISTIC.slice(0, 200), seed=2, target=500)
+    ]

@@ -30,19 +30,20 @@ import numpy as np
 import pytest
 from scipy import stats
 
+from hashaudit.checks import Thresholds, judge
 from hashaudit.errors import UsageError
 from hashaudit.hashes.fnv import poly31
 from hashaudit.hashes.registry import HashSpec, get_hash
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.stats.seeds import (
     CAUTION,
+    DEFAULT_SEEDS,
     SeedRuns,
     expected_ks_plus,
     randomised_p_values,
     seed_runs,
     seed_tests,
 )
-from hashaudit.verdict.findings import Thresholds, judge
 
 SEEDS = list(range(1, 9))
 N = 1 << 14
@@ -76,6 +77,13 @@ def poly31_xor_seed(batch: KeyBatch, seed: int) -> np.ndarray:
 
 MIXED_POLY31 = HashSpec("mixed_poly31", 64, True, "kernel", mixed_poly31)
 POLY31_XOR_SEED = HashSpec("poly31_xor_seed", 32, True, "kernel", poly31_xor_seed)
+
+
+def spec_runs(
+    spec: HashSpec, keys: KeyBatch, tables: list, seeds: list[int] | tuple[int, ...] = DEFAULT_SEEDS, null_seed: int = 0
+) -> SeedRuns:
+    """``seed_runs`` of a registry entry: its batch function, width, use of the seed and name."""
+    return seed_runs(spec.hash_batch, spec.width, keys, tables, seeds, null_seed, spec.seeded, spec.name)
 
 
 def random_keys(n: int = N, seed: int = 20240611) -> KeyBatch:
@@ -149,7 +157,7 @@ def test_murmur3_collision_keys_collide_under_any_seed():
 def test_collisions_of_the_inner_hash_survive_every_seed():
     """mix(seed, poly31(key)) is a fine 64-bit function of poly31's value, but keys sharing that value collide
     whatever the seed: one group of all 4,096 crafted keys under all 8 seeds."""
-    runs = seed_runs(MIXED_POLY31, crafted_keys(12), [], SEEDS)
+    runs = spec_runs(MIXED_POLY31, crafted_keys(12), [], SEEDS)
     assert runs.candidates == (4096,) * 8
     assert runs.group_sizes.tolist() == [4096]
     assert runs.colliding_pairs == math.comb(4096, 2)
@@ -169,7 +177,7 @@ def test_collisions_of_the_inner_hash_survive_every_seed():
 def test_strong_seeded_functions_have_no_seed_independent_collisions(name):
     spec = get_hash(name)
     for keys in (crafted_keys(12), random_keys()):
-        runs = seed_runs(spec, keys, [], SEEDS)
+        runs = spec_runs(spec, keys, [], SEEDS)
         test = by_name(runs)["seed_independent_collisions"]
         assert runs.colliding_pairs == 0 and runs.candidates[-1] == 0
         assert test.p_upper == 1.0 and test.effect.value <= 0
@@ -181,36 +189,36 @@ def test_differential_keys_make_murmur3_fail_while_siphash_passes():
     """Passing on "Aa"/"BB" keys is no security claim: keys crafted against MurmurHash3 itself collide under
     every seed, and the check says so; SipHash-2-4 and XXH3 do not collide on the same keys."""
     keys = murmur3_collision_keys(8)
-    murmur = seed_runs(get_hash("murmur3_32"), keys, [], SEEDS)
+    murmur = spec_runs(get_hash("murmur3_32"), keys, [], SEEDS)
     assert murmur.group_sizes.tolist() == [256]
     assert verdicts("murmur3_32", murmur)["seed_independent_collisions"] == "fail"
     for name in ("siphash24", "xxh3_64"):
-        assert seed_runs(get_hash(name), keys, [], SEEDS).colliding_pairs == 0
+        assert spec_runs(get_hash(name), keys, [], SEEDS).colliding_pairs == 0
 
 
 def test_expected_pairs_and_poisson_tail():
-    runs = seed_runs(get_hash("murmur3_32"), random_keys(5000), [], [1, 2])
+    runs = spec_runs(get_hash("murmur3_32"), random_keys(5000), [], [1, 2])
     test = by_name(runs)["seed_independent_collisions"]
     exact = Fraction(math.comb(5000, 2), 2 ** (32 * 2))  # C(n, 2) / 2^(b·S)
     assert test.expected == pytest.approx(float(exact), rel=1e-15)
     assert test.details["width"] == 32 and test.details["seeds"] == [1, 2]
     # 128-bit values under 8 seeds: 4950 / 2^1024 is still a float; under 10 seeds it underflows to 0 and the test
     # still runs (no pair: p = 1)
-    wide = seed_runs(get_hash("murmur3_128"), random_keys(100), [], SEEDS)
+    wide = spec_runs(get_hash("murmur3_128"), random_keys(100), [], SEEDS)
     assert wide.expected_pairs == pytest.approx(float(Fraction(4950, 2**1024)), rel=1e-12)
-    wider = seed_runs(get_hash("murmur3_128"), random_keys(100), [], list(range(10)))
+    wider = spec_runs(get_hash("murmur3_128"), random_keys(100), [], list(range(10)))
     assert wider.expected_pairs == 0.0
     assert by_name(wider)["seed_independent_collisions"].p_upper == 1.0
 
 
 def small_values(batch: KeyBatch, seed: int) -> np.ndarray:
     """Three bits of a strong mix of (seed, key): many random collisions under every seed."""
-    return mix64(batch.data.view(np.uint64) ^ seed_word(seed)) & _U64(7)
+    return mix64(batch.words_le64(8)[:, 0] ^ seed_word(seed)) & _U64(7)
 
 
 def small_values_128(batch: KeyBatch, seed: int) -> np.ndarray:
     """Two bits in the low word and one in the high word (tells the two words apart)."""
-    mixed = mix64(batch.data.view(np.uint64) ^ seed_word(seed))
+    mixed = mix64(batch.words_le64(8)[:, 0] ^ seed_word(seed))
     return np.stack([mixed & _U64(3), (mixed >> _U64(40)) & _U64(1)], axis=1)
 
 
@@ -219,7 +227,7 @@ def test_collision_search_matches_brute_force(width, function):
     spec = HashSpec(f"small_{width}", width, True, "kernel", function)
     keys = random_keys(400, seed=5)
     seeds = [3, 1, 4]
-    runs = seed_runs(spec, keys, [], seeds)
+    runs = spec_runs(spec, keys, [], seeds)
     every_seed = zip(
         *(map(tuple, spec.hash_batch(keys, s).reshape(len(keys), -1).tolist()) for s in seeds), strict=True
     )
@@ -227,7 +235,7 @@ def test_collision_search_matches_brute_force(width, function):
     assert runs.group_sizes.tolist() == groups
     assert runs.colliding_pairs == sum(math.comb(g, 2) for g in groups) > 0
     # with the tables requested the values come from the full hashes, not a second pass: same answer
-    with_tables = seed_runs(spec, keys, [("mod", 7)], seeds)
+    with_tables = spec_runs(spec, keys, [("mod", 7)], seeds)
     assert with_tables.group_sizes.tolist() == groups
 
 
@@ -237,9 +245,9 @@ def test_without_tables_only_the_candidates_are_hashed():
     def counted(batch: KeyBatch, seed: int) -> np.ndarray:
         """12 bits of a strong mix: about 20 colliding pairs among 400 keys under one seed."""
         sizes.append(len(batch))
-        return mix64(batch.data.view(np.uint64) ^ seed_word(seed)) & _U64(0xFFF)
+        return mix64(batch.words_le64(8)[:, 0] ^ seed_word(seed)) & _U64(0xFFF)
 
-    runs = seed_runs(HashSpec("counted", 32, True, "kernel", counted), random_keys(400, seed=5), [], [3, 1, 4])
+    runs = seed_runs(counted, 32, random_keys(400, seed=5), [], [3, 1, 4])
     assert 0 < runs.candidates[0] < 100
     # the first seed hashes every key, each later seed only the keys still in a group (none once they are gone)
     assert sizes == [400] + [c for c in runs.candidates[:-1] if c]
@@ -248,7 +256,7 @@ def test_without_tables_only_the_candidates_are_hashed():
 def test_repeated_keys_are_refused():
     keys = KeyBatch.from_keys([b"alpha", b"beta", b"alpha"])
     with pytest.raises(UsageError, match="distinct keys"):
-        seed_runs(get_hash("xxh3_64"), keys, [], SEEDS)
+        spec_runs(get_hash("xxh3_64"), keys, [], SEEDS)
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -257,7 +265,7 @@ def test_repeated_keys_are_refused():
 
 @pytest.mark.parametrize("name", STRONG)
 def test_seed_spread_passes_for_strong_seeded_functions(name):
-    runs = seed_runs(get_hash(name), random_keys(), TABLES, SEEDS)
+    runs = spec_runs(get_hash(name), random_keys(), TABLES, SEEDS)
     test = by_name(runs)["seed_spread"]
     assert test.p_upper > 0.05  # fixed keys and seeds: a deterministic check, not a flaky one
     assert test.effect.name == "lookup_cost_excess"
@@ -275,7 +283,7 @@ def test_seed_spread_fails_when_the_seed_only_xors_a_weak_hash():
     under every seed: the two checks see different faults."""
     keys = KeyBatch.from_keys(str(i).encode() for i in range(N))
     assert len(np.unique(poly31(keys))) == N
-    runs = seed_runs(POLY31_XOR_SEED, keys, TABLES, SEEDS)
+    runs = spec_runs(POLY31_XOR_SEED, keys, TABLES, SEEDS)
     # measured: under mask 2^10 χ² = 5,830 against 1,023 expected (p = 0 in double precision) for every seed; under
     # mask 2^14 p = 5.9e-8 for every seed; modulo the prime 16381 the XOR is no relabelling and χ² changes with the
     # seed (more even than random for most seeds)
@@ -299,7 +307,7 @@ def test_seed_xor_on_integer_counters_fails_both_checks():
     seed too."""
     keys = KeyBatch.from_uint64(np.arange(N, dtype=np.uint64))
     assert len(np.unique(poly31(keys))) == 31 * 255 + 63 + 1
-    runs = seed_runs(POLY31_XOR_SEED, keys, TABLES, SEEDS)
+    runs = spec_runs(POLY31_XOR_SEED, keys, TABLES, SEEDS)
     assert len(runs.group_sizes) < 7969 and runs.keys_in_collisions > N // 2
     assert verdicts("poly31_xor_seed", runs) == {"seed_spread": "fail", "seed_independent_collisions": "fail"}
 
@@ -308,7 +316,7 @@ def test_crc32_seed_only_relabels_masked_buckets_of_equal_length_keys():
     """CRC is affine over GF(2): for keys of one length the starting value (the seed) XORs the same constant into
     every value (common knowledge, from memory), so a mask sees the same counts under every seed; a prime modulus
     does not. The KS verdict then depends on where that one p-value falls, so only the counts are asserted."""
-    runs = seed_runs(get_hash("crc32"), random_keys(), TABLES, SEEDS)
+    runs = spec_runs(get_hash("crc32"), random_keys(), TABLES, SEEDS)
     details = by_name(runs)["seed_spread"].details["tables"]
     assert [t["same_chi_square_every_seed"] for t in details] == [True, True, False]
 
@@ -324,7 +332,7 @@ def birnbaum_tingey_sf(d: float, n: int) -> float:
 
 def test_ks_p_value_is_the_one_sided_exact_law():
     """One table with λ = 16 (a continuous χ² law, so the p-values are used as they are)."""
-    runs = seed_runs(get_hash("xxh64"), random_keys(), [("mask", 1 << 10)], SEEDS)
+    runs = spec_runs(get_hash("xxh64"), random_keys(), [("mask", 1 << 10)], SEEDS)
     test = by_name(runs)["seed_spread"]
     p = np.sort(runs.p_upper[:, 0])
     d_plus = max((i + 1) / 8 - p[i] for i in range(8))
@@ -359,21 +367,21 @@ def test_randomised_p_values_are_uniform_for_a_discrete_law():
 
 
 def test_unseeded_functions_are_not_applicable():
-    runs = seed_runs(get_hash("fnv1a_32"), random_keys(100), TABLES, SEEDS)
+    runs = spec_runs(get_hash("fnv1a_32"), random_keys(100), TABLES, SEEDS)
     assert not runs.seeded and runs.p_upper.shape == (0, 3)
     assert seed_tests(runs) == []
 
 
 def test_no_keys_no_tests():
-    runs = seed_runs(get_hash("xxh3_64"), KeyBatch.from_keys([]), TABLES, SEEDS)
+    runs = spec_runs(get_hash("xxh3_64"), KeyBatch.from_keys([]), TABLES, SEEDS)
     assert runs.keys == 0 and runs.colliding_pairs == 0
     assert seed_tests(runs) == []
 
 
 def test_results_are_deterministic():
     keys = random_keys()
-    first = seed_tests(seed_runs(get_hash("murmur3_32"), keys, TABLES, SEEDS))
-    second = seed_tests(seed_runs(get_hash("murmur3_32"), keys, TABLES, SEEDS))
+    first = seed_tests(spec_runs(get_hash("murmur3_32"), keys, TABLES, SEEDS))
+    second = seed_tests(spec_runs(get_hash("murmur3_32"), keys, TABLES, SEEDS))
     assert first == second
     assert [t.name for t in first] == ["seed_spread", "seed_independent_collisions"]
 
@@ -381,4 +389,4 @@ def test_results_are_deterministic():
 @pytest.mark.parametrize("seeds", [[1], [1, 2, 1], [1, -2], [1, 2.5]])
 def test_bad_seeds_are_refused(seeds):
     with pytest.raises(UsageError, match="seed"):
-        seed_runs(get_hash("xxh3_64"), random_keys(10), [], seeds)
+        spec_runs(get_hash("xxh3_64"), random_keys(10), [], seeds)

@@ -1,4 +1,4 @@
-"""Calibration and power of the checks (``hashaudit.validation``).
+"""Calibration and power of the checks (``hashaudit.calibration``).
 
 The fast tests run small null studies and a few points of each power curve; ``test_full_study`` (slow) runs the
 study of ``bench/validation.py``. Every run derives from a literal seed, so the outcomes asserted here are fixed;
@@ -13,14 +13,53 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from hashaudit import KeyBatch, audit_batches, validation
+import hashaudit.calibration as calibration_package
+from hashaudit import KeyBatch, Thresholds, audit_batches
+from hashaudit.calibration import (
+    COMBINED_CHECKS,
+    DEPARTURES,
+    FACT_CHECKS,
+    NULL_LAW,
+    NULL_LAW_KINDS,
+    biased_bit,
+    calibration,
+    clopper_pearson,
+    judge_calibration,
+    leaky_input_bit,
+    power,
+    probe_cost_null,
+    random_keys,
+    rate_summary,
+    rejudge,
+    siphash24_low32,
+    study,
+    summarise_p_values,
+    weak_low_bits,
+    xor_rotations,
+)
 from hashaudit.hashes.siphash import siphash24
 from hashaudit.hashes.xxh import xxh3_64
-from hashaudit.verdict.findings import Thresholds
 
 FAST_SEED = 7
 FAST_NULL_RUNS = 72
 KNOWN_ANTICONSERVATIVE: tuple[str, ...] = ()  # none since simulated tables have regions of at least 256 slots
+
+
+# ---------------------------------------------------------------------------------------------------------
+# The package and its per-check tables
+
+
+def test_public_names_are_sorted_and_resolve() -> None:
+    assert calibration_package.__all__ == sorted(calibration_package.__all__)
+    for name in calibration_package.__all__:
+        assert getattr(calibration_package, name) is not None, name
+
+
+def test_every_check_has_a_known_null_law_kind() -> None:
+    assert set(NULL_LAW.values()) <= set(NULL_LAW_KINDS)
+    # the combined checks are conservative by design; duplicate_keys is a fact, outside Holm's family
+    assert COMBINED_CHECKS == ("avalanche", "bit_independence", "probe_cost")
+    assert FACT_CHECKS == ("duplicate_keys",)
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -29,10 +68,10 @@ KNOWN_ANTICONSERVATIVE: tuple[str, ...] = ()  # none since simulated tables have
 
 def test_clopper_pearson_closed_forms() -> None:
     # with no event the one-sided upper bound solves (1 - u)^n = 1 - confidence; with n events of n, u^n = 0.05
-    lower, upper = validation.clopper_pearson(0, 300)
+    lower, upper = clopper_pearson(0, 300)
     assert lower == 0.0
     assert upper == pytest.approx(1 - 0.05 ** (1 / 300), rel=1e-9)
-    lower, upper = validation.clopper_pearson(50, 50)
+    lower, upper = clopper_pearson(50, 50)
     assert lower == pytest.approx(0.05 ** (1 / 50), rel=1e-9)
     assert upper == 1.0
 
@@ -40,7 +79,7 @@ def test_clopper_pearson_closed_forms() -> None:
 def test_clopper_pearson_matches_the_two_sided_interval() -> None:
     # the one-sided 95 % bounds are the ends of the two-sided 90 % exact interval (scipy's binomtest)
     reference = stats.binomtest(7, 400).proportion_ci(confidence_level=0.90, method="exact")
-    lower, upper = validation.clopper_pearson(7, 400)
+    lower, upper = clopper_pearson(7, 400)
     assert lower == pytest.approx(reference.low, rel=1e-9)
     assert upper == pytest.approx(reference.high, rel=1e-9)
 
@@ -50,8 +89,8 @@ def test_rate_summary_excess_test() -> None:
     def tail(k: int) -> float:
         return 1 - sum(math.comb(100, j) * 0.01**j * 0.99 ** (100 - j) for j in range(k))
 
-    three = validation.rate_summary(3, 100, 0.01)
-    five = validation.rate_summary(5, 100, 0.01)
+    three = rate_summary(3, 100, 0.01)
+    five = rate_summary(5, 100, 0.01)
     assert three["p_excess"] == pytest.approx(tail(3), rel=1e-9)  # 0.0794: three in 100 is not evidence
     assert three["consistent"]
     assert five["p_excess"] == pytest.approx(tail(5), rel=1e-9)  # 0.0034: five in 100 is
@@ -60,10 +99,10 @@ def test_rate_summary_excess_test() -> None:
 
 def _rows(samples: dict[str, tuple[np.ndarray, bool]]) -> dict[str, dict]:
     rows = [
-        {"check": name, "runs": len(p), "summary": validation.summarise_p_values(p, continuous=continuous)}
+        {"check": name, "runs": len(p), "summary": summarise_p_values(p, continuous=continuous)}
         for name, (p, continuous) in samples.items()
     ]
-    return {row["check"]: row for row in validation.judge_calibration(rows)}
+    return {row["check"]: row for row in judge_calibration(rows)}
 
 
 def test_summary_tells_uniform_conservative_and_anticonservative_apart() -> None:
@@ -92,22 +131,22 @@ def test_summary_tells_uniform_conservative_and_anticonservative_apart() -> None
 
 def test_random_keys_are_distinct() -> None:
     rng = np.random.default_rng(3)
-    batch = validation.random_keys(rng, 5_000, "bytes", 12)
+    batch = random_keys(rng, 5_000, "bytes", 12)
     keys = batch.to_list()
     assert len(keys) == 5_000 and len(set(keys)) == 5_000 and {len(k) for k in keys} == {12}
-    integers = validation.random_keys(rng, 5_000, "uint64")
+    integers = random_keys(rng, 5_000, "uint64")
     assert len(set(integers.to_list())) == 5_000
 
 
 def test_departure_functions_do_what_they_say() -> None:
     rng = np.random.default_rng(5)
-    batch = validation.random_keys(rng, 20_000, "bytes", 16)
+    batch = random_keys(rng, 20_000, "bytes", 16)
     base = xxh3_64(batch, 9)
-    assert np.array_equal(validation.weak_low_bits(0.0).hash_batch(batch, 9), base)
-    assert np.all(validation.weak_low_bits(1.0).hash_batch(batch, 9) & np.uint64(15) == 0)
-    ones = (validation.biased_bit(0.75).hash_batch(batch, 9) >> np.uint64(7)) & np.uint64(1)
+    assert np.array_equal(weak_low_bits(0.0).hash_batch(batch, 9), base)
+    assert np.all(weak_low_bits(1.0).hash_batch(batch, 9) & np.uint64(15) == 0)
+    ones = (biased_bit(0.75).hash_batch(batch, 9) >> np.uint64(7)) & np.uint64(1)
     assert abs(ones.mean() - 0.75) < 4.5 * math.sqrt(0.75 * 0.25 / len(batch))
-    low32 = validation.siphash24_low32().hash_batch(batch, 9)
+    low32 = siphash24_low32().hash_batch(batch, 9)
     assert np.array_equal(low32, siphash24(batch, 9) & np.uint64(0xFFFF_FFFF))
 
 
@@ -119,31 +158,31 @@ def _flip_first_bit(batch: KeyBatch) -> KeyBatch:
 
 def test_leaky_input_bit_flips_one_cell() -> None:
     rng = np.random.default_rng(6)
-    batch = validation.random_keys(rng, 20_000, "bytes", 16)
+    batch = random_keys(rng, 20_000, "bytes", 16)
     flipped = _flip_first_bit(batch)
-    always = validation.leaky_input_bit(1.0)
+    always = leaky_input_bit(1.0)
     diff = always.hash_batch(batch, 4) ^ always.hash_batch(flipped, 4)
     assert np.all(diff & np.uint64(1) == 1)  # output bit 0 follows input bit 0 in every key
     assert abs(((diff >> np.uint64(1)) & np.uint64(1)).mean() - 0.5) < 0.02  # other bits flip half the time
-    never = validation.leaky_input_bit(0.0)
+    never = leaky_input_bit(0.0)
     assert abs(((never.hash_batch(batch, 4) ^ never.hash_batch(flipped, 4)) & np.uint64(1)).mean() - 0.5) < 0.02
 
 
 def test_xor_rotations_is_linear() -> None:
     rng = np.random.default_rng(8)
-    a, b = (validation.random_keys(rng, 1_000, "bytes", 16) for _ in range(2))
+    a, b = (random_keys(rng, 1_000, "bytes", 16) for _ in range(2))
     both = KeyBatch(a.data ^ b.data, a.offsets)
-    spec = validation.xor_rotations()
+    spec = xor_rotations()
     assert np.array_equal(spec.hash_batch(both, 0), spec.hash_batch(a, 0) ^ spec.hash_batch(b, 0))
 
 
 def test_rejudge_reproduces_the_audit() -> None:
     rng = np.random.default_rng(12)
     for strength in (0.0, 0.05):
-        batch, plan, registry = validation.DEPARTURES["forced_buckets"].build(strength, rng)
+        batch, plan, registry = DEPARTURES["forced_buckets"].build(strength, rng)
         findings = audit_batches([batch], plan, registry=registry).findings
-        again = validation.rejudge(findings, Thresholds())
-        kept = [f for f in findings if f.check != "duplicate_keys"]
+        again = rejudge(findings, Thresholds())
+        kept = [f for f in findings if f.check not in FACT_CHECKS]
         assert [(f.check, f.verdict, f.p_adjusted) for f in again] == [(f.check, f.verdict, f.p_adjusted) for f in kept]
     assert any(f.verdict == "fail" for f in again)
 
@@ -154,7 +193,7 @@ def test_rejudge_reproduces_the_audit() -> None:
 
 @pytest.fixture(scope="module")
 def fast_null() -> dict:
-    return validation.calibration(FAST_NULL_RUNS, FAST_SEED, max_keys=10_000, avalanche_keys=128)
+    return calibration(FAST_NULL_RUNS, FAST_SEED, max_keys=10_000, avalanche_keys=128)
 
 
 def test_null_audits_do_not_fail(fast_null: dict) -> None:
@@ -190,7 +229,7 @@ def test_probe_cost_small_linear_tables() -> None:
     64 regions of 32 slots in 2^11-slot tables, 11 % of null runs had p <= 0.01: regions shorter than a
     linear-probing cluster near full load are not independent.)"""
     for kind in ("linear", "robin-hood"):
-        (row,) = validation.probe_cost_null([1 << 12], [kind], 100, FAST_SEED)
+        (row,) = probe_cost_null([1 << 12], [kind], 100, FAST_SEED)
         assert row["summary"]["levels"]["0.01"]["consistent"], kind
         assert row["summary"]["levels"]["0.05"]["consistent"], kind
 
@@ -200,7 +239,7 @@ def test_probe_cost_small_linear_tables() -> None:
 
 
 def _power(name: str, strengths: tuple, runs: int, seed: int = FAST_SEED) -> dict:
-    result = validation.power(runs, seed, departures=[name], strengths={name: strengths})
+    result = power(runs, seed, departures=[name], strengths={name: strengths})
     return {(row["strength"], row["check"]): row for row in result["rows"]}
 
 
@@ -208,7 +247,7 @@ def test_forced_buckets_are_found() -> None:
     rows = _power("forced_buckets", (0.0, 0.05), 10)
     for check in ("chi_square mask", "colliding_pairs mask", "max_load mask"):
         assert rows[0.05, check]["fail"] >= 9, check  # 5 % of 40,000 keys in 4 of 4,096 buckets
-    assert all(rows[0.0, check]["warn_or_fail"] <= 1 for check in validation.DEPARTURES["forced_buckets"].checks)
+    assert all(rows[0.0, check]["warn_or_fail"] <= 1 for check in DEPARTURES["forced_buckets"].checks)
 
 
 def test_weak_low_bits_show_under_mask_only() -> None:
@@ -242,19 +281,19 @@ def test_leaky_input_bit_is_found() -> None:
 
 @pytest.mark.slow
 def test_full_study() -> None:
-    result = validation.study(workers=2)
+    result = study(workers=2)
     null = result["calibration"]
     for outcome in ("fail", "upper"):
         assert null["audits"]["without probe_cost"][outcome]["consistent"], outcome
     for row in null["checks"]:
         if row["check"] not in KNOWN_ANTICONSERVATIVE:
             assert row["status"] != "too many small p-values", row["check"]
-    power = {(r["departure"], r["strength"], r["check"]): r for r in result["power"]["rows"]}
-    assert power["forced_buckets", 0.01, "chi_square mask"]["fail_rate"] >= 0.9
-    assert power["forced_buckets", 0.002, "max_load mask"]["fail_rate"] >= 0.9
-    assert power["weak_low_bits", 0.1, "chi_square mask"]["fail_rate"] >= 0.9
-    assert power["biased_bit", 0.515, "bit_bias"]["fail_rate"] >= 0.9
-    assert power["leaky_input_bit", 0.4, "avalanche"]["fail_rate"] >= 0.9
-    for (departure, strength, check), row in power.items():
+    detection = {(r["departure"], r["strength"], r["check"]): r for r in result["power"]["rows"]}
+    assert detection["forced_buckets", 0.01, "chi_square mask"]["fail_rate"] >= 0.9
+    assert detection["forced_buckets", 0.002, "max_load mask"]["fail_rate"] >= 0.9
+    assert detection["weak_low_bits", 0.1, "chi_square mask"]["fail_rate"] >= 0.9
+    assert detection["biased_bit", 0.515, "bit_bias"]["fail_rate"] >= 0.9
+    assert detection["leaky_input_bit", 0.4, "avalanche"]["fail_rate"] >= 0.9
+    for (departure, strength, check), row in detection.items():
         if strength in (0.0, 0.5) and departure != "linear":
             assert row["detection_rate"] <= 0.1, (departure, check)

@@ -1,0 +1,91 @@
+"""``avalanche``: the strict avalanche criterion (one flipped input bit flips each output bit half the time) and
+the independence of output-bit flips, on a sample of the keys."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from typing import Any
+
+from hashaudit.checks._base import Check, CheckGroup, Conclusion, Tested
+from hashaudit.settings import Setting
+
+
+def _avalanche(test: Any) -> str:
+    d, e = test.details, test.effect
+    cell = f"input bit {d.get('worst_input_bit')} → output bit {d.get('worst_output_bit')}"
+    return (
+        f"flipping one input bit does not flip each output bit half the time: {cell} flips with probability "
+        f"{d.get('worst_flip_probability', float('nan')):.2f} (largest deviation {e.observed:.3f} against "
+        f"{e.ideal:.3f} by chance)"
+    )
+
+
+def _independence(test: Any) -> str:
+    e = test.effect
+    return (
+        f"output bits flip together: bits {test.details.get('worst_output_bits')} have phi = {e.observed:.3f} "
+        f"against {e.ideal:.3f} by chance"
+    )
+
+
+def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
+    from hashaudit.stats.avalanche import avalanche_matrix, avalanche_tests
+
+    if ctx.sample is None or not len(ctx.sample):
+        return
+    spec, plan = state.spec, ctx.plan
+    hash_seed = plan.seed if spec.seeded else 0
+    matrix = avalanche_matrix(
+        spec.hash_batch, spec.width, ctx.sample, seed=hash_seed, max_bytes=plan.avalanche_bytes, name=spec.name
+    )
+    for test in avalanche_tests(matrix):
+        yield None, None, matrix.keys, test
+    ctx.plot(spec.name, "avalanche", matrix.flip_probability())
+
+
+GROUP = CheckGroup(
+    "avalanche",
+    "strict avalanche criterion and output-bit independence on a key sample",
+    (
+        Check("avalanche", _avalanche, null_law="combined", help="flip probability of every input × output bit"),
+        Check("bit_independence", _independence, null_law="combined", help="pairs of output bits flipping together"),
+    ),
+    settings=(
+        Setting(
+            "avalanche_keys",
+            "checks",
+            "Keys sampled for the avalanche, neighbour and seed checks.",
+            default=4096,
+            kind="int",
+            minimum=1,
+        ),
+        Setting(
+            "avalanche_bytes",
+            "checks",
+            "Leading bytes of each sampled key whose bits are flipped.",
+            default=16,
+            kind="int",
+            minimum=1,
+            maximum=4096,
+        ),
+        Setting(
+            "avalanche_bias_max",
+            "thresholds",
+            "Fail above this deviation from 1/2 of the probability that one flipped input bit flips an output bit.",
+            default=0.15,
+            kind="float",
+            minimum=0,
+        ),
+        Setting(
+            "bit_independence_max",
+            "thresholds",
+            "Fail above this correlation (phi) between the flips of two output bits.",
+            default=0.05,
+            kind="float",
+            minimum=0,
+        ),
+    ),
+    conclude=_conclude,
+    needs_sample=True,
+    figure="avalanche",
+)

@@ -1,0 +1,131 @@
+"""The conclusion step, shared by every engine: merged accumulators in, an ``AuditResult`` out.
+
+Each running check group concludes for each hash function (its tests of fit), in registry order; every test of
+the audit is one Holm family (``hashaudit.checks.judge``); then come the groups' facts (repeated keys, hot keys)
+and the table summaries. Nothing here names a check.
+"""
+
+from __future__ import annotations
+
+import platform
+import sys
+import time
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+
+from hashaudit.checks import Conclusion, judge
+from hashaudit.engine.state import HashState
+from hashaudit.verdict.findings import worst_verdict
+from hashaudit.verdict.result import AuditResult, HashAudit, TableSummary
+
+HOTTEST_SHOWN = 5
+CURVE_MIN_SAMPLE = 64  # keys of the sample below which the no-collision curve says nothing
+
+
+def conclude(
+    states: list[HashState],
+    plan: Any,
+    *,
+    keys: int,
+    occurrences: int,
+    tables: list[tuple[str, int]],
+    sources: Sequence[dict] = (),
+    started: float | None = None,
+    hash_seconds: dict[str, float] | None = None,
+    sample: Any = None,
+    heavy: Any = None,
+    passes: int = 1,
+) -> AuditResult:
+    """Turn merged accumulators into the audit's result.
+
+    Parameters
+    ----------
+    states : list of HashState
+        One per hash function, in the plan's order, with every partial count merged.
+    plan : AuditPlan
+    keys, occurrences : int
+        Keys the checks counted and occurrences read.
+    tables : list of (str, int)
+        The (scheme, buckets) tables counted.
+    sources : sequence of dict
+        Source descriptions for the report.
+    started : float, optional
+        ``time.perf_counter()`` at the start, for the run's seconds.
+    hash_seconds : dict, optional
+        Seconds spent hashing, per function.
+    sample : KeySample, optional
+    heavy : HeavyKeys, optional
+    passes : int
+        Reads of the input.
+    """
+    ctx = Conclusion(plan, states, tables, keys, occurrences, sample, heavy)
+    family: list[tuple[str, str | None, int | None, int, Any]] = []
+    for state in states:
+        for group in plan.groups():
+            if group.conclude is not None:
+                family += [(state.spec.name, *tested) for tested in group.conclude(ctx, state)]
+        if sample is not None and len(sample) >= CURVE_MIN_SAMPLE:
+            from hashaudit.stats.curves import no_collision_curve
+
+            spec = state.spec
+            curve = no_collision_curve(
+                spec.hash_batch, spec.width, sample.keys(), tables, plan.seed, plan.seed if spec.seeded else 0
+            )
+            ctx.plot(spec.name, "no_collision", curve)
+    findings = judge(family, plan.thresholds)
+    for group in plan.groups():
+        if group.facts is not None:
+            findings += group.facts(ctx)
+    hash_audits = []
+    for state in states:
+        own = tuple(f for f in findings if f.hash_name == state.spec.name)
+        summaries = tuple(_summary(table, state.get("bucket_loads")) for table in state.get("tables"))
+        spec = state.spec
+        verdict = worst_verdict([f.verdict for f in own])
+        hash_audits.append(HashAudit(spec.name, spec.width, spec.seeded, plan.seed, spec.path, verdict, own, summaries))
+    overall = "fail" if any(h.verdict == "fail" for h in hash_audits) else "pass"
+    seconds = time.perf_counter() - (started if started is not None else time.perf_counter())
+    run = {
+        "hashaudit_version": _version(),
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "seconds": round(seconds, 3),
+        "keys_per_second": round(keys / seconds) if seconds > 0 else None,
+        "hash_seconds": {k: round(v, 3) for k, v in (hash_seconds or {}).items()},
+        # reads of the input: more when the distinct keys outgrew distinct_memory or to settle the heavy keys
+        "passes": passes,
+        "platform": sys.platform,
+    }
+    settings = plan.settings_block()
+    return AuditResult(
+        overall, keys, tuple(hash_audits), tuple(sources), settings, run, occurrences, ctx.plots, tuple(tables)
+    )
+
+
+def _summary(table: Any, loads: list[Any]) -> TableSummary:
+    from hashaudit.stats.fit import occupancy_table
+
+    result = table.result()
+    counts = result.counts
+    occupied = np.flatnonzero(counts)  # the hottest buckets are among the occupied ones (at most n of them)
+    top = min(HOTTEST_SHOWN, len(occupied))
+    hottest = occupied[np.argpartition(counts[occupied], -top)[-top:]] if top else occupied
+    hottest = hottest[np.lexsort((hottest, -counts[hottest]))]
+    load = next((b for b in loads if (b.scheme, b.buckets) == (result.scheme, result.buckets)), None)
+    return TableSummary(
+        result.scheme,
+        result.buckets,
+        result.keys,
+        result.load_factor,
+        occupancy_table(result),
+        [(int(b), int(counts[b])) for b in hottest],
+        load.hottest(HOTTEST_SHOWN) if load is not None else [],
+    )
+
+
+def _version() -> str:
+    from hashaudit import __version__
+
+    return __version__

@@ -1,0 +1,208 @@
+"""A JSON report compared with an earlier one, its baseline, check by check.
+
+A baseline is an earlier JSON report. Checks are matched by hash, check name and table (scheme and size, table
+kind, shard scheme and count); a check regresses when its verdict got worse (pass → warn → fail) or its effect grew
+by more than the tolerance, even when it still passes on its own. Checks that only state facts about the keys
+(``FACTS_ONLY_CHECKS``) regress on their verdict alone: their effect measures the keys, not the hash.
+
+The rows of :func:`compare` go into every report of ``hashaudit gate`` (the JSON report's ``baseline`` block, a
+Markdown table, a JUnit test suite) and, through :func:`comparison_text`, onto the terminal.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+
+from hashaudit.errors import UsageError
+from hashaudit.verdict.findings import table_label
+
+VERDICT_RANK = {"pass": 0, "info": 0, "warn": 1, "fail": 2}
+DEFAULT_TOLERANCE = 0.05
+# replaced by the check registry's facts_only flag
+FACTS_ONLY_CHECKS = frozenset({"duplicate_keys", "hot_keys", "load_attribution"})
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """A report compared with its baseline: the baseline file and the rows :func:`compare` returned."""
+
+    file: str
+    rows: list[dict]
+
+    @property
+    def regressed(self) -> bool:
+        """Whether any compared check regressed."""
+        return any(row["regressed"] for row in self.rows)
+
+    def to_dict(self) -> dict:
+        """The ``baseline`` block of the JSON report: the file, whether anything regressed, and the rows."""
+        return {"file": self.file, "regressed": self.regressed, "checks": self.rows}
+
+
+def _identity(check: dict, hash_name: str) -> tuple:
+    """What matches a check of one report with the same check of the other."""
+    return (
+        hash_name,
+        check["name"],
+        check.get("scheme"),
+        check.get("buckets"),
+        check.get("table_kind"),
+        check.get("shard_scheme"),
+        check.get("shards"),
+    )
+
+
+def _label(check: dict) -> str:
+    """The table a check of a JSON report ran on, e.g. ``linear mask 2^16`` or ``mod 8 shards``."""
+    parts = []
+    if check.get("table_kind"):
+        parts.append(check["table_kind"])
+    if check.get("shard_scheme"):
+        parts.append(f"{check['shard_scheme']} {check['shards']} shards")
+    elif check.get("scheme"):
+        parts.append(table_label(check["scheme"], check["buckets"]))
+    return " ".join(parts) or "full value"
+
+
+def compare(new: dict, old: dict, tolerance: float) -> list[dict]:
+    """Compare two JSON reports check by check.
+
+    Parameters
+    ----------
+    new : dict
+        Today's report, as :func:`hashaudit.report.json_report.report_dict` returns it.
+    old : dict
+        The baseline report, as :func:`read_baseline` returns it.
+    tolerance : float
+        How much a check's effect may grow before the check counts as regressed.
+
+    Returns
+    -------
+    list of dict
+        One row per check of either report, with ``hash``, ``check``, ``table``, ``old_verdict``,
+        ``new_verdict``, ``old_effect``, ``new_effect``, ``regressed`` and ``reason``; regressions first, then by
+        hash, check and table. A check only one report has is a row with None on the other side.
+
+    Raises
+    ------
+    UsageError
+        When the two reports have different schemas.
+    """
+    if old.get("schema") != new.get("schema"):
+        raise UsageError(f"the baseline's schema is {old.get('schema')!r}, not {new.get('schema')!r}")
+    before = {_identity(c, h["name"]): c for h in old.get("hashes", []) for c in h.get("checks", [])}
+    rows = []
+    for h in new.get("hashes", []):
+        for check in h.get("checks", []):
+            key = _identity(check, h["name"])
+            previous = before.pop(key, None)
+            new_effect = (check.get("effect") or {}).get("value")
+            row = {
+                "hash": h["name"],
+                "check": check["name"],
+                "table": _label(check),
+                "old_verdict": None,
+                "new_verdict": check["verdict"],
+                "old_effect": None,
+                "new_effect": new_effect,
+                "regressed": False,
+                "reason": "new check",
+            }
+            if previous is not None:
+                old_effect = (previous.get("effect") or {}).get("value")
+                row.update(old_verdict=previous["verdict"], old_effect=old_effect, reason="unchanged")
+                worse = VERDICT_RANK[check["verdict"]] > VERDICT_RANK[previous["verdict"]]
+                grew = (
+                    isinstance(new_effect, int | float)
+                    and isinstance(old_effect, int | float)
+                    and math.isfinite(new_effect)
+                    and math.isfinite(old_effect)
+                    and new_effect - old_effect > tolerance
+                    and check["name"] not in FACTS_ONLY_CHECKS  # their effect measures the keys, not the hash
+                )
+                if worse:
+                    row.update(regressed=True, reason=f"verdict {previous['verdict']} → {check['verdict']}")
+                elif grew:
+                    row.update(
+                        regressed=True,
+                        reason=f"effect {old_effect:.4g} → {new_effect:.4g} (more than {tolerance:g} worse)",
+                    )
+            rows.append(row)
+    for key, check in before.items():
+        rows.append(
+            {
+                "hash": key[0],
+                "check": check["name"],
+                "table": _label(check),
+                "old_verdict": check["verdict"],
+                "new_verdict": None,
+                "old_effect": (check.get("effect") or {}).get("value"),
+                "new_effect": None,
+                "regressed": False,
+                "reason": "no longer checked",
+            }
+        )
+    rows.sort(key=lambda r: (not r["regressed"], r["hash"], r["check"], r["table"]))
+    return rows
+
+
+def read_baseline(path: str) -> dict:
+    """Read an earlier JSON report.
+
+    Parameters
+    ----------
+    path : str
+        The report's file.
+
+    Returns
+    -------
+    dict
+        The report as JSON data.
+
+    Raises
+    ------
+    UsageError
+        One line, when the file is missing or is not JSON.
+    """
+    try:
+        with open(path, encoding="utf-8") as f:
+            return json.load(f)
+    except FileNotFoundError:
+        raise UsageError(f"baseline {path!r}: no such file") from None
+    except (OSError, ValueError) as exc:
+        raise UsageError(f"baseline {path!r}: not a JSON report ({exc})") from None
+
+
+def comparison_text(rows: list[dict]) -> str:
+    """The comparison for the terminal.
+
+    Parameters
+    ----------
+    rows : list of dict
+        What :func:`compare` returned.
+
+    Returns
+    -------
+    str
+        A count of regressed and unchanged checks, then one line per check that regressed, is new or is no longer
+        checked, old and new side by side; no trailing newline.
+    """
+
+    def effect(x: float | None) -> str:
+        return "—" if x is None else f"{x:.4g}"
+
+    shown = [r for r in rows if r["regressed"] or r["reason"] not in ("unchanged",)]
+    lines = [
+        f"against the baseline: {sum(r['regressed'] for r in rows)} regressed, "
+        f"{sum(r['reason'] == 'unchanged' for r in rows)} unchanged checks"
+    ]
+    for r in shown:
+        tag = "REGRESSED" if r["regressed"] else "note     "
+        lines.append(
+            f"  {tag} {r['hash']:<12} {r['check']:<22} {r['table']:<22} "
+            f"{r['old_verdict'] or '—':>5} → {r['new_verdict'] or '—':<5}  effect {effect(r['old_effect'])} → "
+            f"{effect(r['new_effect'])}  ({r['reason']})"
+        )
+    return "\n".join(lines)

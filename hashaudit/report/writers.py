@@ -1,0 +1,187 @@
+"""The report formats, declared once each: name, file suffix, help text and the function that writes the report.
+
+Every file is written atomically (a temporary file renamed into place), so a failed write loses nothing. The path
+``-`` sends the JSON and Markdown reports to standard output; the JUnit XML and HTML writers take ``-`` as an
+ordinary file name, as they always have. A baseline comparison (``hashaudit gate --baseline``) goes into the JSON
+report as its ``baseline`` block, into the Markdown report as a table and into the JUnit report as a test suite;
+the HTML report does not show it.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from dataclasses import dataclass
+from typing import IO, TYPE_CHECKING, Protocol
+
+import click
+
+if TYPE_CHECKING:  # the renderers load when a report is written: the command line's --help loads none
+    from hashaudit.report.baseline import Comparison
+    from hashaudit.verdict.result import AuditResult
+
+__all__ = ["WRITERS", "ReportWriter", "write_reports"]
+
+STDOUT = "-"
+
+
+class WriteReport(Protocol):
+    """The signature every report writer has."""
+
+    def __call__(
+        self,
+        result: AuditResult,
+        path: str | os.PathLike,
+        *,
+        show_keys: bool = False,
+        comparison: Comparison | None = None,
+        stdout: IO[str] | None = None,
+    ) -> None:
+        """Write the report of ``result`` to ``path``."""
+
+
+@dataclass(frozen=True)
+class ReportWriter:
+    """One report format.
+
+    Attributes
+    ----------
+    name : str
+        The format's name: the key of ``WRITERS``, of ``write_reports``' outputs and of a gate file's
+        ``[reports]`` table.
+    suffix : str
+        The usual suffix of the file, with its dot.
+    help : str
+        One sentence for the command-line option that asks for the report.
+    write : WriteReport
+        ``write(result, path, *, show_keys=False, comparison=None, stdout=None)`` writes the report.
+    """
+
+    name: str
+    suffix: str
+    help: str
+    write: WriteReport
+
+
+def _emit(path: str | os.PathLike, text: str, stdout: IO[str] | None) -> None:
+    """Write a text report to ``path``, or to ``stdout`` (standard output by default) when the path is ``-``."""
+    from hashaudit.report.json_report import write_text_atomically
+
+    if str(path) == STDOUT:
+        click.echo(text, file=stdout, nl=False)
+    else:
+        write_text_atomically(path, text)
+
+
+def _rows(comparison: Comparison | None) -> list[dict] | None:
+    """The comparison rows the Markdown and JUnit renderers take."""
+    return None if comparison is None else comparison.rows
+
+
+def _write_json(
+    result: AuditResult,
+    path: str | os.PathLike,
+    *,
+    show_keys: bool = False,
+    comparison: Comparison | None = None,
+    stdout: IO[str] | None = None,
+) -> None:
+    """The JSON report, with the comparison as its ``baseline`` block when there is one."""
+    from hashaudit.report.json_report import report_dict, to_json
+
+    if comparison is None:
+        text = to_json(result)
+    else:
+        document = report_dict(result)
+        document["baseline"] = comparison.to_dict()
+        # not allow_nan=False: a baseline file read back may hold NaN effects (json.load accepts them)
+        text = json.dumps(document, indent=2, ensure_ascii=False) + "\n"
+    _emit(path, text, stdout)
+
+
+def _write_markdown(
+    result: AuditResult,
+    path: str | os.PathLike,
+    *,
+    show_keys: bool = False,
+    comparison: Comparison | None = None,
+    stdout: IO[str] | None = None,
+) -> None:
+    """The Markdown summary; it never shows keys, so ``show_keys`` is ignored."""
+    from hashaudit.report.markdown import render_markdown
+
+    _emit(path, render_markdown(result, comparison=_rows(comparison)), stdout)
+
+
+def _write_junit(
+    result: AuditResult,
+    path: str | os.PathLike,
+    *,
+    show_keys: bool = False,
+    comparison: Comparison | None = None,
+    stdout: IO[str] | None = None,
+) -> None:
+    """The JUnit XML report; it never shows keys, and ``-`` is a file name here."""
+    from hashaudit.report.json_report import write_text_atomically
+    from hashaudit.report.junit import render_junit
+
+    write_text_atomically(path, render_junit(result, comparison=_rows(comparison)))
+
+
+def _write_html(
+    result: AuditResult,
+    path: str | os.PathLike,
+    *,
+    show_keys: bool = False,
+    comparison: Comparison | None = None,
+    stdout: IO[str] | None = None,
+) -> None:
+    """The HTML page; it does not show the comparison, and ``-`` is a file name here."""
+    from hashaudit.report.html import write_html
+
+    write_html(result, path, show_keys=show_keys)
+
+
+WRITERS: dict[str, ReportWriter] = {
+    writer.name: writer
+    for writer in (
+        ReportWriter("json", ".json", "Write the JSON report to FILE ('-': stdout).", _write_json),
+        ReportWriter("markdown", ".md", "Write a Markdown summary to FILE ('-': stdout).", _write_markdown),
+        ReportWriter("junit", ".xml", "Write JUnit XML to FILE, one test case per check.", _write_junit),
+        ReportWriter("html", ".html", "Write the HTML report (one self-contained file) to FILE.", _write_html),
+    )
+}
+
+
+def write_reports(
+    result: AuditResult,
+    outputs: dict[str, str | None],
+    *,
+    show_keys: bool = False,
+    comparison: Comparison | None = None,
+) -> None:
+    """Write every report asked for, in the order of ``WRITERS``.
+
+    Parameters
+    ----------
+    result : AuditResult
+        The audit to report.
+    outputs : dict of str to str or None
+        A path per format name (a key of ``WRITERS``); a format whose path is None or empty is not written.
+    show_keys : bool
+        Show the keys the audit collected, in the reports that can (the HTML page).
+    comparison : Comparison, optional
+        A comparison with a baseline report, for the reports that show it (JSON, Markdown, JUnit).
+
+    Raises
+    ------
+    ValueError
+        When ``outputs`` names a format that is not in ``WRITERS``.
+    """
+    unknown = sorted(set(outputs) - set(WRITERS))
+    if unknown:
+        raise ValueError(f"no report format {', '.join(map(repr, unknown))} (known: {', '.join(WRITERS)})")
+    for name, writer in WRITERS.items():
+        path = outputs.get(name)
+        if path:
+            writer.write(result, path, show_keys=show_keys, comparison=comparison)
