@@ -69,6 +69,8 @@ class SectionedCommand(click.Command):
 
 
 def _type(setting: Setting) -> Any:
+    if setting.comma_list:
+        return click.STRING  # one comma-separated list, converted item by item by the setting
     if setting.kind == "int":
         return click.INT
     if setting.kind == "float":

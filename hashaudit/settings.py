@@ -212,6 +212,8 @@ class Setting:
                     return parse_size(raw)
             elif kind == "text":
                 assert self.parse is not None
+                if not isinstance(raw, int | float | str | list | dict):
+                    return raw  # already converted (a growth policy, a tag layout)
                 if isinstance(raw, int | float | str):
                     return self.parse(str(raw))
             elif isinstance(raw, str):  # str, choice

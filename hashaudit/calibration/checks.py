@@ -1,7 +1,7 @@
 """Every per-check table of the calibration study, in one place.
 
 The rest of ``hashaudit.calibration`` names no check: it looks check names up here. :data:`NULL_LAW` says, per
-check, what kind of null law its p-value has:
+check, what kind of null law its p-value has, as the check registry declares it (``hashaudit.checks``):
 
 ``uniform_p``
     One test's upper-tail p-value: uniform on (0, 1) under simple uniform hashing when its null law is continuous,
@@ -21,6 +21,8 @@ from __future__ import annotations
 import re
 from typing import TYPE_CHECKING
 
+from hashaudit.checks import CHECKS, GROUP_BY_NAME
+
 if TYPE_CHECKING:
     from hashaudit.verdict.findings import Finding
 
@@ -29,21 +31,8 @@ CONSERVATIVE_COMBINED = "conservative_combined"
 FACTS = "facts"
 NULL_LAW_KINDS = (UNIFORM_P, CONSERVATIVE_COMBINED, FACTS)
 
-# The insertion order is also the row order of the calibration tables (CHECK_ORDER).
-NULL_LAW: dict[str, str] = {
-    "chi_square": UNIFORM_P,
-    "g_test": UNIFORM_P,
-    "empty_buckets": UNIFORM_P,
-    "colliding_pairs": UNIFORM_P,
-    "max_load": UNIFORM_P,
-    "bit_bias": UNIFORM_P,
-    "bit_correlation": UNIFORM_P,
-    "full_collisions": UNIFORM_P,
-    "avalanche": CONSERVATIVE_COMBINED,
-    "bit_independence": CONSERVATIVE_COMBINED,
-    "probe_cost": CONSERVATIVE_COMBINED,
-    "duplicate_keys": FACTS,
-}
+# Each check declares its kind in the check registry; the registry's order is the row order of the tables.
+NULL_LAW: dict[str, str] = {name: c.null_law for name, c in CHECKS.items() if c.null_law != "not_studied"}
 # A check missing from NULL_LAW is read as one test whose method names its law: the study then still summarises
 # it, where leaving it out would hide a new check from the calibration tables.
 DEFAULT_NULL_LAW = UNIFORM_P
@@ -62,10 +51,10 @@ COMBINED_LAWS: dict[str, str] = {
 DISCRETE_WORDS = ("Poisson", "simulated", "multinomial maximum")
 
 # Checks with one finding per bucketing scheme: their label adds the scheme (``chi_square mask``).
-BUCKET_LABELS = ("chi_square", "g_test", "empty_buckets", "colliding_pairs", "max_load")
+BUCKET_LABELS = GROUP_BY_NAME["buckets"].check_names
 # Checks with one finding per simulated table kind: their label adds the kind (``probe_cost linear``), and the
 # finding's ``slots`` detail names the table size behind its null law.
-TABLE_LABELS = ("probe_cost",)
+TABLE_LABELS = GROUP_BY_NAME["tables"].check_names
 # Combined checks whose aggregate chi-square part (a continuous law) is summarised on its own, as
 # ``<check> aggregate``, from the p-value in the given detail.
 AGGREGATE_PARTS: dict[str, str] = {

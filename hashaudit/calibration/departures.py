@@ -20,7 +20,8 @@ from hashaudit.calibration import checks
 from hashaudit.calibration._common import MASK64, parallel_map, registry_of, round6, stable_number
 from hashaudit.calibration.defects import biased_bit, leaky_input_bit, weak_low_bits, xor_rotations
 from hashaudit.calibration.nulls import random_keys
-from hashaudit.engine.local import AuditPlan, audit_batches
+from hashaudit.engine.plan import AuditPlan
+from hashaudit.engine.runner import audit_batches
 from hashaudit.hashes.registry import HashRegistry
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.tables.sizes import prime_below

@@ -22,12 +22,14 @@ import numpy as np
 from hashaudit.calibration import checks
 from hashaudit.calibration._common import MASK64, kernel_spec, parallel_map, registry_of, round6, stable_number
 from hashaudit.calibration.rates import judge_calibration, rate_summary, summarise_p_values
-from hashaudit.engine.local import AuditPlan, audit_batches
+from hashaudit.checks import Thresholds, judge
+from hashaudit.engine.plan import AuditPlan
+from hashaudit.engine.runner import audit_batches
 from hashaudit.hashes.registry import HashSpec
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.stats.outcome import FitTest
 from hashaudit.tables.sizes import prime_below
-from hashaudit.verdict.findings import Finding, Thresholds, judge
+from hashaudit.verdict.findings import Finding
 
 NULL_LOADS = (0.1, 0.25, 0.5, 1.0, 2.0, 4.0, 8.0)
 NULL_HASHES = ("siphash24", "xxh3_64", "siphash24_low32")

@@ -18,10 +18,11 @@ if TYPE_CHECKING:
 Tested = tuple[str | None, int | None, int, "FitTest"]
 """One test of one hash: (scheme, buckets, keys, test); the engine adds the hash's name."""
 
-NULL_LAWS = ("uniform", "combined", "facts", "not_studied")
-"""How a check's p-value behaves under the null, for the calibration study: ``uniform`` (about uniform: a false
-failure rate near alpha), ``combined`` (k times the smallest of k p-values: conservative by design), ``facts`` (no
-test: a fact about the input) and ``not_studied`` (outside the null study: needs a planted input or a setting)."""
+NULL_LAWS = ("uniform_p", "conservative_combined", "facts", "not_studied")
+"""How a check's p-value behaves under the null, for the calibration study (``hashaudit.calibration``):
+``uniform_p`` (one test's p-value, uniform or, for a discrete law, super-uniform), ``conservative_combined`` (k
+times the smallest of k p-values: conservative by design), ``facts`` (no test: a fact about the input) and
+``not_studied`` (outside the null audits: needs a planted input or a setting of the user's own)."""
 
 
 @dataclass(frozen=True)
@@ -43,14 +44,24 @@ class Check:
         One of :data:`NULL_LAWS`.
     help : str
         What the check looks at, in a line (``hashaudit audit --help``, the docs).
+    rank : int
+        Which of a table's findings speaks for it on one terminal line (lowest first).
+    shows_keys : bool
+        Its findings carry groups of keys sharing a value (``largest_groups``) that ``--show-keys`` names.
+    figure : str, optional
+        The HTML figure its findings feed: ``occupancy`` (the histogram of the worst table), ``probes`` (probe
+        costs by load), ``shards`` (distinct keys and load per shard).
     """
 
     name: str
     sentence: Callable[[FitTest], str] | None = None
     regular: Callable[[FitTest], str] | None = None
     facts_only: bool = False
-    null_law: str = "uniform"
+    null_law: str = "uniform_p"
     help: str = ""
+    rank: int = 99
+    shows_keys: bool = False
+    figure: str | None = None
 
 
 @dataclass(frozen=True)
@@ -91,8 +102,6 @@ class CheckGroup:
         Uses the bottom-k key sample (``hashaudit.stats.avalanche.KeySample``).
     needs_heavy : bool
         Uses the summary of the heaviest keys (``hashaudit.stats.heavy.HeavyKeys``).
-    figure : str, optional
-        The name of the group's figure in the HTML page.
     """
 
     name: str
@@ -109,7 +118,6 @@ class CheckGroup:
     before_read: Callable[[Any, list[int], list[tuple[str, int]]], None] | None = None
     needs_sample: bool = False
     needs_heavy: bool = False
-    figure: str | None = None
 
     @property
     def check_names(self) -> tuple[str, ...]:

@@ -55,11 +55,13 @@ GROUP = CheckGroup(
     "buckets",
     "bucket counts of every table against simple uniform hashing",
     (
-        Check("chi_square", _cost, help="Pearson's chi-square of the bucket counts"),
-        Check("g_test", _cost, help="the G-test (likelihood ratio) of the bucket counts"),
-        Check("empty_buckets", _empty, help="buckets left empty"),
-        Check("colliding_pairs", _cost, help="pairs of keys that share a bucket"),
-        Check("max_load", _max_load, help="the fullest bucket against its expected maximum"),
+        Check("chi_square", _cost, help="Pearson's chi-square of the bucket counts", rank=3, figure="occupancy"),
+        Check("g_test", _cost, help="the G-test (likelihood ratio) of the bucket counts", rank=4, figure="occupancy"),
+        Check("empty_buckets", _empty, help="buckets left empty", rank=2, figure="occupancy"),
+        Check("colliding_pairs", _cost, help="pairs of keys that share a bucket", rank=0, figure="occupancy"),
+        Check(
+            "max_load", _max_load, help="the fullest bucket against its expected maximum", rank=1, figure="occupancy"
+        ),
     ),
     settings=(
         Setting(
@@ -91,5 +93,4 @@ GROUP = CheckGroup(
     ),
     accumulators=_accumulators,
     conclude=_conclude,
-    figure="occupancy",
 )

@@ -47,7 +47,7 @@ GROUP = CheckGroup(
     "collisions",
     "keys sharing their full hash value (birthday bound); repeated keys",
     (
-        Check("full_collisions", _full, help="distinct keys with the same full-width hash value"),
+        Check("full_collisions", _full, help="distinct keys with the same full-width hash value", shows_keys=True),
         Check("duplicate_keys", facts_only=True, null_law="facts", help="keys that repeat an earlier key"),
     ),
     settings=(

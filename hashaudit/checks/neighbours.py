@@ -52,7 +52,10 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
 GROUP = CheckGroup(
     "neighbours",
     "families of similar keys made from the sample (counters, one changed character, case, prefixes)",
-    tuple(Check(f"neighbour_{f}", _sentence, help=f"neighbour keys: {f.replace('_', ' ')}") for f in FAMILIES),
+    tuple(
+        Check(f"neighbour_{f}", _sentence, null_law="not_studied", help=f"neighbour keys: {f.replace('_', ' ')}")
+        for f in FAMILIES
+    ),
     conclude=_conclude,
     needs_sample=True,
 )

@@ -97,7 +97,7 @@ GROUP = CheckGroup(
     "shards",
     "balance over N shards, movement when one is added, hot keys (--shards turns it on)",
     (
-        Check("shard_balance", _balance, null_law="not_studied", help="distinct keys per shard"),
+        Check("shard_balance", _balance, null_law="not_studied", help="distinct keys per shard", figure="shards"),
         Check("shard_movement", _movement, null_law="not_studied", help="keys moving when a shard is added"),
         Check("hot_keys", facts_only=True, null_law="facts", help="heavy keys that make a shard hot"),
         Check("load_attribution", facts_only=True, null_law="facts", help="the hottest shard's load, explained"),
@@ -161,5 +161,4 @@ GROUP = CheckGroup(
     facts=_facts,
     prepare=_prepare,
     needs_heavy=True,
-    figure="shards",
 )

@@ -50,8 +50,8 @@ class AuditPlan:
             raw = settings.get(name, _MISSING)
             if raw is _MISSING or raw is None:
                 values[name] = setting.default
-            elif setting.kind == "text" and not isinstance(raw, str | list | tuple):
-                values[name] = raw  # already converted (a growth policy, a tag layout)
+            elif setting.kind == "text" and not setting.many and isinstance(raw, tuple):
+                values[name] = setting.item(raw)  # already converted (a tag layout)
             else:
                 values[name] = setting.value(list(raw) if isinstance(raw, tuple) else raw)
         thresholds = settings.get("thresholds")
@@ -70,6 +70,9 @@ class AuditPlan:
 
     def __eq__(self, other: object) -> bool:
         return isinstance(other, AuditPlan) and other._values == self._values
+
+    def __hash__(self) -> int:
+        return hash(tuple(self._values.items()))
 
     def __repr__(self) -> str:
         return "AuditPlan(" + ", ".join(f"{k}={v!r}" for k, v in self._values.items()) + ")"

@@ -12,6 +12,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from hashaudit.checks import CHECKS
 from hashaudit.hashes.registry import REGISTRY, HashRegistry
 from hashaudit.keys import open_keys
 from hashaudit.keys.options import SourceOptions
@@ -39,7 +40,7 @@ def attach_colliding_keys(
     wanted: dict[str, tuple[dict[int, dict], int]] = {}
     for audit in result.hashes:
         for finding in audit.findings:
-            if finding.check != "full_collisions":
+            if not CHECKS[finding.check].shows_keys:
                 continue
             groups = finding.details.get("largest_groups") or []
             if groups:

@@ -4,4 +4,4 @@ Importing the package imports :mod:`hashaudit.hashes.fingerprint` (light: it loa
 statistics with their default key fingerprints and sampling priorities (see ``hashaudit.stats._hooks``).
 """
 
-from hashaudit.hashes import fingerprint as fingerprint  # noqa: F401  (registers the statistics' defaults)
+from hashaudit.hashes import fingerprint  # noqa: F401  (imported for what it provides to the statistics)

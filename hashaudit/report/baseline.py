@@ -3,7 +3,7 @@
 A baseline is an earlier JSON report. Checks are matched by hash, check name and table (scheme and size, table
 kind, shard scheme and count); a check regresses when its verdict got worse (pass → warn → fail) or its effect grew
 by more than the tolerance, even when it still passes on its own. Checks that only state facts about the keys
-(``FACTS_ONLY_CHECKS``) regress on their verdict alone: their effect measures the keys, not the hash.
+(the registry's facts-only checks) regress on their verdict alone: their effect measures the keys, not the hash.
 
 The rows of :func:`compare` go into every report of ``hashaudit gate`` (the JSON report's ``baseline`` block, a
 Markdown table, a JUnit test suite) and, through :func:`comparison_text`, onto the terminal.
@@ -15,13 +15,12 @@ import json
 import math
 from dataclasses import dataclass
 
+from hashaudit.checks import FACTS_ONLY
 from hashaudit.errors import UsageError
 from hashaudit.verdict.findings import table_label
 
 VERDICT_RANK = {"pass": 0, "info": 0, "warn": 1, "fail": 2}
 DEFAULT_TOLERANCE = 0.05
-# replaced by the check registry's facts_only flag
-FACTS_ONLY_CHECKS = frozenset({"duplicate_keys", "hot_keys", "load_attribution"})
 
 
 @dataclass(frozen=True)
@@ -120,7 +119,7 @@ def compare(new: dict, old: dict, tolerance: float) -> list[dict]:
                     and math.isfinite(new_effect)
                     and math.isfinite(old_effect)
                     and new_effect - old_effect > tolerance
-                    and check["name"] not in FACTS_ONLY_CHECKS  # their effect measures the keys, not the hash
+                    and check["name"] not in FACTS_ONLY  # their effect measures the keys, not the hash
                 )
                 if worse:
                     row.update(regressed=True, reason=f"verdict {previous['verdict']} → {check['verdict']}")

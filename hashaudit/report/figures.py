@@ -13,6 +13,7 @@ import re
 from collections.abc import Sequence
 from typing import TYPE_CHECKING, Any
 
+from hashaudit.checks import CHECKS
 from hashaudit.report.page import esc, num
 from hashaudit.verdict.findings import VERDICT_ORDER, Finding, table_label
 from hashaudit.verdict.result import HashAudit
@@ -362,8 +363,7 @@ def _bucket_table(audit: HashAudit, tables: list[dict]) -> dict | None:
             VERDICT_ORDER.get(f.verdict, 3)
             for f in audit.findings
             if (f.scheme, f.buckets) == (table.get("scheme"), table.get("buckets"))
-            and "table_kind" not in f.details
-            and not f.check.startswith("neighbour_")
+            and CHECKS[f.check].figure == "occupancy"
         ]
         return min(verdicts, default=3)
 
@@ -396,12 +396,12 @@ def hash_figures(figures: Figures, audit: HashAudit, entry: dict, plots: dict) -
         parts.append(_occupancy_figure(figures, table))
     if isinstance(plots.get("no_collision"), dict):
         parts.append(_no_collision_figure(figures, plots["no_collision"]))
-    probe = [f for f in audit.findings if f.check == "probe_cost"]
+    probe = [f for f in audit.findings if CHECKS[f.check].figure == "probes"]
     if probe:
         parts.append(_probe_figure(figures, probe))
     if plots.get("avalanche") is not None:
         parts.append(_avalanche_figure(figures, plots["avalanche"]))
     for finding in audit.findings:
-        if finding.check == "shard_balance":
+        if CHECKS[finding.check].figure == "shards":
             parts.append(_shard_figure(figures, finding))
     return [p for p in parts if p]

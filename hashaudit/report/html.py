@@ -20,6 +20,7 @@ import math
 import os
 from collections.abc import Iterable, Sequence
 
+from hashaudit.checks import CHECKS
 from hashaudit.report.figures import Figures, hash_figures
 from hashaudit.report.json_report import report_dict, write_text_atomically
 from hashaudit.report.page import CSP, CSS, badge, esc, mask_url_passwords, num
@@ -130,7 +131,7 @@ def _collision_groups(audit: HashAudit, show_keys: bool) -> str:
     rows = []
     collected = False
     for finding in audit.findings:
-        if finding.check != "full_collisions":
+        if not CHECKS[finding.check].shows_keys:
             continue
         for group in finding.details.get("largest_groups") or []:
             samples = group.get("sample_keys")
@@ -183,7 +184,7 @@ def _hash_section(index: int, audit: HashAudit, entry: dict, plots: dict, figure
 def _where(finding: Finding) -> str:
     """The table a finding ran on, with the load for the probe and growth cost checks."""
     label = finding.table
-    if "load" in finding.details and finding.check in ("probe_cost", "growth_cost"):
+    if "load" in finding.details:  # a simulated table measured at one load
         label += f", load {num(finding.details['load'])}"
     return label
 

@@ -6,12 +6,11 @@ from collections import OrderedDict
 
 import click
 
+from hashaudit.checks import CHECKS
 from hashaudit.verdict.findings import VERDICT_ORDER, Finding
 from hashaudit.verdict.result import AuditResult
 
 _COLOURS = {"fail": "red", "warn": "yellow", "info": "cyan", "pass": "green"}
-# Which finding speaks for a table: the one whose sentence is in the most operational units.
-_SPOKESMAN = ("colliding_pairs", "max_load", "empty_buckets", "chi_square", "g_test")
 HASH_FLOODING_NOTE = (
     "Note: these are statistics on these keys, not a security property. A non-cryptographic hash that passes\n"
     "every check can still be attacked with crafted keys (hash flooding); for keys an adversary controls, use\n"
@@ -40,7 +39,8 @@ def _grouped(findings: list[Finding]) -> list[tuple[str, list[Finding]]]:
 
 def _line(verdict: str, members: list[Finding]) -> str:
     same = [f for f in members if f.verdict == verdict]
-    speaker = min(same, key=lambda f: _SPOKESMAN.index(f.check) if f.check in _SPOKESMAN else 99)
+    # the finding whose sentence is in the most operational units speaks for the table (the registry's rank)
+    speaker = min(same, key=lambda f: CHECKS[f.check].rank)
     others = [f.check for f in same if f is not speaker]
     tail = f" [also {', '.join(others)}]" if others else ""
     return f"{speaker.message}{tail}"
@@ -50,7 +50,7 @@ def _collision_keys(result: AuditResult, hash_name: str) -> list[str]:
     """Keys of the largest full-width collision groups, only present when the user asked for them."""
     out = []
     for f in result.findings:
-        if f.hash_name != hash_name or f.check != "full_collisions" or f.verdict == "pass":
+        if f.hash_name != hash_name or not CHECKS[f.check].shows_keys or f.verdict == "pass":
             continue
         for group in f.details.get("largest_groups", [])[:3]:
             keys = group.get("sample_keys")

@@ -184,8 +184,8 @@ def test_the_split_column_must_be_in_the_query(lookups):
         plan_key_ranges(lookups, SourceOptions(query="SELECT parcel FROM lookups", db_split_column="hub"))
     with pytest.raises(InputError, match="no such column: lookups.nope"):
         plan_key_ranges(lookups, SourceOptions(db_table="lookups", columns=("parcel",), db_split_column="nope"))
-    for bad in ({"split_column": "id; DROP TABLE lookups"}, {"split_column": "a.b"}, {"split_parts": 0},
-                {"split_column": "id", "split_parts": 4097}):  # fmt: skip
+    for bad in ({"db_split_column": "id; DROP TABLE lookups"}, {"db_split_column": "a.b"}, {"db_split_parts": 0},
+                {"db_split_column": "id", "split_parts": 4097}):  # fmt: skip
         with pytest.raises(UsageError):
             plan_key_ranges(lookups, SourceOptions(db_table="lookups", columns=("parcel",), **bad))
     with pytest.raises(UsageError, match="apply to database sources"):
@@ -220,7 +220,9 @@ def test_passwords_never_show_while_planning():
 def test_the_dask_engine_reads_integer_ranges_and_gives_the_local_report(lookups, cluster):
     """The ids are in insertion order, so the ranges read in ascending order replay the local engine's stream:
     the simulated tables (order-dependent) agree too."""
-    options = SourceOptions(db_table="lookups", columns=("parcel",), weight_column="bytes", db_split_column="id", db_split_parts=5)
+    options = SourceOptions(
+        db_table="lookups", columns=("parcel",), weight_column="bytes", db_split_column="id", db_split_parts=5
+    )
     local = audit([lookups], PLAN, options)
     dist = audit_dask([lookups], PLAN, options, scheduler=cluster, prefix_bits=2)
     assert dist.run["partitions"] == 5 and dist.keys == local.keys and dist.keys_read == local.keys_read == 12_000
@@ -229,7 +231,7 @@ def test_the_dask_engine_reads_integer_ranges_and_gives_the_local_report(lookups
 
 def test_the_dask_engine_reads_text_ranges_and_nulls(lookups, cluster):
     """Split on text with NULLs the stream order is not the table's, so only order-free checks are compared."""
-    plan = dataclasses.replace(PLAN, checks=("buckets", "bits", "collisions", "avalanche"))
+    plan = PLAN.replace(checks=("buckets", "bits", "collisions", "avalanche"))
     options = SourceOptions(query="SELECT parcel, hub FROM lookups", db_split_column="hub", db_split_parts=3)
     local = audit([lookups], plan, options)
     dist = audit_dask([lookups], plan, options, scheduler=cluster, prefix_bits=2)
@@ -265,13 +267,15 @@ def test_postgres_ranges_of_every_type_lose_no_row(postgres, driver):
         assert union == _keys(postgres, options) and sum(sizes) == 12_000, column
         assert len(ranges) == (7 if column == "price" else 6), column  # the NULL prices have their own range
     with pytest.raises(UsageError, match="no column 'hub'"):
-        plan_key_ranges(postgres, SourceOptions(query="SELECT parcel FROM lookups", db_split_column="hub", db_driver=driver))
+        plan_key_ranges(
+            postgres, SourceOptions(query="SELECT parcel FROM lookups", db_split_column="hub", db_driver=driver)
+        )
 
 
 @pytest.mark.parametrize("driver", ["adbc", "sqlalchemy"])
 def test_the_dask_engine_on_postgres_gives_the_local_report(postgres, cluster, driver):
     pytest.importorskip("adbc_driver_postgresql" if driver == "adbc" else "sqlalchemy")
-    plan = dataclasses.replace(PLAN, checks=("buckets", "bits", "collisions", "avalanche", "shards"))
+    plan = PLAN.replace(checks=("buckets", "bits", "collisions", "avalanche", "shards"))
     options = SourceOptions(db_table="lookups", columns=("parcel",), weight_column="bytes", db_split_column="id", db_split_parts=4,
                             db_driver=driver)  # fmt: skip
     local = audit([postgres], plan, options)
@@ -287,7 +291,7 @@ def test_the_dask_engine_on_postgres_gives_the_local_report(postgres, cluster, d
     ("extra", "message"),
     [
         (["--db-split-column", "hub"], "the query has no column 'hub' for --db-split-column (it has: parcel)"),
-        (["--db-split-column", "id", "--db-split-parts", "0"], "--db-split-parts takes a whole number from 1 to 4096"),
+        (["--db-split-column", "id", "--db-split-parts", "0"], "--db-split-parts must be between 1 and 4096, not 0"),
         (["--db-split-column", "id;DROP TABLE lookups"], "--db-split-column takes a plain column name"),
         (["--db-split-parts", "4"], "--db-split-parts needs --db-split-column"),
     ],

@@ -256,9 +256,8 @@ def test_full_collisions_catch_keys_crafted_for_poly31():
 def test_collision_spill_gives_the_same_report(tmp_path):
     small = AuditPlan(hashes=("fnv1a_32",), checks=("collisions",), collision_memory=1 << 12, spill_dir=str(tmp_path))
     large = AuditPlan(hashes=("fnv1a_32",), checks=("collisions",))
-    assert stable(audit_batches(batches_of(500), small)).replace(str(1 << 12), "") == stable(
-        audit_batches(batches_of(500), large)
-    ).replace(str(1 << 30), "")
+    # the memory budget is not recorded in the settings: it does not change the result
+    assert stable(audit_batches(batches_of(500), small)) == stable(audit_batches(batches_of(500), large))
     assert list(tmp_path.iterdir()) == []  # spilled files are removed
 
 

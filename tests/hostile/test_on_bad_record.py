@@ -46,7 +46,7 @@ def numbered(path: Path, **options) -> list[tuple[int, bytes]]:
     normaliser = Normaliser(settings_)
     with open(path, "rb") as stream:
         if settings_.field:
-            batches = read_jsonl(stream, path.name, settings_.field, stats, weight=settings_.weight, skip_bad=True)
+            batches = read_jsonl(stream, path.name, settings_.field, stats, weight=settings_.weight_column, skip_bad=True)
         else:
             batches = lines_module.read_lines(stream, path.name, skip_bad=True, stats=stats)
         pairs = []
@@ -216,7 +216,7 @@ EVENTS = (
 def test_json_lines_skip(tmp_path):
     path = tmp_path / "events.jsonl"
     path.write_bytes(EVENTS)
-    pairs = numbered(path, field="k", weight="w")
+    pairs = numbered(path, field="k", weight_column="w")
     assert pairs == [(1, b"a"), (6, b"d"), (13, b'{"a":1}')]
     stream = open_keys(path, SourceOptions(field="k", weight_column="w", on_bad_record=SKIP))
     weights = np.concatenate([b.weights for b in stream])
@@ -249,7 +249,7 @@ def test_json_lines_fail_names_the_line(tmp_path, line, message):
     path = tmp_path / "events.jsonl"
     path.write_bytes(b'{"k":"a","w":1}\n' + line + b'\n{"k":"z","w":1}\n')
     with pytest.raises(InputError, match=message):
-        read(path, field="k", weight="w")
+        read(path, field="k", weight_column="w")
 
 
 def test_json_lines_skip_counts_lines_after_skipped_utf8(tmp_path):
@@ -354,7 +354,7 @@ def test_csv_bad_weight_fails_by_default(tmp_path):
     path = tmp_path / "w.csv"
     path.write_bytes(b"k,w\na,1\nb,heavy\n")
     with pytest.raises(InputError, match=r"invalid value 'heavy'"):
-        read(path, columns=("k",), weight="w")
+        read(path, columns=("k",), weight_column="w")
 
 
 def test_csv_ragged_rows_fail_or_are_skipped(tmp_path):
@@ -391,7 +391,7 @@ def test_parquet_bad_weights_skipped_and_null_keys_counted_apart(tmp_path):
     assert [k for b in batches for k in b.to_list()] == [b"a"]
     assert stream.stats.skipped == {"null": 2, "bad_weight": 3}
     with pytest.raises(InputError, match="weight column 'w' must be numbers without nulls"):
-        read(path, columns=("k",), weight="w")
+        read(path, columns=("k",), weight_column="w")
 
 
 def test_parquet_clean_weights_alike_in_both_modes(tmp_path):
@@ -419,7 +419,7 @@ def test_sqlite_bad_weights_skipped(tmp_path):
     assert np.concatenate([b.weights for b in batches]).tolist() == [1.0, 2.5]
     assert stream.stats.skipped == {"bad_weight": 3, "null": 1}
     with pytest.raises(InputError, match=r"row 2: weight 'w' is 'x', not a number"):
-        read(path, table="t", columns=("k",), weight="w")
+        read(path, db_table="t", columns=("k",), weight_column="w")
 
 
 # --- the command line and the gate file ----------------------------------------------------------------------
@@ -457,7 +457,7 @@ def test_gate_file_takes_on_bad_record(tmp_path):
     config.write_text(body + "on_bad_record = true\n", encoding="utf-8")
     code, line = expect_clean(run(["gate", "--config", str(config)]))
     assert code == 2
-    assert "'on_bad_record' in [sources] must be str, not bool" in line
+    assert "line 6: on_bad_record takes one of fail, skip, not a boolean" in line
 
 
 def test_dask_partitions_skip_bad_lines_too(tmp_path):

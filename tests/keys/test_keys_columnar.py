@@ -37,7 +37,7 @@ def test_strings_integers_composites_and_nulls(tmp_path, table, suffix):
     else:
         with pa.OSFile(str(path), "wb") as sink, pa.ipc.new_file(sink, table.schema) as writer:
             writer.write_table(table, max_chunksize=3)
-    keys, batches, stream = _keys(path, columns=("parcel",), weight="bytes")
+    keys, batches, stream = _keys(path, columns=("parcel",), weight_column="bytes")
     assert keys == [b"P1", b"P2", b"P4"] and stream.stats.skipped == {"null": 1}
     assert np.concatenate([b.weights for b in batches]).tolist() == [10.0, 2.0, 0.5]
     keys, _, _ = _keys(path, columns=("berth",))

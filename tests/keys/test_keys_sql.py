@@ -34,13 +34,13 @@ def sqlite_file(tmp_path):
 
 
 def test_sqlite_query_table_weights_and_nulls(sqlite_file):
-    keys, batches, stream = _keys(sqlite_file, query="SELECT parcel, bytes FROM lookups", weight="bytes")
+    keys, batches, stream = _keys(sqlite_file, query="SELECT parcel, bytes FROM lookups", weight_column="bytes")
     assert keys[:2] == [b"P0", b"P1"] and len(keys) == 1000 and stream.stats.skipped == {"null": 1}
     assert np.concatenate([b.weights for b in batches])[:8].tolist() == [0, 1, 2, 3, 4, 5, 6, 0]
-    keys, _, stream = _keys(sqlite_file, table="lookups", columns=("berth",))
+    keys, _, stream = _keys(sqlite_file, db_table="lookups", columns=("berth",))
     assert keys[1] == (64).to_bytes(8, "little") and len(keys) == 1001
     assert stream.description["query"] == 'SELECT "berth" FROM "lookups"'
-    keys, _, _ = _keys(sqlite_file, table="lookups", columns=("berth", "parcel"), integers="decimal", join=":")
+    keys, _, _ = _keys(sqlite_file, db_table="lookups", columns=("berth", "parcel"), integers="decimal", join=":")
     assert keys[2] == b"128:P2"
 
 
@@ -54,7 +54,7 @@ def test_sqlite_sessions_are_read_only_and_errors_are_one_line(sqlite_file):
     with pytest.raises(InputError, match="no such table"):
         _keys(sqlite_file, query="SELECT x FROM missing")
     with pytest.raises(UsageError, match="plain table or column name"):
-        _keys(sqlite_file, table="lookups; DROP TABLE lookups", columns=("berth",))
+        _keys(sqlite_file, db_table="lookups; DROP TABLE lookups", columns=("berth",))
     with pytest.raises(UsageError, match="--query"):
         _keys(sqlite_file)
 
@@ -89,19 +89,19 @@ def test_postgres_reads_keys_weights_and_refuses_writes(postgres, driver):
     if driver == "adbc":
         pytest.importorskip("adbc_driver_postgresql")
     pytest.importorskip("sqlalchemy")
-    keys, batches, stream = _keys(postgres, query="SELECT id, bytes FROM parcels", weight="bytes", driver=driver,
+    keys, batches, stream = _keys(postgres, query="SELECT id, bytes FROM parcels", weight_column="bytes", db_driver=driver,
                                   batch_keys=5000)  # fmt: skip
     assert len(keys) == 20_000 and stream.stats.skipped == {"null": 1} and keys[:2] == [b"P0", b"P1"]
     assert np.concatenate([b.weights for b in batches]).sum() == pytest.approx(sum(1.0 + i % 3 for i in range(20_000)))
-    keys, _, _ = _keys(postgres, table="parcels", columns=("berth",), driver=driver)
+    keys, _, _ = _keys(postgres, db_table="parcels", columns=("berth",), db_driver=driver)
     assert (64).to_bytes(8, "little") in keys
     with pytest.raises(InputError, match="read-only transaction"):
-        _keys(postgres, query="SELECT nextval('counter')::text", driver=driver)  # a write the database refuses
+        _keys(postgres, query="SELECT nextval('counter')::text", db_driver=driver)  # a write the database refuses
     with pytest.raises(InputError):
-        _keys(postgres, query="DELETE FROM parcels RETURNING id", driver=driver)
-    assert len(_keys(postgres, query="SELECT id FROM parcels", driver=driver)[0]) == 20_000  # nothing deleted
+        _keys(postgres, query="DELETE FROM parcels RETURNING id", db_driver=driver)
+    assert len(_keys(postgres, query="SELECT id FROM parcels", db_driver=driver)[0]) == 20_000  # nothing deleted
     with pytest.raises(InputError, match="parcelz"):
-        _keys(postgres, query="SELECT id FROM parcelz", driver=driver)
+        _keys(postgres, query="SELECT id FROM parcelz", db_driver=driver)
 
 
 _STREAM_SCRIPT = """

@@ -65,7 +65,7 @@ def test_description_is_json_and_complete(tmp_path):
         "columns": ["b", "a"],
         "join": "|",
         "field": None,
-        "weight": None,
+        "weight_column": None,
         "integers": None,
         "delimiter": ",",
         "header": True,

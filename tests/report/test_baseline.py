@@ -7,10 +7,10 @@ import json
 
 import pytest
 
+from hashaudit.checks import FACTS_ONLY
 from hashaudit.errors import UsageError
 from hashaudit.report.baseline import (
     DEFAULT_TOLERANCE,
-    FACTS_ONLY_CHECKS,
     Comparison,
     compare,
     comparison_text,
@@ -80,7 +80,7 @@ def test_an_effect_within_the_tolerance_or_a_better_verdict_does_not_regress():
     assert not any(r["regressed"] for r in compare(new, old, DEFAULT_TOLERANCE))
 
 
-@pytest.mark.parametrize("name", sorted(FACTS_ONLY_CHECKS))
+@pytest.mark.parametrize("name", sorted(FACTS_ONLY))
 def test_a_facts_only_check_regresses_on_its_verdict_alone(name):
     old = _report(_check(name, verdict="info", effect=0.1))
     grown = _report(_check(name, verdict="info", effect=0.9))
