@@ -54,9 +54,19 @@ class SettingError(UsageError):
         super().__init__(self.worded(lambda name: name))
 
     def worded(self, spell: Callable[[str], str]) -> str:
-        """The message with every setting name spelled by ``spell`` (e.g. as a flag)."""
-        names = re.findall(r"\{([a-z_]+)\}", self.reason)
-        return f"{spell(self.setting)} " + self.reason.format(**{n: spell(n) for n in names})
+        """The message with every setting name spelled by ``spell`` (e.g. as a flag); ``{name}`` is replaced only
+        for a declared setting, so a value quoted in the reason is left as it is."""
+        known = declared_names()
+        reason = re.sub(r"\{([a-z][a-z_]*)\}", lambda m: spell(m[1]) if m[1] in known else m[0], self.reason)
+        return f"{spell(self.setting)} {reason}" if not reason.startswith(":") else f"{spell(self.setting)}{reason}"
+
+
+def declared_names() -> frozenset[str]:
+    """The name of every declared setting (the audit's, every check group's, the sources', how it runs)."""
+    from hashaudit.checks import group_settings
+    from hashaudit.keys.options import SOURCE_SETTINGS
+
+    return frozenset(s.name for s in (*AUDIT_SETTINGS, *RUN_SETTINGS, *group_settings(), *SOURCE_SETTINGS))
 
 
 @dataclass(frozen=True)

@@ -46,6 +46,7 @@ from hashaudit.hashes.registry import REGISTRY
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.options import SourceOptions
 from hashaudit.keys.records import SourceStats
+from hashaudit.settings import SettingError
 from hashaudit.stats.heavy import HeavyCounts
 from hashaudit.verdict.result import AuditResult
 
@@ -322,7 +323,7 @@ def audit_dask(
         raise UsageError("no source given")
     per_source = _per_source(options, len(sources))
     if not plan.distinct:
-        raise UsageError("the dask engine tells distinct keys apart; --all-keys runs on the local engine")
+        raise SettingError("all_keys", "runs on the local engine (the dask engine tells distinct keys apart)")
     started = time.perf_counter()
     located = [_located(str(s)) for s in sources]  # workers elsewhere open files by their absolute path
     parts = plan_partitions(located, per_source, partition_bytes)

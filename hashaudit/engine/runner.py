@@ -23,6 +23,7 @@ from hashaudit.engine.state import HashState
 from hashaudit.errors import UsageError
 from hashaudit.hashes.registry import REGISTRY, HashRegistry
 from hashaudit.keys.batch import KeyBatch
+from hashaudit.settings import SettingError
 from hashaudit.stats.avalanche import KeySample
 from hashaudit.stats.distinct import BYTES_PER_DISTINCT, DistinctBudgetError, DistinctKeys
 from hashaudit.stats.heavy import HeavyCounts, HeavyKeys
@@ -310,7 +311,7 @@ def _import_quietly(module: str) -> None:
 
 def _lane_count(threads: int, hashes: int) -> int:
     if threads < 0:
-        raise UsageError(f"--threads must be 0 (automatic) or more, not {threads}")
+        raise SettingError("threads", f"must be 0 (automatic) or more, not {threads}")
     if threads == 0:
         threads = min(os.cpu_count() or 1, 8)
     return max(1, threads)

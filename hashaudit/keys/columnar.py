@@ -20,6 +20,7 @@ from hashaudit.errors import InputError, UsageError
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.options import SourceOptions
 from hashaudit.keys.records import RecordBatch, SourceStats
+from hashaudit.settings import SettingError
 
 COLUMNAR_SUFFIXES = {".parquet": "parquet", ".pq": "parquet", ".arrow": "arrow", ".feather": "arrow", ".ipc": "arrow"}
 
@@ -168,7 +169,7 @@ def read_columnar(
     columns = _resolve(wanted, schema, path)
     weight = _resolve([options.weight_column], schema, path)[0] if options.weight_column else None
     if weight is not None and weight in columns:
-        raise UsageError(f"--weight-column {options.weight_column!r} is also a key column")
+        raise SettingError("weight_column", f"{options.weight_column!r} is also a key column")
     try:
         for batch in batches:
             key_positions = [batch.schema.get_field_index(c) for c in columns]

@@ -29,11 +29,12 @@ import pyarrow.compute as pc
 import pyarrow.csv as pa_csv
 from numba import njit
 
-from hashaudit.errors import InputError, UsageError
+from hashaudit.errors import InputError
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.open import PrefixedReader, Readable
 from hashaudit.keys.options import SourceOptions
 from hashaudit.keys.records import RecordBatch, SourceStats
+from hashaudit.settings import SettingError
 
 CSV_BLOCK_BYTES = 4 << 20
 """Bytes pyarrow parses per block (tests shrink it)."""
@@ -89,7 +90,7 @@ def delimiter_for(fmt: str, options: SourceOptions) -> str:
     """The delimiter in force: ``options.delimiter``, else comma for csv and tab for tsv."""
     delimiter = options.delimiter if options.delimiter is not None else ("," if fmt == "csv" else "\t")
     if len(delimiter) != 1 or len(delimiter.encode("utf-8")) != 1 or delimiter in '\r\n"':
-        raise UsageError(f"--delimiter {delimiter!r} must be one ASCII character other than a quote, CR or LF")
+        raise SettingError("delimiter", f"{delimiter!r} must be one ASCII character other than a quote, CR or LF")
     return delimiter
 
 
@@ -141,7 +142,10 @@ def resolve_columns(columns: tuple[str, ...], names: list[str], header: bool, na
                 raise InputError(f"{name}: no column {index} (numbered from 0); {have}")
             resolved.append(names[index])
         elif not header:
-            raise UsageError(f"--column {column!r}: with --no-header, give columns as 0-based numbers")
+            raise SettingError(
+                "columns",
+                f"{column!r}: the files have no header row ({{header}} false), so give columns as 0-based numbers",
+            )
         else:
             raise InputError(f"{name}: no column {column!r}; the header has {_listing(names)}")
     return resolved
@@ -224,7 +228,7 @@ def read_delimited(
     if options.weight_column is not None:
         (weight,) = resolve_columns((options.weight_column,), names, options.header, name)
         if weight in columns:
-            raise UsageError(f"--weight-column {options.weight_column!r} is also a key column")
+            raise SettingError("weight_column", f"{options.weight_column!r} is also a key column")
     wanted = list(dict.fromkeys(columns + ([weight] if weight is not None else [])))
     skip_bad = options.on_bad_record == "skip"
     reader_options = pa_csv.ReadOptions(block_size=CSV_BLOCK_BYTES, autogenerate_column_names=not options.header)

@@ -34,6 +34,7 @@ from hashaudit.keys._kernels import (
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.options import KEY_FORMATS, SourceOptions
 from hashaudit.keys.records import RecordBatch, SourceStats
+from hashaudit.settings import SettingError
 
 _QUOTE_CHARS = 40
 
@@ -176,9 +177,9 @@ def compile_pattern(pattern: str) -> re.Pattern[str]:
     try:
         regex = re.compile(pattern)
     except re.error as exc:
-        raise UsageError(f"--pattern {pattern!r} is not a valid regular expression: {exc}") from None
+        raise SettingError("pattern", f"{pattern!r} is not a valid regular expression: {exc}") from None
     if regex.groups < 1:
-        raise UsageError(f"--pattern {pattern!r} has no group: put the part that is the key in parentheses")
+        raise SettingError("pattern", f"{pattern!r} has no group: put the part that is the key in parentheses")
     return regex
 
 

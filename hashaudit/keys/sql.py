@@ -42,6 +42,7 @@ from hashaudit.errors import HashAuditError, InputError, UsageError
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.options import MAX_SPLIT_PARTS, KeyRange, SourceOptions
 from hashaudit.keys.records import RecordBatch, SourceStats
+from hashaudit.settings import SettingError
 
 SQLITE_SUFFIXES = (".sqlite", ".sqlite3", ".db")
 _URL = re.compile(r"^[a-z][a-z0-9+.-]*://", re.IGNORECASE)
@@ -83,11 +84,11 @@ def check_split_options(options: SourceOptions) -> None:
     column, parts = options.db_split_column, options.db_split_parts
     if parts is not None:
         if column is None:
-            raise UsageError("--db-split-parts needs --db-split-column (the column to split on)")
+            raise SettingError("db_split_parts", "needs {db_split_column} (the column to split on)")
         if isinstance(parts, bool) or not isinstance(parts, int) or not 1 <= parts <= MAX_SPLIT_PARTS:
-            raise UsageError(f"--db-split-parts takes a whole number from 1 to {MAX_SPLIT_PARTS}, not {parts!r}")
+            raise SettingError("db_split_parts", f"must be between 1 and {MAX_SPLIT_PARTS}, not {parts!r}")
     if column is not None and (not isinstance(column, str) or not _IDENTIFIER.match(column) or "." in column):
-        raise UsageError(f"--db-split-column takes a plain column name, not {column!r}")
+        raise SettingError("db_split_column", f"takes a plain column name, not {column!r}")
     if options.key_range is not None and column is None:
         raise UsageError("a key range needs split_column")
 
@@ -171,14 +172,14 @@ def _shown(value: object) -> str:
 def _base_query(options: SourceOptions, name: str, *, with_split: bool) -> str:
     """``options.query``, or the SELECT of ``options.db_table`` (``with_split``: with the split column too)."""
     if options.query and options.db_table:
-        raise UsageError("give --query or --db-table, not both")
+        raise SettingError("query", "or {db_table}: give one, not both")
     if options.query:
         return options.query
     if not options.db_table:
         raise UsageError(f'{name}: give --query "SELECT …" or --db-table TABLE --column COLUMN')
     columns = list(options.columns)
     if not columns:
-        raise UsageError("--db-table needs --column (the key column)")
+        raise SettingError("db_table", "needs {columns} (the key column)")
     selected = columns + ([options.weight_column] if options.weight_column else [])
     for identifier in [options.db_table, *selected]:
         if not _IDENTIFIER.match(identifier):

@@ -23,6 +23,7 @@ from hashaudit.keys.open import (
 )
 from hashaudit.keys.options import DRIVERS, INTEGER_FORMATS, ON_BAD_RECORD, SOURCE_FORMATS, SourceOptions
 from hashaudit.keys.records import RecordBatch, SourceStats
+from hashaudit.settings import SettingError
 
 _DELIMITED = ("csv", "tsv")
 _COLUMNAR = ("parquet", "arrow")
@@ -34,7 +35,7 @@ def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
     if not isinstance(options.batch_keys, int) or options.batch_keys < 1:
         raise UsageError(f"batch_keys must be a positive integer, not {options.batch_keys!r}")
     if (options.query or options.db_table) and fmt != "sql":
-        raise UsageError(f"--query and --db-table apply to database sources, but {name} is read as {fmt}")
+        raise SettingError("query", f"and {{db_table}} apply to database sources, but {name} is read as {fmt}")
     if fmt == "sql":
         from hashaudit.keys.sql import check_split_options
 
@@ -44,9 +45,9 @@ def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
             f"--db-split-column and --db-split-parts apply to database sources, but {name} is read as {fmt}"
         )
     if options.on_bad_record not in ON_BAD_RECORD:
-        raise UsageError(f"--on-bad-record takes {' or '.join(ON_BAD_RECORD)}, not {options.on_bad_record!r}")
+        raise SettingError("on_bad_record", f"takes {' or '.join(ON_BAD_RECORD)}, not {options.on_bad_record!r}")
     if options.db_driver not in DRIVERS:
-        raise UsageError(f"--db-driver takes {', '.join(DRIVERS)}, not {options.db_driver!r}")
+        raise SettingError("db_driver", f"takes {', '.join(DRIVERS)}, not {options.db_driver!r}")
     if fmt not in (*_DELIMITED, *_COLUMNAR, "sql"):
         if options.columns:
             raise UsageError(
@@ -54,12 +55,14 @@ def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
                 f"read as {fmt} (use --format csv or --format tsv)"
             )
         if options.delimiter is not None:
-            raise UsageError(f"--delimiter applies to csv and tsv sources, but {name} is read as {fmt}")
+            raise SettingError("delimiter", f"applies to csv and tsv sources, but {name} is read as {fmt}")
     if fmt == "jsonl":
         if not options.field:
             raise InputError(f"{name}: --field is required for JSON Lines (the dotted path of the key, e.g. user.id)")
     elif options.field is not None:
-        raise UsageError(f"--field applies to JSON Lines sources, but {name} is read as {fmt} (use --format jsonl)")
+        raise SettingError(
+            "field", f"applies to JSON Lines sources, but {name} is read as {fmt} (use {{format}} jsonl)"
+        )
     if options.weight_column is not None and fmt not in (*_DELIMITED, *_COLUMNAR, "jsonl", "sql"):
         raise UsageError(
             f"--weight-column applies to csv, tsv, JSON Lines, parquet and arrow sources, but {name} is read as {fmt}"
@@ -67,7 +70,7 @@ def _check_options(options: SourceOptions, fmt: str, name: str) -> None:
     if fmt in _COLUMNAR and name == "standard input":
         raise UsageError(f"{fmt} files are read from a file, not standard input")
     if options.integers not in INTEGER_FORMATS:
-        raise UsageError(f"--integers takes {' or '.join(INTEGER_FORMATS)}, not {options.integers!r}")
+        raise SettingError("integers", f"takes {' or '.join(INTEGER_FORMATS)}, not {options.integers!r}")
 
 
 class KeyStream:

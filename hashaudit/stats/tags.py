@@ -39,6 +39,7 @@ import numpy as np
 from numba import njit, uint64
 
 from hashaudit.errors import UsageError
+from hashaudit.settings import SettingError
 from hashaudit.stats._lazy import special
 from hashaudit.stats.outcome import Effect, FitTest
 from hashaudit.stats.tails import poisson_tails
@@ -75,10 +76,10 @@ def parse_tag_bits(text: str) -> tuple[int, int | None]:
     """
     match = _OPTION_PATTERN.fullmatch(text.strip()) if isinstance(text, str) else None
     if match is None:
-        raise UsageError(f"--tag-bits {text!r} is not of the form N or N@SHIFT (e.g. 7 or 8@56)")
+        raise SettingError("tag_bits", f"{text!r} is not of the form N or N@SHIFT (e.g. 7 or 8@56)")
     tag_bits = int(match.group(1))
     if not 1 <= tag_bits <= MAX_TAG_BITS:
-        raise UsageError(f"--tag-bits {text!r}: the number of tag bits must be 1 to {MAX_TAG_BITS}, not {tag_bits}")
+        raise SettingError("tag_bits", f"{text!r}: the number of tag bits must be 1 to {MAX_TAG_BITS}, not {tag_bits}")
     shift = match.group(2)
     return tag_bits, None if shift is None else int(shift)
 
@@ -197,16 +198,16 @@ def check_tag_layout(width: int, scheme: str, buckets: int, tag_bits: int, tag_s
     m = int(buckets)
     t = _whole(tag_bits, "tag_bits")
     if not 1 <= t <= MAX_TAG_BITS:
-        raise UsageError(f"--tag-bits {t}: the number of tag bits must be 1 to {MAX_TAG_BITS}")
+        raise SettingError("tag_bits", f"{t}: the number of tag bits must be 1 to {MAX_TAG_BITS}")
     bits = min(width, 64)
     s = bits - t if tag_shift is None else _whole(tag_shift, "tag_shift")
     if s < 0:
-        raise UsageError(f"--tag-bits {t}@{s}: SHIFT must be 0 or more")
+        raise SettingError("tag_bits", f"{t}@{s}: SHIFT must be 0 or more")
     problem = _layout_problem(scheme, m, bits, t, s)
     if problem is not None:
         usable = [shift for shift in range(bits - t + 1) if _layout_problem(scheme, m, bits, t, shift) is None]
         hint = f"SHIFT {_shift_ranges(usable)} would do" if usable else "no SHIFT works; use fewer tag bits or buckets"
-        raise UsageError(f"--tag-bits {t}@{s}: the tag bits {s}..{s + t - 1} {problem} ({hint})")
+        raise SettingError("tag_bits", f"{t}@{s}: the tag bits {s}..{s + t - 1} {problem} ({hint})")
     periods = _tag_periods(scheme, m, bits, t, s)
     values_per_bucket = 2.0**bits / m
     bound = 0.0

@@ -26,6 +26,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from hashaudit.errors import UsageError
+from hashaudit.settings import SettingError
 from hashaudit.tables.schemes import bucket_index, is_power_of_two
 from hashaudit.tables.simulate import ProbeCell, double_steps, insert_keys, measure, new_table
 from hashaudit.tables.sizes import is_prime, prime_above
@@ -72,11 +73,11 @@ def parse_growth(text: str, start: int = 16) -> GrowthPolicy:
     """``FACTOR@LOAD`` (e.g. ``2@0.75``, ``1.5@0.875``) into a policy."""
     match = re.fullmatch(r"\s*([0-9.]+)\s*@\s*([0-9.]+)\s*", text)
     if not match:
-        raise UsageError(f"--growth takes FACTOR@LOAD such as 2@0.75 or 1.5@0.875, not {text!r}")
+        raise SettingError("growth", f"takes FACTOR@LOAD such as 2@0.75 or 1.5@0.875, not {text!r}")
     try:
         return GrowthPolicy(start, float(match.group(1)), float(match.group(2)))
     except ValueError:
-        raise UsageError(f"--growth takes FACTOR@LOAD such as 2@0.75 or 1.5@0.875, not {text!r}") from None
+        raise SettingError("growth", f"takes FACTOR@LOAD such as 2@0.75 or 1.5@0.875, not {text!r}") from None
 
 
 def _scheme_for(slots: int, scheme: str) -> str:

@@ -24,6 +24,7 @@ import numpy as np
 from numba import njit, uint64
 
 from hashaudit.errors import UsageError
+from hashaudit.settings import SettingError
 
 SCHEMES = ("mod", "mask", "high", "range")
 MAX_BUCKETS = 1 << 32
@@ -39,11 +40,11 @@ def check_scheme(scheme: str, buckets: int) -> None:
     if scheme not in SCHEMES:
         raise UsageError(f"unknown scheme {scheme!r}; choose one of {', '.join(SCHEMES)}")
     if not isinstance(buckets, (int, np.integer)) or isinstance(buckets, bool) or buckets < 1:
-        raise UsageError(f"--buckets must be a positive integer, not {buckets!r}")
+        raise SettingError("buckets", f"must be a positive integer, not {buckets!r}")
     if buckets > MAX_BUCKETS:
-        raise UsageError(f"--buckets {buckets} is above the supported maximum 2^32")
+        raise SettingError("buckets", f"{buckets} is above the supported maximum 2^32")
     if scheme in ("mask", "high") and not is_power_of_two(int(buckets)):
-        raise UsageError(f"--scheme {scheme} needs a power-of-two table size; {buckets} is not (try mod or range)")
+        raise SettingError("schemes", f"{scheme} needs a power-of-two table size; {buckets} is not (try mod or range)")
 
 
 @njit(cache=True, nogil=True)

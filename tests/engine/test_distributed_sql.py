@@ -185,7 +185,7 @@ def test_the_split_column_must_be_in_the_query(lookups):
     with pytest.raises(InputError, match="no such column: lookups.nope"):
         plan_key_ranges(lookups, SourceOptions(db_table="lookups", columns=("parcel",), db_split_column="nope"))
     for bad in ({"db_split_column": "id; DROP TABLE lookups"}, {"db_split_column": "a.b"}, {"db_split_parts": 0},
-                {"db_split_column": "id", "split_parts": 4097}):  # fmt: skip
+                {"db_split_column": "id", "db_split_parts": 4097}):  # fmt: skip
         with pytest.raises(UsageError):
             plan_key_ranges(lookups, SourceOptions(db_table="lookups", columns=("parcel",), **bad))
     with pytest.raises(UsageError, match="apply to database sources"):

@@ -67,7 +67,7 @@ def test_default_is_fail():
 def test_unknown_value_is_a_usage_error(tmp_path):
     path = tmp_path / "k.txt"
     path.write_bytes(b"a\n")
-    with pytest.raises(UsageError, match=r"^--on-bad-record takes fail or skip, not 'maybe'$"):
+    with pytest.raises(UsageError, match=r"^on_bad_record takes fail or skip, not 'maybe'$"):
         open_keys(path, SourceOptions(on_bad_record="maybe"))
 
 

@@ -102,8 +102,8 @@ def test_stats_and_progress(tmp_path):
         (SourceOptions(pattern="("), "not a valid regular expression"),
         (SourceOptions(pattern="x"), "has no group"),
         (SourceOptions(batch_keys=0), "batch_keys must be a positive integer"),
-        (SourceOptions(field="id"), "--field applies to JSON Lines sources"),
-        (SourceOptions(delimiter=";"), "--delimiter applies to csv and tsv sources"),
+        (SourceOptions(field="id"), "field applies to JSON Lines sources"),
+        (SourceOptions(delimiter=";"), "delimiter applies to csv and tsv sources"),
         (SourceOptions(format="tsv", delimiter=""), "must be one ASCII character"),
     ],
 )

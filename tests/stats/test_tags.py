@@ -258,7 +258,7 @@ def test_parse_tag_bits(text, parsed):
 
 @pytest.mark.parametrize("text", ["", "x", "7@", "@3", "7@-1", "-7", "7.5", "7@5@3", "0x7", "0", "17", "8 @ 56"])
 def test_parse_tag_bits_refuses_bad_text(text):
-    one_line_usage_error(lambda: parse_tag_bits(text), "--tag-bits")
+    one_line_usage_error(lambda: parse_tag_bits(text), "tag_bits")
 
 
 def test_tag_bits_overlapping_the_mask_position_are_refused():

@@ -1,0 +1,13 @@
+"""Placement rules of widely deployed systems, reproduced bit for bit as batch kernels.
+
+Each module reproduces how one system turns a key into a partition, a slot or a bucket, so that an audit
+sees the keys exactly as that system spreads them:
+
+- :mod:`hashaudit.placements.kafka`: the message broker's JVM client, ``Utils.murmur2`` and the default
+  partitioner for keyed records.
+- :mod:`hashaudit.placements.redis_cluster`: the cluster's hash-tag rule, CRC16 and its 16384 hash slots.
+- :mod:`hashaudit.placements.jvm`: ``java.lang.String.hashCode`` of UTF-8 keys, the ``Math.abs(h % n)``
+  selector and ``java.util.HashMap``'s spread and bucket index.
+
+The package imports nothing itself, so that importing it does not load numba; import the module you need.
+"""
