@@ -325,6 +325,31 @@ def hashes(as_json, debug):  # type: ignore[no-untyped-def]
         click.echo(f"{s.name:<14} {s.width:>4}  {'yes' if s.seeded else 'no':<4}  {s.path:<7}  {s.description}")
 
 
+@cli.command()
+@click.option("--json", "as_json", is_flag=True, help="Print the rules as JSON.")
+@click.option("--debug", is_flag=True, help="Show the traceback of an error.")
+def placements(as_json, debug):  # type: ignore[no-untyped-def]
+    """List the placement rules of deployed systems that --placement reproduces (compiles nothing)."""
+    from hashaudit.placements.rules import RULES
+
+    rows = [
+        {
+            "name": r.name,
+            "parameters": {p.name: p.help for p in r.params},
+            "models": r.models,
+            "reference": r.reference,
+            "hash_bits": r.width,
+        }
+        for r in RULES.values()
+    ]
+    if as_json:
+        click.echo(json.dumps(rows, indent=2))
+        return
+    for row in rows:
+        params = ",".join(f"{name}=N" for name in row["parameters"])
+        click.echo(f"{row['name']}:{params}\n    {row['models']}\n    checked against {row['reference']}")
+
+
 def main(argv: list[str] | None = None) -> None:
     """Entry point: run the command, turning expected errors into one line on stderr and exit code 2."""
     try:

@@ -14,12 +14,25 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from hashaudit.checks import avalanche, bits, buckets, collisions, growth, neighbours, seeds, shards, tables, tags
+from hashaudit.checks import (
+    avalanche,
+    bits,
+    buckets,
+    collisions,
+    growth,
+    neighbours,
+    placement,
+    seeds,
+    shards,
+    tables,
+    tags,
+)
 from hashaudit.checks._base import NULL_LAWS, Check, CheckGroup, Conclusion, Tested
 from hashaudit.settings import AUDIT_SETTINGS, Setting, SettingError, by_name
 
 GROUPS: tuple[CheckGroup, ...] = tuple(
-    module.GROUP for module in (buckets, bits, collisions, neighbours, seeds, avalanche, tables, tags, growth, shards)
+    module.GROUP
+    for module in (buckets, bits, collisions, neighbours, seeds, avalanche, tables, tags, growth, shards, placement)
 )
 GROUP_BY_NAME: dict[str, CheckGroup] = {g.name: g for g in GROUPS}
 CHECKS: dict[str, Check] = {c.name: c for g in GROUPS for c in g.checks}

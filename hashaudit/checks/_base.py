@@ -102,6 +102,9 @@ class CheckGroup:
         Uses the bottom-k key sample (``hashaudit.stats.avalanche.KeySample``).
     needs_heavy : bool
         Uses the summary of the heaviest keys (``hashaudit.stats.heavy.HeavyKeys``).
+    subjects : str
+        What the group audits: ``hashes`` (the hash functions asked for) or ``placements`` (systems' placement
+        rules, each a subject of its own; ``hashaudit.placements.rules``).
     """
 
     name: str
@@ -118,6 +121,7 @@ class CheckGroup:
     before_read: Callable[[Any, list[int], list[tuple[str, int]]], None] | None = None
     needs_sample: bool = False
     needs_heavy: bool = False
+    subjects: str = "hashes"
 
     @property
     def check_names(self) -> tuple[str, ...]:

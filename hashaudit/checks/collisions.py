@@ -40,7 +40,9 @@ def _facts(ctx: Conclusion) -> list:
 
     if ctx.plan.all_keys:
         return []
-    return [duplicate_finding(state.spec.name, ctx.keys, ctx.occurrences) for state in ctx.states]
+    return [
+        duplicate_finding(state.spec.name, ctx.keys, ctx.occurrences) for state in ctx.states if GROUP in state.groups
+    ]
 
 
 GROUP = CheckGroup(

@@ -63,10 +63,10 @@ def conclude(
     ctx = Conclusion(plan, states, tables, keys, occurrences, sample, heavy)
     family: list[tuple[str, str | None, int | None, int, Any]] = []
     for state in states:
-        for group in plan.groups():
+        for group in state.groups:
             if group.conclude is not None:
                 family += [(state.spec.name, *tested) for tested in group.conclude(ctx, state)]
-        if sample is not None and len(sample) >= CURVE_MIN_SAMPLE:
+        if sample is not None and len(sample) >= CURVE_MIN_SAMPLE and state.spec.path != "placement":
             from hashaudit.stats.curves import no_collision_curve
 
             spec = state.spec

@@ -175,7 +175,7 @@ def _stage_read(part: _Partition, plan: AuditPlan, pairs: list, bits: int) -> tu
     from hashaudit.stats.avalanche import KeySample
     from hashaudit.stats.heavy import HeavyKeys
 
-    specs = [REGISTRY.get(name) for name in plan.hashes]
+    specs = plan.subjects(REGISTRY)
     loads = [HashState.build(spec, plan, pairs) for spec in specs]
     for state in loads:  # only the occurrence loads count here: the rest is stage 2's
         state.keep_only("loads")
@@ -248,7 +248,7 @@ def _stage_distinct(routed: list[list[tuple]], plan: AuditPlan, pairs: list,
                     candidates: np.ndarray | None = None) -> _Partial:  # fmt: skip
     """Stage 2: the first occurrence of every key of one fingerprint group, fed to the accumulators; and the loads
     of the heavy-key ``candidates`` (128-bit fingerprints, one row each)."""
-    specs = [REGISTRY.get(name) for name in plan.hashes]
+    specs = plan.subjects(REGISTRY)
     states = [HashState.build(spec, plan, pairs) for spec in specs]
     pieces = [piece for rows in routed for piece in rows]
     none = None if candidates is None else np.zeros(len(candidates), dtype=np.float64)

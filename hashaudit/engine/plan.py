@@ -132,6 +132,14 @@ class AuditPlan:
         """The check groups that run, in registry order."""
         return [g for g in GROUPS if g.name in self.checks]
 
+    def subjects(self, registry: Any = None) -> list:
+        """What the audit looks at: the hash functions (from ``registry``), then the placement rules."""
+        if registry is None:
+            from hashaudit.hashes.registry import REGISTRY
+
+            registry = REGISTRY
+        return [*(registry.get(name) for name in self.hashes), *self.placements]
+
 
 def _resolve(values: dict[str, Any]) -> None:
     """Defaults that depend on other settings, the groups' own preparation, and checks across settings."""

@@ -74,7 +74,7 @@ def audit_batches(
     started = time.perf_counter()
     # The statistics need scipy, which takes a while to import: load it while the keys stream through.
     threading.Thread(target=_import_quietly, args=("hashaudit.stats.fit",), daemon=True).start()
-    specs = [registry.get(name) for name in plan.hashes]
+    specs = plan.subjects(registry)
     pairs = plan.tables(keys)
     lanes = _lane_count(threads, len(specs))
     count_bytes = 8 * sum(m for _, m in pairs)  # one int64 per bucket per table, for one hash

@@ -29,22 +29,27 @@ class HashState:
 
     Attributes
     ----------
-    spec : HashSpec
+    spec : HashSpec or Placement
     parts : dict of str to list
         Accumulators by kind.
     feeds : dict of str to tuple of str
         What each kind is fed (see the module notes).
+    groups : list of CheckGroup
+        The running groups that audit this subject, in registry order.
     """
 
     spec: Any
     parts: dict[str, list[Any]] = field(default_factory=dict)
     feeds: dict[str, tuple[str, ...]] = field(default_factory=dict)
+    groups: list[Any] = field(default_factory=list)
 
     @classmethod
     def build(cls, spec: Any, plan: Any, tables: list[tuple[str, int]], lanes: int = 1) -> HashState:
-        """The accumulators every running group of ``plan`` needs for ``spec``."""
-        state = cls(spec)
-        for group in plan.groups():
+        """The accumulators every running group of ``plan`` that audits this kind of subject needs for ``spec``
+        (a hash function, or a placement rule: ``spec.path == "placement"``)."""
+        kind = "placements" if spec.path == "placement" else "hashes"
+        state = cls(spec, groups=[g for g in plan.groups() if g.subjects == kind])
+        for group in state.groups:
             if group.accumulators is None:
                 continue
             for kind, (feeds, accumulators) in group.accumulators(spec, plan, tables, lanes).items():

@@ -61,7 +61,7 @@ class KeyBatch:
         weights = None if self.weights is None else self.weights[start:stop]
         return KeyBatch(self.data, self.offsets[start : stop + 1], weights)
 
-    def take(self, positions: np.ndarray) -> KeyBatch:
+    def take(self, positions: np.ndarray | Sequence[int]) -> KeyBatch:
         """The keys at ``positions``, in that order, copied back to back; weights follow their keys.
 
         Parameters

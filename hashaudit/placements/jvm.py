@@ -13,7 +13,10 @@ after E0 only A0..BF, after ED only 80..9F, after F0 only 90..BF, after F4 only 
 the first byte that does not fit, or at the end of the key, the lead byte and the continuation bytes
 accepted so far become one U+FFFD, and decoding resumes *at* the byte that did not fit. A byte that
 cannot start a sequence (80..C1, F5..FF) is one U+FFFD on its own. So ``E2 82`` at the end of a key is one
-U+FFFD, an encoded surrogate ``ED A0 80`` is three, and the overlong ``C0 AF`` is two.
+U+FFFD, an encoded surrogate ``ED A0 80`` is three, and the overlong ``C0 AF`` is two. The JVM's decoder
+also replaces ill-formed input with U+FFFD; this rule is the Unicode Standard's recommended practice, and a
+JVM that grouped ill-formed bytes differently would give other hash codes for those keys only (keys that are
+well-formed UTF-8 are unaffected).
 
 ``java.util.HashMap`` does not use the hash code directly: it XORs the high half into the low half
 (``h ^ (h >>> 16)``) and takes the low bits, ``(table_size - 1) & spread``, for a power-of-two table.
@@ -125,8 +128,8 @@ def hashcode_mod(batch: KeyBatch, n: int) -> np.ndarray:
     """``Math.abs(key.hashCode() % n)`` for every key, with Java's ``%``.
 
     Java's ``%`` truncates (the remainder takes the sign of the dividend), so a negative hash code gives a
-    remainder in ``(-n, 0]`` and the absolute value folds it onto ``[0, n)``. Keys whose hash codes are
-    ``h`` and ``-h`` modulo ``n`` land together, so the buckets are not those of ``h mod n``.
+    remainder in ``(-n, 0]`` and the absolute value folds it onto ``[0, n)``: hash codes ``h`` and ``-h``
+    always share a partition, so the partitions are not those of ``h mod n``.
 
     Parameters
     ----------

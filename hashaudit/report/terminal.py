@@ -76,9 +76,12 @@ def render(result: AuditResult, *, show_all: bool = False, colour: bool = False)
     elif result.settings.get("all_keys"):
         counted = f"{result.keys:,} keys (every occurrence counted)"
     tables = len(result.tables)
+    functions = sum(h.path != "placement" for h in result.hashes)
+    placements = len(result.hashes) - functions
     lines.append(
-        f"hashaudit: {counted} from {sources}; {len(result.hashes)} hash functions"
+        f"hashaudit: {counted} from {sources}; {functions} hash function{'' if functions == 1 else 's'}"
         + (f", {tables} tables each" if tables else "")
+        + (f"; {placements} system placement" + ("s" if placements > 1 else "") if placements else "")
     )
     lines.append(
         f"verdict: {_tag(result.verdict, colour).strip()}   "

@@ -262,6 +262,9 @@ def movement_tests(counts: ShardCounts) -> list[FitTest]:
 
 def _ideal_moved(layout: ShardLayout, shards: int) -> float:
     """Share of uniformly random hash values that change shard from ``layout`` to ``shards`` shards."""
+    exact = layout.ideal_moved(shards) if hasattr(layout, "ideal_moved") else None
+    if exact is not None:  # a placement rule of a real system knows its own
+        return float(exact)
     if layout.scheme == "mod":
         a, b = layout.shards, shards
         if b % a == 0:  # h keeps its shard when h mod b < a

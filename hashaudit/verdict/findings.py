@@ -49,6 +49,8 @@ class Finding:
     def table(self) -> str:
         """Short label of the table, e.g. ``mask 2^16`` or ``mod 65521`` (``linear mask 2^16`` for a simulated
         table)."""
+        if "unit" in self.details:  # a system's placement: its units by their own name
+            return f"{self.details['shards']} {self.details['unit']}s"
         if "shard_scheme" in self.details:
             return f"{self.details['shard_scheme']} {self.details['shards']} shards"
         label = table_label(self.scheme, self.buckets)

@@ -46,7 +46,9 @@ def numbered(path: Path, **options) -> list[tuple[int, bytes]]:
     normaliser = Normaliser(settings_)
     with open(path, "rb") as stream:
         if settings_.field:
-            batches = read_jsonl(stream, path.name, settings_.field, stats, weight=settings_.weight_column, skip_bad=True)
+            batches = read_jsonl(
+                stream, path.name, settings_.field, stats, weight=settings_.weight_column, skip_bad=True
+            )
         else:
             batches = lines_module.read_lines(stream, path.name, skip_bad=True, stats=stats)
         pairs = []

@@ -62,7 +62,9 @@ def test_no_header(tmp_path):
     path.write_bytes(b"a,1\nb,2\n")
     assert read_all(path, header=False) == [b"a", b"b"]
     assert read_all(path, header=False, columns=("1", "0")) == [b"1|a", b"2|b"]
-    with pytest.raises(UsageError, match=r"the files have no header row \(header false\), so give columns as 0-based numbers"):
+    with pytest.raises(
+        UsageError, match=r"the files have no header row \(header false\), so give columns as 0-based numbers"
+    ):
         read_all(path, header=False, columns=("name",))
 
 
