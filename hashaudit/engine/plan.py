@@ -133,12 +133,15 @@ class AuditPlan:
         return [g for g in GROUPS if g.name in self.checks]
 
     def subjects(self, registry: Any = None) -> list:
-        """What the audit looks at: the hash functions (from ``registry``), then the placement rules."""
+        """What the audit looks at: the hash functions (from ``registry``), then the placement rules; each only
+        when a running check group audits its kind."""
         if registry is None:
             from hashaudit.hashes.registry import REGISTRY
 
             registry = REGISTRY
-        return [*(registry.get(name) for name in self.hashes), *self.placements]
+        kinds = {g.subjects for g in self.groups()}
+        hashes = [registry.get(name) for name in self.hashes] if "hashes" in kinds else []
+        return [*hashes, *(self.placements if "placements" in kinds else ())]
 
 
 def _resolve(values: dict[str, Any]) -> None:

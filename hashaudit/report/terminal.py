@@ -78,11 +78,14 @@ def render(result: AuditResult, *, show_all: bool = False, colour: bool = False)
     tables = len(result.tables)
     functions = sum(h.path != "placement" for h in result.hashes)
     placements = len(result.hashes) - functions
-    lines.append(
-        f"hashaudit: {counted} from {sources}; {functions} hash function{'' if functions == 1 else 's'}"
-        + (f", {tables} tables each" if tables else "")
-        + (f"; {placements} system placement" + ("s" if placements > 1 else "") if placements else "")
-    )
+    subjects = []
+    if functions:
+        subjects.append(
+            f"{functions} hash function{'' if functions == 1 else 's'}" + (f", {tables} tables each" if tables else "")
+        )
+    if placements:
+        subjects.append(f"{placements} system placement{'' if placements == 1 else 's'}")
+    lines.append(f"hashaudit: {counted} from {sources}; {'; '.join(subjects)}")
     lines.append(
         f"verdict: {_tag(result.verdict, colour).strip()}   "
         f"({counts['fail']} fail, {counts['warn']} warn, {counts['info']} info, {counts['pass']} pass; "

@@ -151,3 +151,27 @@ def test_placements_appear_in_every_report(tmp_path):
     for path in out.values():
         assert "kafka:partitions=8" in path.read_text(encoding="utf-8"), path
     assert json.loads(out["json"].read_text())["settings"]["placements"] == ["kafka:partitions=8"]
+
+
+def test_the_readme_placement_example_is_what_the_command_prints():
+    """README.md quotes this audit's output: every quoted line must be printed as it stands."""
+    import pathlib
+    import re
+    import shlex
+
+    readme = (pathlib.Path(__file__).parents[2] / "README.md").read_text(encoding="utf-8")
+    blocks = re.findall(r"^```[a-z]*\n(.*?)^```$", readme, re.S | re.M)
+    block = next(b for b in blocks if "--placement kafka:partitions=16" in b)
+    lines = block.splitlines()
+    command_lines = []
+    while lines and (lines[0].startswith("$ ") or (command_lines and command_lines[-1].endswith("\\"))):
+        command_lines.append(lines.pop(0))
+    command = " ".join(line.removeprefix("$ ").rstrip("\\").strip() for line in command_lines)
+    args = shlex.split(command)[1:]
+    root = pathlib.Path(__file__).parents[2]
+    args = [str(root / a) if a.startswith("sample_keys/") else a for a in args]
+    code, out, _ = run(args)
+    printed = out.replace(str(root) + "/", "").splitlines()
+    assert code == 0
+    for quoted in (line for line in lines if line.strip()):
+        assert quoted in printed, quoted
