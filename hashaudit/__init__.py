@@ -47,6 +47,7 @@ __all__ = sorted([*_EXPORTS, "__version__"])
 
 def __getattr__(name: str):  # type: ignore[no-untyped-def]
     if name in _EXPORTS:
+        importlib.import_module("hashaudit.hashes")  # registers the statistics' default key fingerprints
         value = getattr(importlib.import_module(_EXPORTS[name]), name)
         globals()[name] = value
         return value

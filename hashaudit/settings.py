@@ -194,7 +194,8 @@ class Setting:
             return f"between {_number(low)} and {_number(high)}" + (" (exclusive)" if self.open_range else "")
         if low is not None:
             return f"above {_number(low)}" if self.open_range else f"at least {_number(low)}"
-        return f"below {_number(high)}" if self.open_range else f"at most {_number(high)}"
+        limit = _number(high if high is not None else math.inf)
+        return f"below {limit}" if self.open_range else f"at most {limit}"
 
     def _convert(self, raw: Any) -> Any:
         kind = self.kind

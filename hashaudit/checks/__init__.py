@@ -93,6 +93,7 @@ class Thresholds:
     """
 
     __slots__ = ("_values",)
+    _values: dict[str, float]
 
     def __init__(self, **values: float) -> None:
         declared = threshold_settings()

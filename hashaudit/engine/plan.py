@@ -39,6 +39,7 @@ class AuditPlan:
     """
 
     __slots__ = ("_values",)
+    _values: dict[str, Any]
 
     def __init__(self, **settings: Any) -> None:
         declared = plan_settings()

@@ -87,7 +87,7 @@ def test_weighted_loads_with_automatic_table_sizes_match_the_local_engine(tmp_pa
 
 def test_every_check_group_gives_the_local_engines_report(tmp_path):
     """All groups at once (seeds, neighbours, growth and tags included), on keys with repeats and a hot key."""
-    from hashaudit.engine.checks import CHECK_GROUPS
+    from hashaudit.checks import GROUP_BY_NAME
 
     rng = np.random.default_rng(23)
     keys = [b"crate-%d" % x for x in rng.integers(0, 20_000, size=40_000)]
@@ -95,7 +95,7 @@ def test_every_check_group_gives_the_local_engines_report(tmp_path):
     path = tmp_path / "keys.txt"
     path.write_bytes(b"\n".join(keys) + b"\n")
     plan = AuditPlan(
-        hashes=("murmur3_32", "fnv1a_64"), checks=tuple(CHECK_GROUPS), shards=(4, 16), tag_bits=(7, None), seed=9
+        hashes=("murmur3_32", "fnv1a_64"), checks=tuple(GROUP_BY_NAME), shards=(4, 16), tag_bits=(7, None), seed=9
     )
     local = audit([path], plan)
     dist = audit_dask([str(path)], plan, workers=2, partition_bytes=60_000, prefix_bits=2)

@@ -57,9 +57,9 @@ def test_public_names_are_sorted_and_resolve() -> None:
 
 def test_every_check_has_a_known_null_law_kind() -> None:
     assert set(NULL_LAW.values()) <= set(NULL_LAW_KINDS)
-    # the combined checks are conservative by design; duplicate_keys is a fact, outside Holm's family
+    # the combined checks are conservative by design; repeated and heavy keys are facts, outside Holm's family
     assert COMBINED_CHECKS == ("avalanche", "bit_independence", "probe_cost")
-    assert FACT_CHECKS == ("duplicate_keys",)
+    assert FACT_CHECKS == ("duplicate_keys", "hot_keys", "load_attribution")
 
 
 # ---------------------------------------------------------------------------------------------------------
