@@ -18,7 +18,7 @@ from hashaudit.checks import group_settings
 from hashaudit.cli_settings import SectionedCommand, SizeType, as_flags, options
 from hashaudit.errors import HashAuditError, UsageError
 from hashaudit.keys.options import SOURCE_SETTINGS
-from hashaudit.report.writers import WRITERS
+from hashaudit.report.writers import WRITERS, check_outputs
 from hashaudit.settings import AUDIT_SETTINGS, RUN_SETTINGS, Setting, SettingError
 
 EXIT_OK, EXIT_FAIL, EXIT_ERROR = 0, 1, 2
@@ -95,15 +95,6 @@ def _source_options(values: dict):  # type: ignore[no-untyped-def]
     return options
 
 
-def _refuse_overwriting_inputs(outputs: list[str | None], sources: tuple[str, ...] | list[str]) -> None:
-    for out in outputs:
-        if not out or out == "-":
-            continue
-        for src in sources:
-            if src != "-" and os.path.exists(out) and os.path.exists(src) and os.path.samefile(out, src):
-                raise UsageError(f"refusing to write the report over the input {src!r}")
-
-
 def _show(result, quiet: bool, show_all: bool, color: bool | None, comparison=None) -> None:  # type: ignore[no-untyped-def]
     """The terminal report (and the baseline comparison) on standard output."""
     if quiet:
@@ -140,7 +131,7 @@ def audit(sources, databases, show_keys, show_all, quiet, color, debug, engine, 
     if not sources:
         raise UsageError("give a SOURCE (a key file, - for standard input) or --db URL")
     outputs = _take(values, REPORT_SETTINGS)
-    _refuse_overwriting_inputs(list(outputs.values()), sources)
+    check_outputs(outputs, list(sources))
     options_ = _source_options(values)
     thresholds = Thresholds(**_take(values, threshold_settings()))
     plan = AuditPlan(thresholds=thresholds, **_take(values, plan_settings()))
@@ -186,8 +177,8 @@ def gate(config_path, baseline, tolerance, show_all, quiet, color, debug, thread
 
     config = load_config(config_path)
     outputs = {name: outputs.get(name) or config.reports.get(name) for name in WRITERS}
-    _refuse_overwriting_inputs(list(outputs.values()), tuple(config.sources))
     base_path = baseline or config.baseline
+    check_outputs(outputs, [*config.sources, str(config.path), *([base_path] if base_path else [])])
     old = read_baseline(base_path) if base_path else None  # read before the audit: a bad baseline fails fast
     progress = _progress(quiet)
     try:
@@ -248,7 +239,7 @@ def plan(
     from hashaudit.stats.theory import plan_capacity
     from hashaudit.tables.planner import parse_target, recommend
 
-    _refuse_overwriting_inputs([json_path], sources)
+    check_outputs({"json": json_path}, list(sources))
     values, value_width = None, 64
     if sources:
         from hashaudit.engine.sources import measure_keys

@@ -22,7 +22,7 @@ class SizeType(click.ParamType):
 
     def convert(self, value, param, ctx):  # type: ignore[no-untyped-def]
         from hashaudit.errors import UsageError
-        from hashaudit.tables.sizes import parse_size
+        from hashaudit.settings import parse_size
 
         if isinstance(value, int):
             return value

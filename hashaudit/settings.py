@@ -61,12 +61,29 @@ class SettingError(UsageError):
         return f"{spell(self.setting)} {reason}" if not reason.startswith(":") else f"{spell(self.setting)}{reason}"
 
 
-def declared_names() -> frozenset[str]:
-    """The name of every declared setting (the audit's, every check group's, the sources', how it runs)."""
-    from hashaudit.checks import group_settings
-    from hashaudit.keys.options import SOURCE_SETTINGS
+_DECLARED: set[str] = set()
+"""The name of every setting declared so far (each declaration adds its own; no module is imported for it)."""
 
-    return frozenset(s.name for s in (*AUDIT_SETTINGS, *RUN_SETTINGS, *group_settings(), *SOURCE_SETTINGS))
+
+def declared_names() -> frozenset[str]:
+    """The name of every declared setting."""
+    return frozenset(_DECLARED)
+
+
+def parse_size(value: object) -> int:
+    """A size written ``65536``, ``2^16``, ``1<<16`` or ``64k``/``1m``/``1g`` (binary multiples)."""
+    if isinstance(value, int) and not isinstance(value, bool):
+        return value
+    text = str(value).strip().lower().replace("_", "")
+    if m := re.fullmatch(r"(?:2\^|1<<)(\d{1,4})", text):
+        if int(m.group(1)) > 64:
+            raise UsageError(f"{value!r} is far above any table size (at most 2^32)")
+        return 1 << int(m.group(1))
+    if m := re.fullmatch(r"(\d+)([kmg])", text):
+        return int(m.group(1)) << {"k": 10, "m": 20, "g": 30}[m.group(2)]
+    if re.fullmatch(r"\d+", text):
+        return int(text)
+    raise UsageError(f"{value!r} is not a table size (examples: 65536, 2^16, 64k)")
 
 
 @dataclass(frozen=True)
@@ -138,6 +155,7 @@ class Setting:
     def __post_init__(self) -> None:
         if self.section not in SECTIONS or self.kind not in KINDS:
             raise ValueError(f"setting {self.name}: bad section {self.section!r} or kind {self.kind!r}")
+        _DECLARED.add(self.name)
 
     @property
     def option(self) -> str:
@@ -217,8 +235,6 @@ class Setting:
                 if isinstance(raw, str):
                     return float(raw)
             elif kind == "size":
-                from hashaudit.tables.sizes import parse_size
-
                 if isinstance(raw, int | str):
                     return parse_size(raw)
             elif kind == "text":

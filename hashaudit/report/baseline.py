@@ -147,31 +147,82 @@ def compare(new: dict, old: dict, tolerance: float) -> list[dict]:
     return rows
 
 
+MAX_BASELINE_BYTES = 1 << 30  # far above any report; a bigger "report" is not one
+
+
 def read_baseline(path: str) -> dict:
-    """Read an earlier JSON report.
+    """Read an earlier JSON report and check its shape.
 
     Parameters
     ----------
     path : str
-        The report's file.
+        The report's file: a regular file (not a device or a pipe, which may never end).
 
     Returns
     -------
     dict
-        The report as JSON data.
+        The report as JSON data, with the fields the comparison reads checked.
 
     Raises
     ------
     UsageError
-        One line, when the file is missing or is not JSON.
+        One line, when the file is missing, not a regular file, too big, not JSON, or not shaped like a report.
     """
+    import os
+    import stat
+
     try:
-        with open(path, encoding="utf-8") as f:
-            return json.load(f)
+        info = os.stat(path)
     except FileNotFoundError:
         raise UsageError(f"baseline {path!r}: no such file") from None
+    except OSError as exc:
+        raise UsageError(f"baseline {path!r}: cannot be read ({exc.strerror or exc})") from None
+    if not stat.S_ISREG(info.st_mode):
+        raise UsageError(f"baseline {path!r}: not a regular file")
+    if info.st_size > MAX_BASELINE_BYTES:
+        raise UsageError(f"baseline {path!r}: {info.st_size:,} bytes is not a report")
+    try:
+        with open(path, encoding="utf-8") as f:
+            document = json.load(f)
     except (OSError, ValueError) as exc:
         raise UsageError(f"baseline {path!r}: not a JSON report ({exc})") from None
+    problem = _shape_problem(document)
+    if problem:
+        raise UsageError(f"baseline {path!r}: not a hashaudit report ({problem})")
+    return document
+
+
+def _shape_problem(document: object) -> str | None:
+    """What keeps ``document`` from being compared as a report (None when nothing)."""
+    if not isinstance(document, dict):
+        return "not a JSON object"
+    if not str(document.get("schema", "")).startswith("hashaudit.audit/"):
+        return "no 'schema' of hashaudit.audit/…"
+    hashes = document.get("hashes")
+    if not isinstance(hashes, list):
+        return "'hashes' is not a list"
+    for i, entry in enumerate(hashes):
+        if not isinstance(entry, dict) or not isinstance(entry.get("name"), str):
+            return f"hashes[{i}] has no name"
+        checks = entry.get("checks")
+        if not isinstance(checks, list):
+            return f"hashes[{i}].checks is not a list"
+        for j, check in enumerate(checks):
+            if not isinstance(check, dict) or not isinstance(check.get("name"), str):
+                return f"hashes[{i}].checks[{j}] has no name"
+            if check.get("verdict") not in VERDICT_RANK:
+                return f"hashes[{i}].checks[{j}] has no verdict of {', '.join(VERDICT_RANK)}"
+            for key in ("scheme", "table_kind", "shard_scheme"):
+                if check.get(key) is not None and not isinstance(check[key], str):
+                    return f"hashes[{i}].checks[{j}].{key} is not a string"
+            for key in ("buckets", "shards"):
+                value = check.get(key)
+                if value is not None and (isinstance(value, bool) or not isinstance(value, int)):
+                    return f"hashes[{i}].checks[{j}].{key} is not an integer"
+            effect = check.get("effect")
+            if effect is not None and not isinstance(effect, dict):
+                return f"hashes[{i}].checks[{j}].effect is not an object"
+    return None
 
 
 def comparison_text(rows: list[dict]) -> str:

@@ -1,8 +1,7 @@
 """The report formats, declared once each: name, file suffix, help text and the function that writes the report.
 
 Every file is written atomically (a temporary file renamed into place), so a failed write loses nothing. The path
-``-`` sends the JSON and Markdown reports to standard output; the JUnit XML and HTML writers take ``-`` as an
-ordinary file name, as they always have. A baseline comparison (``hashaudit gate --baseline``) goes into the JSON
+``-`` sends a report to standard output (at most one of them: ``check_outputs`` refuses two). A baseline comparison (``hashaudit gate --baseline``) goes into the JSON
 report as its ``baseline`` block, into the Markdown report as a table and into the JUnit report as a test suite;
 the HTML report does not show it.
 """
@@ -122,10 +121,9 @@ def _write_junit(
     stdout: IO[str] | None = None,
 ) -> None:
     """The JUnit XML report; it never shows keys, and ``-`` is a file name here."""
-    from hashaudit.report.json_report import write_text_atomically
     from hashaudit.report.junit import render_junit
 
-    write_text_atomically(path, render_junit(result, comparison=_rows(comparison)))
+    _emit(path, render_junit(result, comparison=_rows(comparison)), stdout)
 
 
 def _write_html(
@@ -137,9 +135,9 @@ def _write_html(
     stdout: IO[str] | None = None,
 ) -> None:
     """The HTML page; it does not show the comparison, and ``-`` is a file name here."""
-    from hashaudit.report.html import write_html
+    from hashaudit.report.html import render_html
 
-    write_html(result, path, show_keys=show_keys)
+    _emit(path, render_html(result, show_keys=show_keys), stdout)
 
 
 WRITERS: dict[str, ReportWriter] = {
@@ -185,3 +183,70 @@ def write_reports(
         path = outputs.get(name)
         if path:
             writer.write(result, path, show_keys=show_keys, comparison=comparison)
+
+
+def check_outputs(outputs: dict[str, str | None], inputs: list[str]) -> None:
+    """Refuse, before any key is read, a report path that cannot be written or would replace something.
+
+    An output may not be an input in any form (a key file, an SQLite file behind a URL, the gate's config, the
+    baseline), not something other than a regular file (a folder, a link, a pipe, a device), not in a folder that
+    does not exist or cannot be written, and not the path of another report. ``-`` is standard output, for one
+    report at most.
+
+    Parameters
+    ----------
+    outputs : dict of str to str or None
+        A path per format name.
+    inputs : list of str
+        Every file or URL the run reads.
+
+    Raises
+    ------
+    UsageError
+        One line naming the output and the reason.
+    """
+    import os
+    import stat
+
+    from hashaudit.errors import UsageError
+
+    given = [(name, str(path)) for name, path in outputs.items() if path]
+    if sum(path == STDOUT for _, path in given) > 1:
+        raise UsageError("only one report can go to standard output ('-')")
+    seen: dict[str, str] = {}
+    read = [p for p in (_file_of(i) for i in inputs) if p and os.path.exists(p)]
+    for name, path in given:
+        if path == STDOUT:
+            continue
+        real = os.path.realpath(path)
+        if real in seen:
+            raise UsageError(f"--{name} {path!r} is also the path of the {seen[real]} report")
+        seen[real] = name
+        try:
+            info = os.lstat(path)
+        except FileNotFoundError:
+            info = None
+        if info is not None and not stat.S_ISREG(info.st_mode):
+            raise UsageError(f"refusing to write the {name} report over {path!r}: not a regular file")
+        if info is not None and any(os.path.samefile(path, other) for other in read):
+            raise UsageError(f"refusing to write the {name} report over {path!r}: it is an input")
+        folder = os.path.dirname(os.path.abspath(path))
+        if not os.path.isdir(folder):
+            raise UsageError(f"cannot write the {name} report {path!r}: folder {folder!r} does not exist")
+        if not os.access(folder, os.W_OK):
+            raise UsageError(f"cannot write the {name} report {path!r}: folder {folder!r} is not writable")
+
+
+def _file_of(source: str) -> str | None:
+    """The local file behind an input: the path itself, or an SQLite URL's file (None: no local file)."""
+    if source == STDOUT:
+        return None
+    if "://" not in source:
+        return source
+    from urllib.parse import unquote, urlsplit
+
+    parts = urlsplit(source)
+    if parts.scheme.startswith("sqlite") and parts.path:
+        path = unquote(parts.path)
+        return path[1:] if path.startswith("/") else path  # sqlite:///rel.db is relative, sqlite:////abs.db absolute
+    return None

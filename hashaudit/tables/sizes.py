@@ -4,31 +4,14 @@ from __future__ import annotations
 
 import math
 
+from hashaudit.settings import parse_size
 from hashaudit.tables.schemes import is_power_of_two
+
+__all__ = ["auto_sizes", "is_prime", "parse_size", "prime_above"]
 
 DEFAULT_LOAD_FACTORS = (0.5, 1.0, 2.0)
 MAX_AUTO_BUCKETS = 1 << 22  # 32 MiB of counts per table; memory stays flat however many keys there are
 MIN_AUTO_BUCKETS = 2
-
-
-def parse_size(value: object) -> int:
-    """A size written ``65536``, ``2^16``, ``1<<16`` or ``64k``/``1m``/``1g`` (binary multiples)."""
-    import re
-
-    from hashaudit.errors import UsageError
-
-    if isinstance(value, int) and not isinstance(value, bool):
-        return value
-    text = str(value).strip().lower().replace("_", "")
-    if m := re.fullmatch(r"(?:2\^|1<<)(\d{1,4})", text):
-        if int(m.group(1)) > 64:
-            raise UsageError(f"{value!r} is far above any table size (at most 2^32)")
-        return 1 << int(m.group(1))
-    if m := re.fullmatch(r"(\d+)([kmg])", text):
-        return int(m.group(1)) << {"k": 10, "m": 20, "g": 30}[m.group(2)]
-    if re.fullmatch(r"\d+", text):
-        return int(text)
-    raise UsageError(f"{value!r} is not a table size (examples: 65536, 2^16, 64k)")
 
 
 def is_prime(n: int) -> bool:
