@@ -11,7 +11,7 @@ from typing import Any
 
 from hashaudit.engine.plan import AuditPlan
 from hashaudit.engine.runner import audit_batches
-from hashaudit.errors import UsageError
+from hashaudit.errors import InputError, UsageError
 from hashaudit.keys import open_keys
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.options import SourceOptions
@@ -63,6 +63,8 @@ def audit(
                     f"reading {what}: give --buckets (table sizes are otherwise derived from the key count, "
                     "which needs a first pass over the input)"
                 )
+    files = [str(s) for s in sources if str(s) != "-" and os.path.isfile(s)]
+    stamps = {f: _stamp(f) for f in files}  # each pass must read the same files: checked before every re-read
     streams = [open_keys(s, o) for s, o in zip(sources, per_source, strict=True)]
     attach = getattr(progress, "attach", None)
     if attach is not None:
@@ -85,6 +87,7 @@ def audit(
     readable_again = all(str(s) != "-" and (os.path.isfile(s) or is_database(str(s))) for s in sources)
 
     def reopen() -> Iterator[KeyBatch]:
+        _check_unchanged(stamps)
         streams[:] = [open_keys(s, o) for s, o in zip(sources, per_source, strict=True)]  # the last complete read
         return itertools.chain.from_iterable(streams)
 
@@ -97,6 +100,8 @@ def audit(
         key_estimate=estimate,
         reopen=reopen if readable_again else None,
     )
+    if result.run.get("passes", 1) > 1 or keys is not None:
+        _check_unchanged(stamps)  # a change during the last of several reads
     described = tuple({**stream.description, "stats": _stats_dict(stream.stats)} for stream in streams)
     final = dataclasses.replace(result, sources=described)
     if show_keys:
@@ -104,6 +109,25 @@ def audit(
 
         attach_colliding_keys(final, sources, per_source, plan.seed)
     return final
+
+
+def _stamp(path: str) -> tuple[int, int, int]:
+    info = os.stat(path)
+    return info.st_size, info.st_mtime_ns, info.st_ino
+
+
+def _check_unchanged(stamps: dict[str, tuple[int, int, int]]) -> None:
+    """Refuse to go on when a file read in several passes changed between them (each pass must see the same keys)."""
+    for path, stamp in stamps.items():
+        try:
+            now = _stamp(path)
+        except OSError:
+            now = None
+        if now != stamp:
+            raise InputError(
+                f"{path!r} changed while it was being read (size, modification time or file): the passes over it "
+                "would not count the same keys; audit a copy that does not change"
+            )
 
 
 def _per_source(options: SourceOptions | Sequence[SourceOptions] | None, count: int) -> list[SourceOptions]:
