@@ -302,6 +302,9 @@ def by_name(settings: Iterable[Setting]) -> dict[str, Setting]:
     return out
 
 
+DEFAULT_HASHES: tuple[str, ...] = ("murmur3_32", "xxh3_64", "fnv1a_32", "crc32")
+"""The hash functions audited when none is named: two strong ones and two in wide use."""
+
 # -- the audit's own settings (each check group declares its own in hashaudit.checks) -----------------------------
 
 
@@ -309,7 +312,7 @@ AUDIT_SETTINGS: tuple[Setting, ...] = (
     Setting(
         "hashes",
         "hashes",
-        "Hash function (repeatable): a registry name or module:function.",
+        "Hash function (repeatable): a registry name or module:function. Default: " + ", ".join(DEFAULT_HASHES) + ".",
         default=(),
         repeatable=True,
         flag="--hash",

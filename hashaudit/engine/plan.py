@@ -147,7 +147,7 @@ class AuditPlan:
 
 def _resolve(values: dict[str, Any]) -> None:
     """Defaults that depend on other settings, the groups' own preparation, and checks across settings."""
-    from hashaudit.hashes.registry import DEFAULT_HASHES
+    from hashaudit.settings import DEFAULT_HASHES
     from hashaudit.tables.schemes import check_scheme, is_power_of_two
 
     values["hashes"] = tuple(dict.fromkeys(values["hashes"] or DEFAULT_HASHES))

@@ -130,8 +130,6 @@ _BUILTINS: tuple[HashSpec, ...] = (
     ),
 )
 
-DEFAULT_HASHES: tuple[str, ...] = ("murmur3_32", "xxh3_64", "fnv1a_32", "crc32")
-
 
 class HashRegistry:
     """Named hash functions: the built-ins, plugins from the ``hashaudit.hashes`` entry-point group,

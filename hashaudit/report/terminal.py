@@ -7,6 +7,7 @@ from collections import OrderedDict
 import click
 
 from hashaudit.checks import CHECKS
+from hashaudit.settings import DEFAULT_HASHES
 from hashaudit.verdict.findings import VERDICT_ORDER, Finding
 from hashaudit.verdict.result import AuditResult
 
@@ -81,7 +82,9 @@ def render(result: AuditResult, *, show_all: bool = False, colour: bool = False)
     subjects = []
     if functions:
         subjects.append(
-            f"{functions} hash function{'' if functions == 1 else 's'}" + (f", {tables} tables each" if tables else "")
+            f"{functions} hash function{'' if functions == 1 else 's'}"
+            + (" (the default set)" if tuple(result.settings.get("hashes", ())) == DEFAULT_HASHES else "")
+            + (f", {tables} table{'' if tables == 1 else 's'} each" if tables else "")
         )
     if placements:
         subjects.append(f"{placements} system placement{'' if placements == 1 else 's'}")
