@@ -8,10 +8,23 @@ identifiers. Rows stream in batches: SQLite through ``fetchmany``; SQLAlchemy wi
 (``stream_results``) and ``Result.yield_per`` — the ``yield_per`` execution option is ignored for ``text()``
 queries, so it is called on the result —; ADBC as Arrow record batches, converted like a Parquet column.
 
-Sessions are read-only: SQLite files open with ``mode=ro`` and ``PRAGMA query_only``; PostgreSQL sessions start
-with ``default_transaction_read_only`` on, so a query that writes is refused by the database itself. Credentials may
-come from the environment (``PGPASSWORD``, ``PGUSER``… are read by libpq); a password in a URL never appears in a
-report or a message: :func:`mask_url` replaces it with ``***``, and messages from the database are cleaned of it.
+Sessions are read-only, and a query may only read:
+
+- SQLite (a file path, and every ``sqlite://`` URL form, read through the standard library, not SQLAlchemy) opens
+  ``file:PATH?mode=ro`` as a URI, so a missing file is an error and never created, sets ``PRAGMA query_only`` and
+  installs an authorizer (``sqlite3.Connection.set_authorizer``) that allows reading tables, calling ordinary
+  functions and recursive common table expressions, and denies every other action: writes, ``PRAGMA``, ``ATTACH``
+  (which ``VACUUM INTO`` uses), transactions. A refused action is a one-line error naming it.
+- A database server (PostgreSQL through ADBC or SQLAlchemy + psycopg; any other SQLAlchemy dialect) gets one
+  statement that is a query: it starts with ``SELECT``, ``WITH``, ``VALUES`` or ``TABLE`` and calls none of the
+  server functions in ``DENIED_FUNCTIONS`` (see :func:`check_query`). PostgreSQL sessions also start with
+  ``default_transaction_read_only`` on, so a query that writes a table is refused by the database itself; a
+  read-only transaction does not stop a superuser's ``COPY … TO 'file'`` or the large-object functions, hence the
+  check. The real safeguard on a server is a least-privilege role.
+
+Credentials may come from the environment (``PGPASSWORD``, ``PGUSER``… are read by libpq); a credential in a URL
+never appears in a report or a message: :func:`mask_url` replaces the authority's password and every secret query
+parameter (``SECRET_PARAMETERS``) with ``***``, and messages from the database are cleaned of them.
 
 Key ranges (the Dask engine's ``--db-split-column``): :func:`plan_key_ranges` runs one query over the source's query
 (``min``, ``max``, ``count`` of the split column and ``count(*)``). Integer columns are cut into ranges of equal
@@ -29,12 +42,13 @@ range is read in its own session: a table that changes during the audit is read 
 from __future__ import annotations
 
 import contextlib
+import itertools
 import os
 import re
-from collections.abc import Iterator
-from dataclasses import replace
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass, replace
 from typing import Any
-from urllib.parse import urlsplit
+from urllib.parse import parse_qsl, quote, unquote
 
 import numpy as np
 
@@ -58,25 +72,285 @@ def is_database(source: str) -> bool:
     return bool(_URL.match(source)) or source.lower().endswith(SQLITE_SUFFIXES)
 
 
+# Query parameters that carry a credential (compared case-insensitively, after percent-decoding the name).
+SECRET_PARAMETERS = frozenset(
+    {"password", "passwd", "pwd", "sslpassword", "token", "access_token", "secret", "api_key", "apikey"}
+)
+# The password of the authority: from the first ``:`` of the user part to the LAST ``@`` of the URL, so that one
+# holding a raw ``@``, ``/`` or ``?`` is masked whole (an ``@`` later in the URL masks more, never less).
+_USERINFO = re.compile(r"(?P<head>[A-Za-z][A-Za-z0-9+.\-]*://[^/:@?#\s]*:)(?P<secret>.*)@", re.DOTALL)
+# A query parameter ``name=value``; the value runs to the next ``&name=`` (or ``;name=``) or the end, so that one
+# holding a raw ``&`` or ``#`` is masked whole.
+_PARAMETER = re.compile(r"(?P<head>[?&;](?P<key>[^=&;?#/\s]+)=)(?P<value>.*?)(?=[&;][^=&;?#/\s]+=|\Z)", re.DOTALL)
+_URL_WORD = re.compile(r"\b[A-Za-z][A-Za-z0-9+.\-]*://\S*")
+
+
 def mask_url(url: str) -> str:
-    """The URL with any password replaced by ``***`` (``postgresql://ann:***@db/x``)."""
-    return re.sub(r"(://[^/:@]*):[^@/]*@", r"\1:***@", url)
+    """The URL with every credential replaced by ``***``.
+
+    The authority's password (``postgresql://ann:***@db/x``), taken to the last ``@`` of the URL, and the value of
+    every query parameter named in ``SECRET_PARAMETERS`` (``?user=ann&password=***``). Text that is no URL (a file
+    path) is returned as it is. The whole string is one URL; :func:`mask_urls_in` masks the URLs inside a text.
+
+    Parameters
+    ----------
+    url : str
+        A database URL, or a file path.
+
+    Returns
+    -------
+    str
+        The URL with its credentials masked; more than a credential may be masked, never less.
+
+    Examples
+    --------
+    >>> mask_url("postgresql://ann:p@ss@db/x?user=ann&password=hunter2")
+    'postgresql://ann:***@db/x?user=ann&password=***'
+    """
+    if "://" not in url:
+        return url
+
+    def parameter(match: re.Match[str]) -> str:
+        return f"{match['head']}***" if unquote(match["key"]).lower() in SECRET_PARAMETERS else match[0]
+
+    return _USERINFO.sub(r"\g<head>***@", _PARAMETER.sub(parameter, url), count=1)
 
 
-def _secret(url: str) -> str | None:
-    try:
-        return urlsplit(url).password
-    except ValueError:
-        return None
+def mask_urls_in(text: str) -> str:
+    """``text`` with every URL in it (``scheme://`` up to the next whitespace) passed through :func:`mask_url`.
+
+    Parameters
+    ----------
+    text : str
+        Free text: a message, a report's field.
+
+    Returns
+    -------
+    str
+        The text with the credentials of its URLs masked.
+    """
+    return _URL_WORD.sub(lambda match: mask_url(match[0]), text)
+
+
+def _secrets(url: str) -> tuple[list[str], list[str]]:
+    """The credentials written in a URL (as written and percent-decoded), longest first, and the pieces of a
+    password that holds a raw ``@``, ``/``, ``:``, ``?`` or ``#``: a driver cuts it there and may then quote a piece
+    as a host, a port or a database name (a piece of one character is left: it would mask every such word)."""
+    found: set[str] = set()
+    pieces: set[str] = set()
+    for match in _PARAMETER.finditer(url):
+        if unquote(match["key"]).lower() in SECRET_PARAMETERS:
+            found.add(match["value"])
+    userinfo = _USERINFO.search(url)
+    if userinfo:
+        found.add(userinfo["secret"])
+        pieces = {piece for piece in re.split(r"[@/:?#]", userinfo["secret"]) if len(piece) > 1} - found
+    found |= {unquote(secret) for secret in found}
+    pieces |= {unquote(piece) for piece in pieces}
+    return sorted(filter(None, found), key=len, reverse=True), sorted(filter(None, pieces), key=len, reverse=True)
 
 
 def _clean(message: object, url: str) -> str:
-    """A database message on one line, without the URL's password."""
+    """A database message on one line, without the URL's credentials (wherever the driver quotes them)."""
     text = " ".join(str(message).split())
-    secret = _secret(url)
-    if secret:
+    secrets, pieces = _secrets(url)
+    for secret in secrets:
         text = text.replace(secret, "***")
-    return mask_url(text)
+    for piece in pieces:  # a piece only where it stands as a word: "ss" of "p@ss" is no part of "address"
+        text = re.sub(rf"(?<![^\W_]){re.escape(piece)}(?![^\W_])", "***", text)
+    return mask_urls_in(text)
+
+
+# --- what a query may do ---------------------------------------------------------------------------------------
+
+QUERY_WORDS = ("select", "with", "values", "table")
+# Server functions refused in a query, because a read-only transaction does not stop them (PostgreSQL 15 lets a
+# read-only transaction create large objects, and a superuser write server files). A short list, not a sandbox:
+# the real safeguard is a least-privilege role (no superuser, not in pg_write_server_files, no adminpack, no
+# dblink, and no grant on the tables it should not read).
+DENIED_FUNCTIONS = frozenset(
+    {
+        # write a server file (large objects to and from files; the adminpack extension)
+        "lo_export", "lo_import", "pg_file_write", "pg_file_rename", "pg_file_unlink", "pg_file_sync",
+        # write a large object
+        "lo_create", "lo_creat", "lo_from_bytea", "lo_put", "lowrite", "lo_truncate", "lo_truncate64", "lo_unlink",
+        # run SQL text given as a string (which this check cannot read), or in another, writable session
+        "query_to_xml", "query_to_xmlschema", "query_to_xml_and_xmlschema",
+        "dblink", "dblink_exec", "dblink_open", "dblink_send_query",
+    }
+)  # fmt: skip
+_SERVER_FILE_WORDS = ("outfile", "dumpfile")  # MySQL's SELECT … INTO OUTFILE / DUMPFILE write a server file
+
+
+@dataclass(frozen=True)
+class _Lexis:
+    """How a dialect reads quotes and comments: only what it takes to find statements, words and calls."""
+
+    backslash: str = ""  # the quotes in which a backslash escapes the next character
+    nested: bool = False  # /* */ comments nest (PostgreSQL)
+    dollar: bool = False  # $tag$…$tag$ strings, E'…' strings and U&"…" names (PostgreSQL)
+    mysql: bool = False  # # comments, -- only before a space, and /*! … */ text that runs
+    backticks: bool = False  # `…` names (MySQL, SQLite)
+    brackets: bool = False  # […] names (SQLite, SQL Server)
+
+
+# A check passes only when it passes under every reading listed for the dialect: a PostgreSQL server may have
+# standard_conforming_strings off (a backslash escapes in '…'), and for another dialect the reading is not known.
+_POSTGRES = (_Lexis(nested=True, dollar=True), _Lexis(backslash="'", nested=True, dollar=True))
+_SQLITE = (_Lexis(backticks=True, brackets=True),)
+_MYSQL = (_Lexis(mysql=True, backticks=True), _Lexis(backslash="'\"", mysql=True, backticks=True))
+_LEXES = {"sqlite": _SQLITE, "postgresql": _POSTGRES}
+_ANY_DIALECT = (*_POSTGRES, *_SQLITE, *_MYSQL, _Lexis(backslash="'", backticks=True, brackets=True))
+_WORD = re.compile(r"[^\W\d][\w$]*")
+_NUMBER = re.compile(r"\d[\w.]*")
+_DOLLAR_TAG = re.compile(r"\$(?:[^\W\d]\w*)?\$")
+_PARAMETER_MARK = re.compile(r"\$\d+")
+_LINE_END = re.compile(r"[\n\r]")
+
+
+def _quoted_end(query: str, start: int, quote: str, backslash: bool) -> int:
+    """The index after the quote that closes the one at ``start`` (doubled quotes are one character; the end of
+    the text when it is not closed)."""
+    i, n = start + 1, len(query)
+    while i < n:
+        if backslash and query[i] == "\\":
+            i += 2
+        elif query[i] == quote:
+            if query.startswith(quote, i + 1):
+                i += 2
+            else:
+                return i + 1
+        else:
+            i += 1
+    return n
+
+
+def _comment_end(query: str, start: int, nested: bool) -> int:
+    """The index after the ``*/`` that closes the ``/*`` at ``start`` (the end of the text when it is not closed)."""
+    i, depth, n = start + 2, 1, len(query)
+    while i < n and depth:
+        if nested and query.startswith("/*", i):
+            depth, i = depth + 1, i + 2
+        elif query.startswith("*/", i):
+            depth, i = depth - 1, i + 2
+        else:
+            i += 1
+    return i
+
+
+def _tokens(query: str, lexis: _Lexis) -> Iterator[tuple[str, str]]:
+    """The tokens of ``query`` as ``(kind, text)``, comments and whitespace left out: ``word`` (lower case),
+    ``name`` (a quoted name, lower case), ``unicode name``, ``string``, ``number``, ``parameter``, or a punctuation
+    character as both kind and text."""
+    i, n = 0, len(query)
+    while i < n:
+        c = query[i]
+        if c.isspace():
+            i += 1
+        elif (query.startswith("--", i) and not (lexis.mysql and i + 2 < n and not query[i + 2].isspace())) or (
+            c == "#" and lexis.mysql
+        ):
+            end = _LINE_END.search(query, i)
+            i = n if end is None else end.end()
+        elif query.startswith("/*!", i) and lexis.mysql:
+            i += 3  # MySQL runs the text of a /*! … */ comment: read it as code
+        elif query.startswith("/*", i):
+            i = _comment_end(query, i, lexis.nested)
+        elif query.startswith("*/", i) and lexis.mysql:
+            i += 2
+        elif word := _WORD.match(query, i):
+            text, i = word[0].lower(), word.end()
+            if lexis.dollar and text == "e" and query.startswith("'", i):
+                i = _quoted_end(query, i, "'", backslash=True)  # E'…': a backslash always escapes
+                yield "string", ""
+            elif lexis.dollar and text == "u" and query.startswith('&"', i):
+                i = _quoted_end(query, i + 1, '"', backslash=False)
+                yield "unicode name", ""
+            else:
+                yield "word", text
+        elif c in "'\"" or (c == "`" and lexis.backticks):
+            end = _quoted_end(query, i, c, c in lexis.backslash)
+            text, i = query[i + 1 : end - 1].replace(c + c, c).lower(), end
+            yield ("string", "") if c == "'" else ("name", text)
+        elif c == "[" and lexis.brackets:
+            end = query.find("]", i)
+            end = n if end < 0 else end + 1
+            text, i = query[i + 1 : end - 1].lower(), end
+            yield "name", text
+        elif c == "$" and lexis.dollar and (tag := _DOLLAR_TAG.match(query, i)):
+            end = query.find(tag[0], tag.end())
+            i = n if end < 0 else end + len(tag[0])
+            yield "string", ""
+        elif c == "$" and (mark := _PARAMETER_MARK.match(query, i)):
+            i = mark.end()
+            yield "parameter", mark[0]
+        elif number := _NUMBER.match(query, i):
+            i = number.end()
+            yield "number", number[0]
+        else:
+            i += 1
+            yield c, c
+
+
+def _shown_token(kind: str, text: str) -> str:
+    """How a refusal names the first token of a query: a word in capitals, never more of the text."""
+    if kind == "word":
+        return text.upper() if len(text) <= 24 else text[:21].upper() + "..."
+    return {"name": "a quoted name", "unicode name": "a quoted name", "string": "a string"}.get(kind, repr(text[:1]))
+
+
+def _problem(query: str, lexis: _Lexis, server: bool) -> str | None:
+    """Why ``query`` read with ``lexis`` must not run (None: it may); ``server``: also the query-only rules."""
+    tokens = list(_tokens(query, lexis))
+    if any(kind == ";" for kind, _ in tokens[:-1]):
+        return "holds more than one statement (text follows a ';'); give one query"
+    if not server:
+        return None
+    first = next((token for token in tokens if token[0] != "("), None)
+    if first is None:
+        return "is empty (nothing but spaces or comments)"
+    if first == ("word", "copy"):
+        return "may not be COPY (it reads or writes files on the database server); give a SELECT"
+    if first[0] != "word" or first[1] not in QUERY_WORDS:
+        return f"must be a query starting with SELECT, WITH, VALUES or TABLE, not {_shown_token(*first)}"
+    if any(kind == "unicode name" for kind, _ in tokens):
+        return 'uses a Unicode-escaped name (U&"…"), which this check cannot read; write the name plainly'
+    for (kind, text), (next_kind, next_text) in itertools.pairwise(tokens):
+        if kind in ("word", "name") and text in DENIED_FUNCTIONS and next_kind == "(":
+            return f"calls {text}(), a server function that writes files or large objects or runs SQL text"
+        if (kind, text) == ("word", "into") and next_kind == "word" and next_text in _SERVER_FILE_WORDS:
+            return f"writes a server file (INTO {next_text.upper()})"
+    return None
+
+
+def check_query(query: str, dialect: str, name: str = "the database") -> None:
+    """Refuse a query that a read-only session must not be given.
+
+    Every dialect: one statement (a ``;`` may be followed by nothing but whitespace and comments). A database
+    server (any dialect but ``sqlite``) also: a query, starting (after whitespace, comments and opening
+    parentheses) with ``SELECT``, ``WITH``, ``VALUES`` or ``TABLE``, so never ``COPY``; no call of a function in
+    ``DENIED_FUNCTIONS``; no ``INTO OUTFILE``/``DUMPFILE``. Quotes and comments are read the way the dialect reads
+    them, and where that may vary (a backslash in a string) every way must pass. For SQLite the authorizer of the
+    session is the exact check; for a server, a least-privilege role is the real safeguard.
+
+    Parameters
+    ----------
+    query : str
+        The query as the user wrote it.
+    dialect : str
+        ``sqlite``, ``postgresql``, or the name of another SQLAlchemy dialect.
+    name : str
+        How the message names the source (a masked URL).
+
+    Raises
+    ------
+    SettingError
+        On ``query``, one line naming the reason and at most the query's first word or a function's name.
+    """
+    for lexis in _LEXES.get(dialect, _ANY_DIALECT):
+        problem = _problem(query, lexis, server=dialect != "sqlite")
+        if problem is not None:
+            raise SettingError("query", f"of {name} {problem}")
 
 
 def check_split_options(options: SourceOptions) -> None:
@@ -197,8 +471,6 @@ READ_ONLY = "-c default_transaction_read_only=on"
 
 def _read_only_url(url: str) -> str:
     """The URL with the libpq ``options`` that make every transaction of the session read-only."""
-    from urllib.parse import quote
-
     joiner = "&" if "?" in url else "?"
     return f"{url}{joiner}options={quote(READ_ONLY)}"
 
@@ -267,22 +539,91 @@ def _rows_to_batch(rows: list[tuple], keys: list[int], weight: int | None, optio
     )
 
 
-def _connect_sqlite(path: str, name: str) -> Any:
-    """A read-only SQLite session (``mode=ro`` and ``PRAGMA query_only``)."""
+# The authorizer's action codes (sqlite3 names them, but some of its names share a value with a result code).
+_SQLITE_ACTIONS = (
+    "CREATE_INDEX", "CREATE_TABLE", "CREATE_TEMP_INDEX", "CREATE_TEMP_TABLE", "CREATE_TEMP_TRIGGER",
+    "CREATE_TEMP_VIEW", "CREATE_TRIGGER", "CREATE_VIEW", "DELETE", "DROP_INDEX", "DROP_TABLE", "DROP_TEMP_INDEX",
+    "DROP_TEMP_TABLE", "DROP_TEMP_TRIGGER", "DROP_TEMP_VIEW", "DROP_TRIGGER", "DROP_VIEW", "INSERT", "PRAGMA",
+    "READ", "SELECT", "TRANSACTION", "UPDATE", "ATTACH", "DETACH", "ALTER_TABLE", "REINDEX", "ANALYZE",
+    "CREATE_VTABLE", "DROP_VTABLE", "FUNCTION", "SAVEPOINT", "RECURSIVE",
+)  # fmt: skip
+# Functions an SQLite session refuses although they are functions: extension loading, the file functions of the
+# command-line shell and the tokenizer registration of FTS3, none of which a key query needs.
+SQLITE_DENIED_FUNCTIONS = frozenset({"load_extension", "readfile", "writefile", "edit", "fts3_tokenizer"})
+
+
+def _sqlite_authorizer(denied: list[str]) -> Callable[[int, str | None, str | None, str | None, str | None], int]:
+    """An authorizer that allows reading (SELECT, reading a column, an ordinary function, a recursive common table
+    expression) and denies every other action, noting in ``denied`` what it refused."""
     import sqlite3
 
-    if not os.path.isfile(path):
+    names = {getattr(sqlite3, f"SQLITE_{action}"): action for action in _SQLITE_ACTIONS}
+    reads = {sqlite3.SQLITE_SELECT, sqlite3.SQLITE_READ, sqlite3.SQLITE_RECURSIVE}
+
+    def authorize(action: int, first: str | None, second: str | None, database: str | None, trigger: str | None) -> int:
+        function = (second or "").lower() if action == sqlite3.SQLITE_FUNCTION else None
+        if action in reads or (function is not None and function not in SQLITE_DENIED_FUNCTIONS):
+            return sqlite3.SQLITE_OK
+        # name the action and, for a PRAGMA, a function or a transaction, the keyword (never a file name or a value)
+        what = names.get(action, f"action {action}").replace("_", " ")
+        if action == sqlite3.SQLITE_PRAGMA:
+            what = f"PRAGMA {first}"
+        elif function is not None:
+            what = f"the function {function}()"
+        elif action == sqlite3.SQLITE_TRANSACTION and first:
+            what = first.upper()
+        denied.append(what)
+        return sqlite3.SQLITE_DENY
+
+    return authorize
+
+
+def _sqlite_target(url: str) -> str:
+    """The file an ``sqlite://`` URL names, read the way SQLAlchemy reads it: ``sqlite:///keys.db`` relative,
+    ``sqlite:////srv/keys.db`` absolute, percent-escapes decoded, ``sqlite:///file:PATH?…&uri=true`` an SQLite URI
+    filename; ``:memory:`` for ``sqlite://`` and ``sqlite:///:memory:``. The URL's parameters are not used: the
+    file is always opened read-only."""
+    location, _, parameters = url.split("://", 1)[1].partition("?")
+    database = unquote(location.partition("/")[2])
+    uri = dict((k.lower(), v.lower()) for k, v in parse_qsl(parameters)).get("uri") in ("true", "1")
+    if uri and database.startswith("file:"):
+        database = database[len("file:") :]
+        if database.startswith("//"):  # file://localhost/srv/keys.db
+            database = "/" + database[2:].partition("/")[2]
+        database = unquote(re.split(r"[?#]", database, maxsplit=1)[0])
+    return database or ":memory:"
+
+
+def _connect_sqlite(path: str, name: str) -> tuple[Any, list[str]]:
+    """A read-only SQLite session and the list its authorizer notes refused actions in.
+
+    The file opens as the URI ``file:PATH?mode=ro`` (never created), with ``PRAGMA query_only``, and an authorizer
+    that allows reads only (see :func:`_sqlite_authorizer`); ``:memory:`` is an empty database under the same
+    authorizer.
+    """
+    import sqlite3
+
+    memory = path == ":memory:"
+    if not memory and not os.path.isfile(path):
         raise InputError(f"{name}: no such SQLite file")
+    target = ":memory:" if memory else f"file:{quote(os.path.abspath(path))}?mode=ro"
+    denied: list[str] = []
     try:
-        # one thread at a time, but maybe not the one that opened it (the reading thread takes over the stream)
-        connection = sqlite3.connect(f"file:{os.path.abspath(path)}?mode=ro", uri=True, check_same_thread=False)
-        connection.execute("PRAGMA query_only = ON")
+        # one thread at a time, but maybe not the one that opened it (the reading thread takes over the stream);
+        # autocommit, so that the module never begins a transaction of its own
+        connection = sqlite3.connect(target, uri=not memory, check_same_thread=False, isolation_level=None)
     except sqlite3.Error as exc:
         raise InputError(f"{name}: cannot open: {exc}") from None
-    return connection
+    try:
+        connection.execute("PRAGMA query_only = ON")
+        connection.set_authorizer(_sqlite_authorizer(denied))  # after the PRAGMA, which it would deny
+    except sqlite3.Error as exc:
+        connection.close()
+        raise InputError(f"{name}: cannot open: {exc}") from None
+    return connection, denied
 
 
-def _connect_adbc(url: str) -> Any:
+def _connect_adbc(url: str, name: str) -> Any:
     """A PostgreSQL session through ADBC whose transactions are all read-only."""
     import adbc_driver_postgresql.dbapi as adbc
 
@@ -290,11 +631,11 @@ def _connect_adbc(url: str) -> Any:
     try:
         return adbc.connect(_read_only_url(plain))
     except Exception as exc:  # noqa: BLE001 - any driver error is an input error with its message
-        raise InputError(f"{mask_url(url)}: cannot connect: {_clean(exc, url)}") from None
+        raise InputError(f"{name}: cannot connect: {_clean(exc, url)}") from None
 
 
-def _connect_sqlalchemy(url: str) -> tuple[Any, Any]:
-    """An SQLAlchemy engine and connection, read-only (PostgreSQL: every transaction; SQLite: query_only)."""
+def _connect_sqlalchemy(url: str, name: str) -> tuple[Any, Any]:
+    """An SQLAlchemy engine and connection (PostgreSQL: every transaction read-only)."""
     try:
         import sqlalchemy as sa
     except ImportError:
@@ -304,29 +645,24 @@ def _connect_sqlalchemy(url: str) -> tuple[Any, Any]:
         engine = sa.create_engine(url, connect_args={"options": READ_ONLY} if postgres else {})
         connection = engine.connect()
     except Exception as exc:  # noqa: BLE001
-        raise InputError(f"{mask_url(url)}: cannot connect: {_clean(exc, url)}") from None
-    try:
-        if engine.dialect.name == "sqlite":
-            connection.exec_driver_sql("PRAGMA query_only = ON")
-    except Exception as exc:  # noqa: BLE001
-        connection.close()
-        engine.dispose()
-        raise InputError(f"{mask_url(url)}: cannot connect: {_clean(exc, url)}") from None
+        raise InputError(f"{name}: cannot connect: {_clean(exc, url)}") from None
     return engine, connection
 
 
 @contextlib.contextmanager
 def _session(kind: str, url: str, name: str) -> Iterator[Any]:
     """A read-only connection of the driver ``kind`` (``sqlite``, ``adbc``, ``sqlalchemy``), closed on leaving;
-    a driver error inside becomes a one-line InputError naming ``name``, without the URL's password."""
+    a driver error inside becomes a one-line InputError naming ``name``, without the URL's credentials, and an
+    action SQLite's authorizer refused a SettingError on ``query`` naming the action."""
+    denied: list[str] = []
     if kind == "sqlite":
-        connection = _connect_sqlite(url, name)
+        connection, denied = _connect_sqlite(url, name)
         close = connection.close
     elif kind == "adbc":
-        connection = _connect_adbc(url)
+        connection = _connect_adbc(url, name)
         close = connection.close
     else:
-        engine, connection = _connect_sqlalchemy(url)
+        engine, connection = _connect_sqlalchemy(url, name)
 
         def close() -> None:
             connection.close()
@@ -337,16 +673,19 @@ def _session(kind: str, url: str, name: str) -> Iterator[Any]:
     except (InputError, UsageError):
         raise
     except Exception as exc:  # noqa: BLE001 - any driver error is an input error with its message
+        if denied:
+            raise SettingError(
+                "query", f"of {name} may only read (a readonly session): {denied[0]} is refused"
+            ) from None
         raise InputError(f"{name}: {_clean(exc, url)}") from None
     finally:
         close()
 
 
-def _read_rows(kind: str, url: str, query: str, options: SourceOptions, stats: SourceStats, parameters: Any = (),
-               label: str = "") -> Iterator[RecordBatch]:  # fmt: skip
+def _read_rows(kind: str, url: str, name: str, query: str, options: SourceOptions, stats: SourceStats,
+               parameters: Any = ()) -> Iterator[RecordBatch]:  # fmt: skip
     """The records of a query: Python rows in batches for SQLite (``fetchmany``) and SQLAlchemy (a server-side
     cursor and ``yield_per``), Arrow record batches for ADBC (converted like a Parquet column)."""
-    name = (url if kind == "sqlite" else mask_url(url)) + label
     step = min(options.batch_keys, 1 << 16)
     with _session(kind, url, name) as connection:
         if kind == "adbc":
@@ -384,10 +723,10 @@ def _read_rows(kind: str, url: str, query: str, options: SourceOptions, stats: S
                 yield batch
 
 
-def _fetch(kind: str, url: str, query: str) -> tuple[list[str], list[tuple]]:
+def _fetch(kind: str, url: str, name: str, query: str) -> tuple[list[str], list[tuple]]:
     """The column names and every row of a small query (planning key ranges), in a read-only session of the
     source's driver."""
-    with _session(kind, url, mask_url(url)) as connection:
+    with _session(kind, url, name) as connection:
         if kind == "sqlalchemy":
             import sqlalchemy as sa
 
@@ -411,10 +750,13 @@ def adbc_available() -> bool:
 
 
 def _route(source: str, options: SourceOptions) -> tuple[str, str]:
-    """The driver that reads a source (``sqlite``, ``adbc`` or ``sqlalchemy``) and the path or URL it is given."""
+    """The driver that reads a source (``sqlite``, ``adbc`` or ``sqlalchemy``) and the path or URL it is given:
+    every SQLite source, file or URL, goes to the standard library's read-only session."""
     if not _URL.match(source):
         return "sqlite", source
     scheme = source.split("://", 1)[0].lower()
+    if scheme.split("+", 1)[0] == "sqlite":
+        return "sqlite", _sqlite_target(source)
     if (
         scheme in ("postgresql", "postgres", "postgresql+adbc")
         and options.db_driver != "sqlalchemy"
@@ -428,19 +770,29 @@ def _route(source: str, options: SourceOptions) -> tuple[str, str]:
     return "sqlalchemy", source
 
 
+def _checked_route(source: str, options: SourceOptions, name: str) -> tuple[str, str]:
+    """:func:`_route`, after :func:`check_query` has passed the source's own query in the driver's dialect (the
+    SELECT built from ``db_table`` is safe by construction: its names are checked, and quoted)."""
+    kind, url = _route(source, options)
+    if options.query:
+        dialect = {"sqlite": "sqlite", "adbc": "postgresql"}.get(kind) or url.split("://", 1)[0].split("+")[0].lower()
+        check_query(options.query, "postgresql" if dialect == "postgres" else dialect, name)
+    return kind, url
+
+
 def read_database(source: str, options: SourceOptions, stats: SourceStats) -> Iterator[RecordBatch]:
     """Yield the keys a database source's query returns (see the module notes); with ``options.key_range``, only
     those of the rows in that range of ``options.db_split_column``."""
     name = mask_url(source)
     query = build_query(options, name)  # the usage errors of the options before any driver is chosen
-    kind, url = _route(source, options)
+    kind, url = _checked_route(source, options, name)
     if options.key_range is None:
-        yield from _read_rows(kind, url, query, options, stats)
+        yield from _read_rows(kind, url, name, query, options, stats)
         return
     style = _PARAMSTYLES[kind]
     query = build_query(options, name, style)
-    yield from _read_rows(kind, url, query, options, stats, range_parameters(options.key_range, style),
-                          _range_label(options))  # fmt: skip
+    yield from _read_rows(kind, url, name + _range_label(options), query, options, stats,
+                          range_parameters(options.key_range, style))  # fmt: skip
 
 
 def plan_key_ranges(source: str, options: SourceOptions) -> list[KeyRange]:
@@ -473,7 +825,7 @@ def plan_key_ranges(source: str, options: SourceOptions) -> list[KeyRange]:
     if options.db_split_column is None:
         raise UsageError(f"{name}: give --db-split-column to split a database source into key ranges")
     options = replace(options, key_range=None)
-    kind, url = _route(source, options)
+    kind, url = _checked_route(source, options, name)
     inner = _bare(_base_query(options, name, with_split=True))
     column = _quoted_split(options)
     adbc = kind == "adbc"
@@ -482,9 +834,9 @@ def plan_key_ranges(source: str, options: SourceOptions) -> list[KeyRange]:
     typed = f", CAST(pg_typeof(min({column})) AS text)" if adbc else ""
     summary = f"SELECT {lowest_sql}, {highest_sql}, count({column}), count(*){typed} FROM (\n{inner}\n) AS hashaudit_q"
     try:
-        row = _fetch(kind, url, summary)[1][0]
+        row = _fetch(kind, url, name, summary)[1][0]
     except InputError:
-        names = _result_columns(kind, url, inner)
+        names = _result_columns(kind, url, name, inner)
         if names is not None and options.db_split_column not in names:
             raise UsageError(
                 f"{name}: the query has no column {options.db_split_column!r} for --db-split-column "
@@ -513,7 +865,7 @@ def plan_key_ranges(source: str, options: SourceOptions) -> list[KeyRange]:
             f"FROM (\n{inner}\n) AS hashaudit_q WHERE {column} IS NOT NULL) AS hashaudit_x "
             "GROUP BY hashaudit_t ORDER BY hashaudit_t"
         )
-        _, boundaries = _fetch(kind, url, tiled)
+        _, boundaries = _fetch(kind, url, name, tiled)
         ranges = _ranges_between([b[0] for b in boundaries[:-1]], cast)
     if filled < total:
         ranges.append(KeyRange(is_null=True))
@@ -537,9 +889,9 @@ def _ranges_between(boundaries: list[Any], cast: str | None) -> list[KeyRange]:
     return [KeyRange(edges[i], edges[i + 1], cast=cast) for i in range(len(edges) - 1)]
 
 
-def _result_columns(kind: str, url: str, query: str) -> list[str] | None:
+def _result_columns(kind: str, url: str, name: str, query: str) -> list[str] | None:
     """The column names of a query's result (None when it cannot run): to explain a missing split column."""
     try:
-        return _fetch(kind, url, f"SELECT * FROM (\n{query}\n) AS hashaudit_q LIMIT 0")[0]
+        return _fetch(kind, url, name, f"SELECT * FROM (\n{query}\n) AS hashaudit_q LIMIT 0")[0]
     except HashAuditError:
         return None

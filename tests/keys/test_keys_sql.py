@@ -45,7 +45,7 @@ def test_sqlite_query_table_weights_and_nulls(sqlite_file):
 
 
 def test_sqlite_sessions_are_read_only_and_errors_are_one_line(sqlite_file):
-    with pytest.raises(InputError, match="readonly"):
+    with pytest.raises(UsageError, match=r"readonly session\): DELETE is refused"):
         _keys(sqlite_file, query="DELETE FROM lookups")
     with sqlite3.connect(sqlite_file) as db:
         assert db.execute("SELECT count(*) FROM lookups").fetchone()[0] == 1001  # nothing was deleted
@@ -97,8 +97,10 @@ def test_postgres_reads_keys_weights_and_refuses_writes(postgres, driver):
     assert (64).to_bytes(8, "little") in keys
     with pytest.raises(InputError, match="read-only transaction"):
         _keys(postgres, query="SELECT nextval('counter')::text", db_driver=driver)  # a write the database refuses
-    with pytest.raises(InputError):
+    with pytest.raises(UsageError, match="not DELETE"):  # refused before it reaches the server
         _keys(postgres, query="DELETE FROM parcels RETURNING id", db_driver=driver)
+    with pytest.raises(InputError, match="read-only transaction|data-modifying"):  # the server refuses a write
+        _keys(postgres, query="WITH gone AS (DELETE FROM parcels RETURNING id) SELECT id FROM gone", db_driver=driver)
     assert len(_keys(postgres, query="SELECT id FROM parcels", db_driver=driver)[0]) == 20_000  # nothing deleted
     with pytest.raises(InputError, match="parcelz"):
         _keys(postgres, query="SELECT id FROM parcelz", db_driver=driver)
