@@ -150,6 +150,8 @@ class Conclusion:
         Figure data by hash name, for the HTML page (groups add theirs).
     shared : dict
         Work shared by the hashes of one audit (e.g. neighbour key families), by a group's own key.
+    figures : bool
+        Whether the HTML page's figures are asked for: a group computes figure data only then (see ``plot``).
     """
 
     plan: Any
@@ -161,7 +163,9 @@ class Conclusion:
     heavy: Any = None
     plots: dict = field(default_factory=dict)
     shared: dict = field(default_factory=dict)
+    figures: bool = True
 
     def plot(self, hash_name: str, name: str, data: Any) -> None:
-        """Keep figure data of one hash."""
-        self.plots.setdefault(hash_name, {})[name] = data
+        """Keep figure data of one hash (when the figures are asked for)."""
+        if self.figures:
+            self.plots.setdefault(hash_name, {})[name] = data

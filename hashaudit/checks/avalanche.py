@@ -40,7 +40,8 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
     )
     for test in avalanche_tests(matrix):
         yield None, None, matrix.keys, test
-    ctx.plot(spec.name, "avalanche", matrix.flip_probability())
+    if ctx.figures:
+        ctx.plot(spec.name, "avalanche", matrix.flip_probability())
 
 
 GROUP = CheckGroup(

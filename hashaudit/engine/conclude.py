@@ -37,6 +37,7 @@ def conclude(
     sample: Any = None,
     heavy: Any = None,
     passes: int = 1,
+    figures: bool = True,
 ) -> AuditResult:
     """Turn merged accumulators into the audit's result.
 
@@ -59,14 +60,17 @@ def conclude(
     heavy : HeavyKeys, optional
     passes : int
         Reads of the input.
+    figures : bool
+        Compute the data of the HTML page's figures (``AuditResult.plots``): the no-collision curve (a subsample
+        simulation) and the flip matrices. Without it nothing is drawn and the JSON is the same.
     """
-    ctx = Conclusion(plan, states, tables, keys, occurrences, sample, heavy)
+    ctx = Conclusion(plan, states, tables, keys, occurrences, sample, heavy, figures=figures)
     family: list[tuple[str, str | None, int | None, int, Any]] = []
     for state in states:
         for group in state.groups:
             if group.conclude is not None:
                 family += [(state.spec.name, *tested) for tested in group.conclude(ctx, state)]
-        if sample is not None and len(sample) >= CURVE_MIN_SAMPLE and state.spec.path != "placement":
+        if figures and sample is not None and len(sample) >= CURVE_MIN_SAMPLE and state.spec.path != "placement":
             from hashaudit.stats.curves import no_collision_curve
 
             spec = state.spec

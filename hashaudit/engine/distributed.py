@@ -310,6 +310,7 @@ def audit_dask(
     workers: int = 2,
     partition_bytes: int = PARTITION_BYTES,
     prefix_bits: int = 4,
+    figures: bool = True,
 ) -> AuditResult:
     """Audit ``sources`` on a Dask cluster (``scheduler``: its address; None starts a local cluster of ``workers``
     processes). Same plan, same result as :func:`hashaudit.engine.sources.audit` (see the module notes)."""
@@ -377,6 +378,7 @@ def audit_dask(
         hash_seconds=dict.fromkeys(plan.hashes, 0.0),
         sample=total.sample,
         heavy=heavy,
+        figures=figures,
     )
     result.run["engine"] = "dask"
     result.run["partitions"] = len(parts)

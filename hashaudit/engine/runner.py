@@ -45,6 +45,7 @@ def audit_batches(
     threads: int = 0,
     key_estimate: Callable[[KeyBatch], int | None] | None = None,
     reopen: Callable[[], Iterable[KeyBatch]] | None = None,
+    figures: bool = True,
 ) -> AuditResult:
     """Audit a stream of key batches.
 
@@ -70,6 +71,8 @@ def audit_batches(
         Returns the same batches again from the start. With it, an input with more distinct keys than
         ``plan.distinct_memory`` holds is read in several passes, one per part of the fingerprint space;
         without it, that is a ``UsageError``.
+    figures : bool
+        Compute the data of the HTML page's figures (``AuditResult.plots``); the JSON does not depend on it.
     """
     started = time.perf_counter()
     # The statistics need scipy, which takes a while to import: load it while the keys stream through.
@@ -256,6 +259,7 @@ def audit_batches(
         sample=sample,
         heavy=heavy,
         passes=parts + extra_reads,
+        figures=figures,
     )
 
 

@@ -27,6 +27,7 @@ def audit(
     progress: Callable[[int], None] | None = None,
     threads: int = 0,
     show_keys: bool = False,
+    figures: bool = True,
 ) -> AuditResult:
     """Audit the keys of one or more sources (files, or ``"-"`` for standard input).
 
@@ -45,6 +46,8 @@ def audit(
     show_keys : bool
         Read the input a second time to name up to five keys of each reported full-width collision group. Keys
         appear in no report otherwise.
+    figures : bool
+        Compute the data of the HTML page's figures (``hashaudit.engine.runner.audit_batches``).
 
     Returns
     -------
@@ -99,6 +102,7 @@ def audit(
         threads=threads,
         key_estimate=estimate,
         reopen=reopen if readable_again else None,
+        figures=figures,
     )
     if result.run.get("passes", 1) > 1 or keys is not None:
         _check_unchanged(stamps)  # a change during the last of several reads
