@@ -9,7 +9,9 @@ from __future__ import annotations
 
 import json
 import os
+import signal
 import sys
+import threading
 import traceback
 
 import click
@@ -142,13 +144,23 @@ def audit(sources, databases, show_keys, show_all, quiet, color, debug, engine, 
 
         if show_keys:
             raise UsageError("--show-keys reads the input again on this machine; use the local engine")
-        result = audit_dask(list(sources), plan, options_, scheduler=scheduler, workers=workers)
+        result = audit_dask(
+            list(sources), plan, options_, scheduler=scheduler, workers=workers, figures=bool(outputs.get("html"))
+        )
     else:
         from hashaudit.engine.sources import audit as run_audit
 
         progress = _progress(quiet)
         try:
-            result = run_audit(list(sources), plan, options_, threads=threads, show_keys=show_keys, progress=progress)
+            result = run_audit(
+                list(sources),
+                plan,
+                options_,
+                threads=threads,
+                show_keys=show_keys,
+                progress=progress,
+                figures=bool(outputs.get("html")),  # the page's figures are computed only for the page
+            )
         finally:
             if progress is not None:
                 progress.close()
@@ -182,7 +194,14 @@ def gate(config_path, baseline, tolerance, show_all, quiet, color, debug, thread
     old = read_baseline(base_path) if base_path else None  # read before the audit: a bad baseline fails fast
     progress = _progress(quiet)
     try:
-        result = run_audit(config.sources, config.plan, config.options, threads=threads, progress=progress)
+        result = run_audit(
+            config.sources,
+            config.plan,
+            config.options,
+            threads=threads,
+            progress=progress,
+            figures=bool(outputs["html"]),
+        )
     finally:
         if progress is not None:
             progress.close()
@@ -204,7 +223,7 @@ def gate(config_path, baseline, tolerance, show_all, quiet, color, debug, thread
     "--target",
     metavar="NAME=VALUE",
     help="Recommend a table meeting this: mean-hit, mean-miss, p99-hit or p99-miss (probes), or no-collision "
-    "(probability).",
+    "(probability). Default, without --buckets or --load: mean-hit=2. Exit code 1 when your keys miss it.",
 )
 @click.option(
     "--table-kind",
@@ -224,11 +243,11 @@ def gate(config_path, baseline, tolerance, show_all, quiet, color, debug, thread
 @click.option("--hash-width", type=int, help="Bits of the hash value, for its birthday bound (default: -H's width).")
 @click.option("--seed", type=int, default=0, show_default=True, help="Seed of the simulations.")
 @click.option("--json", "json_path", metavar="FILE", help="Write the plan as JSON to FILE ('-' for stdout).")
-@options(PLAN_SOURCE_SETTINGS)
+@options((DATABASES, *PLAN_SOURCE_SETTINGS))
 @click.option("--debug", is_flag=True, help="Show the traceback of an error.")
 def plan(
     sources, n_keys, buckets, load_factor, target, table_kind, sizes, hash_name, hash_width, seed, json_path, debug,
-    **source_values,
+    databases, **source_values,
 ):  # type: ignore[no-untyped-def]  # fmt: skip
     """What simple uniform hashing predicts for N keys in a table, and the table that meets a target.
 
@@ -239,6 +258,7 @@ def plan(
     from hashaudit.stats.theory import plan_capacity
     from hashaudit.tables.planner import parse_target, recommend
 
+    sources = (*sources, *databases)
     check_outputs({"json": json_path}, list(sources))
     values, value_width = None, 64
     if sources:
@@ -261,13 +281,13 @@ def plan(
     if hash_width is not None and not 1 <= hash_width <= 512:
         raise UsageError(f"--hash-width must be between 1 and 512 bits, not {hash_width}")
     advice = None
-    if target:
+    if target is None and buckets is None and load_factor is None:
+        target = DEFAULT_PLAN_TARGET  # the question a table's owner asks first
+    if target is not None:
         if buckets is not None or load_factor is not None:
             raise UsageError("give --target, or one of --buckets and --load, not both")
         advice = recommend(n_keys, table_kind, parse_target(target), sizes, hash_width, values, value_width, seed)
         buckets = advice["slots"]
-    elif buckets is None and load_factor is None:
-        raise UsageError("give one of --buckets, --load or --target")
     data = plan_capacity(n_keys, buckets=buckets, load_factor=load_factor).to_dict()
     if advice is not None:
         data["recommendation"] = advice
@@ -288,6 +308,28 @@ def plan(
 
         write_text_atomically(json_path, text)
     click.echo(plan_text(data))
+    missed = _missed_by_your_keys(advice)
+    if missed:
+        click.echo(missed)
+        sys.exit(EXIT_FAIL)
+
+
+DEFAULT_PLAN_TARGET = "mean-hit=2"
+_MEASURE = {"mean-hit": "hit_mean", "p99-hit": "hit_p99", "mean-miss": "miss_mean", "p99-miss": "miss_p99"}
+
+
+def _missed_by_your_keys(advice: dict | None) -> str | None:
+    """A sentence when the recommended table, filled with the user's own keys, misses the target (else None)."""
+    measured = (advice or {}).get("measured")
+    goal = (advice or {}).get("target") or {}
+    field = _MEASURE.get(goal.get("name", ""))
+    if not measured or field is None or measured[field] <= goal["value"]:
+        return None
+    return (
+        f"your keys miss the target: under this hash they cost {measured[field]:,.1f} probes ({goal['name']}) in the "
+        f"recommended table against the {goal['value']:g} asked for — the hash does not spread these keys; audit it "
+        "(hashaudit audit) or choose another"
+    )
 
 
 def _progress(quiet: bool):  # type: ignore[no-untyped-def]
@@ -341,8 +383,16 @@ def placements(as_json, debug):  # type: ignore[no-untyped-def]
         click.echo(f"{row['name']}:{params}\n    {row['models']}\n    checked against {row['reference']}")
 
 
+def _on_sigterm(signum: int, frame: object) -> None:
+    """SIGTERM leaves through ``SystemExit(143)`` (128 + 15, what a shell reports) instead of the default abrupt end,
+    so ``finally`` blocks, ``close()`` and exit hooks run and spill folders are removed, as on Ctrl-C."""
+    raise SystemExit(143)
+
+
 def main(argv: list[str] | None = None) -> None:
     """Entry point: run the command, turning expected errors into one line on stderr and exit code 2."""
+    on_main_thread = threading.current_thread() is threading.main_thread()  # the only thread that may set one
+    previous = signal.signal(signal.SIGTERM, _on_sigterm) if on_main_thread else None
     try:
         code = cli.main(args=argv, prog_name="hashaudit", standalone_mode=False)
     except click.exceptions.Exit as exc:
@@ -375,4 +425,6 @@ def main(argv: list[str] | None = None) -> None:
             traceback.print_exc()
         click.echo(f"hashaudit: internal error: {type(exc).__name__}: {exc} (rerun with --debug)", err=True)
         code = EXIT_ERROR
+    if previous is not None:  # None: not set from Python (or not the main thread), so nothing to put back
+        signal.signal(signal.SIGTERM, previous)
     sys.exit(code if isinstance(code, int) else EXIT_OK)
