@@ -4,8 +4,8 @@ A key column of strings or binary goes to the hash as its bytes without a copy (
 ``KeyBatch``'s). An integer column is hashed as 8-byte little-endian words by default — what an integer-keyed table
 hashes — or as decimal text with ``integers="decimal"``. Other types (dates, floats, decimals…) are hashed as the
 text pyarrow casts them to. Several columns make a composite key, joined with ``join``. A record with a null in any
-key column is counted (``null``) and skipped. A null, negative or infinite weight is an error, or with
-``on_bad_record="skip"`` makes its row skipped and counted as ``bad_weight``.
+key column is counted (``null``) and skipped. A null, negative or infinite weight is an error naming its row (not
+its value), or with ``on_bad_record="skip"`` makes its row skipped and counted as ``bad_weight``.
 """
 
 from __future__ import annotations
@@ -19,7 +19,7 @@ import pyarrow.compute as pc
 from hashaudit.errors import InputError, UsageError
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.options import SourceOptions
-from hashaudit.keys.records import RecordBatch, SourceStats
+from hashaudit.keys.records import RecordBatch, SourceStats, arrow_reason, weight_problem
 from hashaudit.settings import SettingError
 
 COLUMNAR_SUFFIXES = {".parquet": "parquet", ".pq": "parquet", ".arrow": "arrow", ".feather": "arrow", ".ipc": "arrow"}
@@ -53,7 +53,7 @@ def _open_batches(
             stream = pa.ipc.open_stream(source)
             return stream.schema, iter(stream), 0
     except (pa.ArrowException, OSError) as exc:
-        raise InputError(f"{path}: cannot read as {fmt}: {' '.join(str(exc).split())}") from None
+        raise InputError(f"{path}: cannot read as {fmt}: {arrow_reason(exc)}") from None
 
 
 def _resolve(columns: list[str], schema: pa.Schema, path: str) -> list[str]:
@@ -118,15 +118,18 @@ def arrow_records(
         label = batch.schema.names[weight_position]
         numeric = pa.types.is_integer(column.type) or pa.types.is_floating(column.type)
         skip_bad = options.on_bad_record == "skip"
-        if not numeric or column.null_count and not skip_bad:
-            raise InputError(f"{name}: weight column {label!r} must be numbers without nulls")
+        if not numeric:
+            raise InputError(f"{name}: weight column {label!r} holds {column.type}, not numbers")
         weights = column.to_numpy(zero_copy_only=False).astype(np.float64)  # a null becomes NaN
         with np.errstate(invalid="ignore"):
             bad = ~np.isfinite(weights) | (weights < 0)
         if not bad.any():
             bad = None
         elif not skip_bad:
-            raise InputError(f"{name}: weight column {label!r} holds a negative or infinite value")
+            # the row and what is wrong, never the value (a weight is a field of the record)
+            i = int(np.flatnonzero(bad)[0])
+            why = "is null" if not column[i].is_valid else weight_problem(float(weights[i]))
+            raise InputError(f"{name} row {first_row + i}: weight {label!r} {why}")
     numbers = None
     if valid is not None or bad is not None:
         has_key = np.ones(batch.num_rows, dtype=bool) if valid is None else valid.to_numpy(zero_copy_only=False)
@@ -179,4 +182,4 @@ def read_columnar(
                 yield records
             rows += batch.num_rows
     except (pa.ArrowException, OSError) as exc:
-        raise InputError(f"{path}: {' '.join(str(exc).split())} (after row {rows})") from None
+        raise InputError(f"{path}: {arrow_reason(exc)} (after row {rows})") from None

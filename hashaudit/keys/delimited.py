@@ -9,6 +9,11 @@ pyarrow ends a quoted field at the end of the input without a word when its clos
 quote in the last column would silently turn the rest of the file into one value. :class:`_QuoteWatch` follows the
 quotes of the bytes pyarrow reads (a quote opens a field only at its start; inside, ``""`` is a quote and any other
 quote closes it, as pyarrow reads them) and an input that ends inside a quoted field is an error.
+
+Messages name the row and the column, never a field's text: pyarrow's own message for a row with the wrong number
+of fields ends with the whole row, so that error is worded here from the numbers pyarrow hands to its invalid-row
+handler (the reader runs on one thread, where pyarrow knows the row's number). A weight column is read as bytes and
+parsed here, so a bad weight is reported by row and reason ("is negative") rather than by pyarrow quoting it.
 """
 
 from __future__ import annotations
@@ -21,6 +26,8 @@ import csv
 import io
 import math
 import threading
+import time
+import weakref
 from collections.abc import Iterator
 
 import numpy as np
@@ -33,7 +40,7 @@ from hashaudit.errors import InputError
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.open import PrefixedReader, Readable
 from hashaudit.keys.options import SourceOptions
-from hashaudit.keys.records import RecordBatch, SourceStats
+from hashaudit.keys.records import RecordBatch, SourceStats, arrow_reason, weight_problem
 from hashaudit.settings import SettingError
 
 CSV_BLOCK_BYTES = 4 << 20
@@ -84,6 +91,38 @@ class _QuoteWatch(io.RawIOBase):
     def unclosed(self) -> int | None:
         """The byte offset of a quote whose field the input ended in, or None."""
         return int(self._state[3]) if self._state[1] and not self._state[2] else None
+
+
+class _Handoff(io.RawIOBase):
+    """The stream pyarrow reads, which only pyarrow holds: once it is freed, pyarrow will not call it again.
+
+    pyarrow reads ahead on a thread of its own, which calls this object's ``readinto`` (Python code) and goes on for
+    a moment after the reader is dropped. If such a call lands while the interpreter shuts down, the process aborts
+    ("PyGILState_Release ... finalizing", "terminate called without an active exception") instead of exiting with
+    its one line of error. :func:`_await_release` waits for pyarrow to let go of this object before the reader
+    function returns, so no call is left for shutdown.
+    """
+
+    def __init__(self, inner: io.RawIOBase) -> None:
+        self._inner = inner
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, buffer) -> int:  # type: ignore[no-untyped-def, override]
+        return self._inner.readinto(buffer) or 0
+
+
+# A read from a file ends in milliseconds; one from a pipe whose writer stalls may not end at all, and the process
+# must still exit (it may then abort, as it would have without the wait).
+_RELEASE_WAIT_SECONDS = 5.0
+
+
+def _await_release(released: weakref.ref) -> None:
+    """Wait (without the GIL, so pyarrow's thread can finish its read) until pyarrow has freed the stream."""
+    deadline = time.monotonic() + _RELEASE_WAIT_SECONDS
+    while released() is not None and time.monotonic() < deadline:
+        time.sleep(0.001)
 
 
 def delimiter_for(fmt: str, options: SourceOptions) -> str:
@@ -151,15 +190,13 @@ def resolve_columns(columns: tuple[str, ...], names: list[str], header: bool, na
     return resolved
 
 
-def _weights(column: pa.ChunkedArray, name: str, rows: int, label: str | None) -> np.ndarray:
-    """The weight column as float64: every value present, finite and not negative, else a one-line error."""
-    values = column.to_numpy(zero_copy_only=False)
-    bad = np.flatnonzero(~np.isfinite(values) | (values < 0)) if len(values) else np.zeros(0, np.int64)
-    if len(bad):
-        i = int(bad[0])
-        what = "is empty" if column.null_count and np.isnan(values[i]) else f"is {values[i]!r}"
-        raise InputError(f"{name} row {rows + i + 1}: weight {label!r} {what}; weights are numbers of at least 0")
-    return np.ascontiguousarray(values, dtype=np.float64)
+def _weight_error(column: pa.ChunkedArray, values: np.ndarray, index: int) -> str:
+    """Why the weight of row ``index`` of a block is not usable, without showing it (``"is empty"``, ``"is
+    negative"``)."""
+    raw = column[index].as_py()
+    if not (raw or b"").strip():
+        return "is empty"
+    return weight_problem(float(values[index])) or "is not a number"
 
 
 def _parse_weight(raw: bytes | None) -> float:
@@ -201,9 +238,8 @@ def read_delimited(
         so quotes are ordinary bytes of a key.
     options : SourceOptions
         Uses ``columns``, ``join``, ``delimiter``, ``header``, ``weight``, ``batch_keys`` and ``on_bad_record``
-        (``skip``: a row whose weight is not a number of at least 0 is dropped and counted as ``bad_weight``; a
-        row with the wrong number of fields is still an error, as the parser cannot tell where the next row
-        starts once quoting went wrong).
+        (``skip``: a row whose weight is not a number of at least 0 is dropped and counted as ``bad_weight``, a row
+        with the wrong number of fields as ``ragged_row``; a quoted field that never closes is still an error).
     stats : SourceStats
         ``records`` counts data rows.
 
@@ -215,7 +251,8 @@ def read_delimited(
     Raises
     ------
     InputError
-        Missing column, ragged rows or any other parse error (pyarrow's message on one line).
+        Missing column, a ragged row (``"row 3 has 5 fields, the header 4"``), a bad weight (``"row 3: weight 'w'
+        is negative"``) or any other parse error (pyarrow's message on one line, without the text it quotes).
     """
     delimiter = delimiter_for(fmt, options)
     quoted = fmt == "csv"
@@ -231,32 +268,43 @@ def read_delimited(
             raise SettingError("weight_column", f"{options.weight_column!r} is also a key column")
     wanted = list(dict.fromkeys(columns + ([weight] if weight is not None else [])))
     skip_bad = options.on_bad_record == "skip"
-    reader_options = pa_csv.ReadOptions(block_size=CSV_BLOCK_BYTES, autogenerate_column_names=not options.header)
+    # One thread: pyarrow numbers the rows only then (its invalid-row handler gets None otherwise), and a message
+    # must name the row. The streaming reader parses one block after another either way.
+    reader_options = pa_csv.ReadOptions(
+        block_size=CSV_BLOCK_BYTES, autogenerate_column_names=not options.header, use_threads=False
+    )
     ragged = [0]
+    first_ragged: list[tuple[int | None, int, int]] = []  # (row number, expected fields, fields): never its text
     counting = threading.Lock()
 
-    def skip_ragged(row: object) -> str:  # called by pyarrow for a row with the wrong number of fields
+    def on_ragged(row: pa_csv.InvalidRow) -> str:  # called by pyarrow for a row with the wrong number of fields
         with counting:
             ragged[0] += 1
-        return "skip"
+            if not first_ragged:
+                first_ragged.append((row.number, row.expected_columns, row.actual_columns))
+        return "skip" if skip_bad else "error"
 
     parse_options = pa_csv.ParseOptions(
         delimiter=delimiter,
         quote_char='"' if quoted else False,
         newlines_in_values=quoted,
-        invalid_row_handler=skip_ragged if skip_bad else None,
+        invalid_row_handler=on_ragged,
     )
     types = {c: pa.large_binary() for c in columns}
     if weight is not None:
-        # Skipping bad weights needs each field's text; failing on the first one lets the reader parse them.
-        types[weight] = pa.large_binary() if skip_bad else pa.float64()
+        types[weight] = pa.large_binary()  # parsed here, so a bad weight is named by its row, not quoted
     convert_options = pa_csv.ConvertOptions(column_types=types, include_columns=wanted, strings_can_be_null=False)
     separator = pa.scalar(options.join.encode("utf-8"), pa.large_binary())
     rows = 0
+    failure = None
+    reader = handoff = released = None
     try:
         source: io.RawIOBase = PrefixedReader(prefix, stream)
         watch = _QuoteWatch(source, delimiter) if quoted else None
-        reader = pa_csv.open_csv(watch or source, reader_options, parse_options, convert_options)
+        handoff = _Handoff(watch or source)
+        released = weakref.ref(handoff)
+        reader = pa_csv.open_csv(handoff, reader_options, parse_options, convert_options)
+        handoff = None  # pyarrow's reference is the only one left
         for table in reader:
             parts = [table.column(c) for c in columns]
             parts = [p.fill_null(b"") if p.null_count else p for p in parts]
@@ -265,10 +313,12 @@ def read_delimited(
             numbers = None
             if weight is None:
                 weights = None
-            elif not skip_bad:
-                weights = _weights(table.column(weight), name, rows, options.weight_column)
             else:
                 weights, bad = _weights_or_bad(table.column(weight))
+                if bad.any() and not skip_bad:
+                    i = int(np.flatnonzero(bad)[0])
+                    why = _weight_error(table.column(weight), weights, i)
+                    raise InputError(f"{name} row {rows + i + 1}: weight {options.weight_column!r} {why}")
                 if bad.any():
                     stats.skip("bad_weight", int(np.count_nonzero(bad)))
                     kept = np.flatnonzero(~bad)
@@ -291,6 +341,28 @@ def read_delimited(
                 "be one value (a stray quote at the start of a field?)"
             )
     except pa.ArrowException as exc:
-        detail = " ".join(str(exc).split())
-        where = f" (after data row {rows})" if rows else ""
-        raise InputError(f"{name}: {detail}{where}") from None
+        if first_ragged and not skip_bad:
+            failure = _ragged_message(name, first_ragged[0], options.header, rows)
+        else:
+            failure = f"{name}: {arrow_reason(exc)}" + (f" (after data row {rows})" if rows else "")
+    finally:
+        # Whatever ends the read (the end of the input, an error, a consumer that stops), pyarrow's read-ahead
+        # thread is done with the stream before this returns (see _Handoff). The reader is dropped first, which
+        # stops the reading ahead; the error is raised after the except clause, so that pyarrow's exception, whose
+        # traceback holds the reader, is gone by then.
+        reader = handoff = None
+        if released is not None:
+            _await_release(released)
+    if failure is not None:
+        raise InputError(failure)
+
+
+def _ragged_message(name: str, ragged: tuple[int | None, int, int], header: bool, rows: int) -> str:
+    """``"keys.csv row 3 has 5 fields, the header 4"``: the row named by its data row number, never shown."""
+    number, expected, actual = ragged
+    if number is None:  # pyarrow did not number it: say which rows it follows
+        where = f"a row after data row {rows}" if rows else "a row"
+    else:
+        where = f"row {number - 1 if header else number}"  # pyarrow counts the header row as row 1
+    first = "the header" if header else "the first row"
+    return f"{name} {where} has {actual} field{'s' if actual != 1 else ''}, {first} {expected}"

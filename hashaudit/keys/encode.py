@@ -36,8 +36,6 @@ from hashaudit.keys.options import KEY_FORMATS, SourceOptions
 from hashaudit.keys.records import RecordBatch, SourceStats
 from hashaudit.settings import SettingError
 
-_QUOTE_CHARS = 40
-
 # RFC 4648 section 5 (URL- and filename-safe alphabet) differs from section 4 only in these two characters.
 _URLSAFE_TO_STANDARD = bytes.maketrans(b"-_", b"+/")
 
@@ -51,12 +49,19 @@ class KeyValueError(InputError):
         self.reason = reason
 
 
-def quote_key(key: bytes) -> str:
-    """A key for an error message: decoded leniently, cut to 40 characters, quoted."""
-    text = key.decode("utf-8", "backslashreplace")
-    if len(text) > _QUOTE_CHARS:
-        text = text[:_QUOTE_CHARS] + "..."
-    return repr(text)
+def key_size(length: int) -> str:
+    """How an error message describes a key it may not show: by its length (``"(12 bytes)"``, ``"(empty key)"``).
+
+    Keys in production dumps are often personal data or credentials, so a message names the record and the
+    reason, never the key's text (the caller names the record).
+    """
+    if length == 0:
+        return "(empty key)"
+    return "(1 byte)" if length == 1 else f"({length} bytes)"
+
+
+def _length(batch: KeyBatch, index: int) -> int:
+    return int(batch.offsets[index + 1] - batch.offsets[index])
 
 
 def _packed(batch: KeyBatch) -> tuple[np.ndarray, np.ndarray]:
@@ -77,16 +82,15 @@ def decode_hex(batch: KeyBatch) -> KeyBatch:
     odd = np.flatnonzero(np.diff(offsets) & 1)
     if len(odd):
         i = int(odd[0])
-        reason = f"not hexadecimal: odd number of digits ({batch.lengths()[i]}) in {quote_key(batch.key(i))}"
-        raise KeyValueError(i, reason)
+        raise KeyValueError(i, f"not hexadecimal: an odd number of digits {key_size(_length(batch, i))}")
     # Every key has even length and keys are back to back, so digit pairs never straddle two keys.
     decoded = np.empty(len(data) // 2, dtype=np.uint8)
     if not hex_pairs(data, HEX_DIGIT_VALUES, decoded):
         bad = int(np.flatnonzero(HEX_DIGIT_VALUES[data] == 0xFF)[0])
         i = int(np.searchsorted(offsets, bad, side="right")) - 1
         column = int(bad - offsets[i]) + 1
-        char = bytes([int(data[bad])]).decode("latin-1")
-        raise KeyValueError(i, f"not hexadecimal: {char!r} at character {column} of {quote_key(batch.key(i))}")
+        size = key_size(int(offsets[i + 1] - offsets[i]))
+        raise KeyValueError(i, f"not hexadecimal: byte {column} is not a hex digit {size}")
     return KeyBatch(decoded, offsets // 2)
 
 
@@ -113,7 +117,9 @@ def decode_base64(batch: KeyBatch) -> KeyBatch:
         try:
             decoded.append(_base64_key(key))
         except binascii.Error as exc:
-            raise KeyValueError(i, f"not base64 ({exc}): {quote_key(key)}") from None
+            # binascii's reasons are fixed texts ("Incorrect padding"): they never quote the input
+            why = str(exc).rstrip(".")
+            raise KeyValueError(i, f"not base64: {why[:1].lower()}{why[1:]} {key_size(len(key))}") from None
     return KeyBatch.from_keys(decoded)
 
 
@@ -132,7 +138,7 @@ def parse_int(batch: KeyBatch) -> KeyBatch:
     index, code = parse_decimal(batch.data, batch.offsets, values)
     if index >= 0:
         what = "not a decimal integer" if code == PARSE_NOT_A_NUMBER else "integer out of range [-2^63, 2^64-1]"
-        raise KeyValueError(int(index), f"{what}: {quote_key(batch.key(int(index)))}")
+        raise KeyValueError(int(index), f"{what} {key_size(_length(batch, int(index)))}")
     return KeyBatch.from_uint64(values)
 
 

@@ -8,7 +8,6 @@ than speed: a key dump this large belongs in a plain key file or a delimited col
 from __future__ import annotations
 
 import json
-import math
 from collections.abc import Iterator
 from typing import Any
 
@@ -18,7 +17,7 @@ from hashaudit.errors import InputError
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.lines import read_lines
 from hashaudit.keys.open import Readable
-from hashaudit.keys.records import RecordBatch, SourceStats
+from hashaudit.keys.records import RecordBatch, SourceStats, weight_problem
 
 _JSON_SPACE = " \t\r\n"  # whitespace as RFC 8259 section 2 defines it
 _JSON_KINDS = {dict: "an object", list: "an array", str: "a string", bool: "a boolean", float: "a number"}
@@ -63,24 +62,22 @@ class _BadRecord(Exception):
 
 def _weight(record: Any, path: list[str], name: str, line_no: int) -> float:
     """The number at ``path`` of a record, at least 0 and finite as a float; a one-line error naming the line."""
+    label = ".".join(path)
     value = record
     for part in path:
         if not isinstance(value, dict) or part not in value:
-            raise _BadRecord("bad_weight", f"{name} line {line_no}: no weight {'.'.join(path)!r}")
+            raise _BadRecord("bad_weight", f"{name} line {line_no}: no weight {label!r}")
         value = value[part]
-    number = None
-    if not isinstance(value, bool) and isinstance(value, int | float):
-        try:
-            number = float(value)
-        except OverflowError:  # an integer beyond the float range
-            number = None
-    if number is None or not 0 <= number < math.inf:
-        shown = _kind(value) if isinstance(value, bool) or not isinstance(value, int | float) else repr(value)
-        if len(shown) > 40:
-            shown = f"{shown[:20]}... ({len(shown)} digits)"
-        raise _BadRecord(
-            "bad_weight", f"{name} line {line_no}: weight {'.'.join(path)!r} is {shown}, not a number of at least 0"
-        )
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        what = "is null" if value is None else f"is {_kind(value)}, not a number"
+        raise _BadRecord("bad_weight", f"{name} line {line_no}: weight {label!r} {what}")
+    try:
+        number = float(value)
+    except OverflowError:  # an integer beyond the float range
+        raise _BadRecord("bad_weight", f"{name} line {line_no}: weight {label!r} is too large") from None
+    problem = weight_problem(number)
+    if problem is not None:
+        raise _BadRecord("bad_weight", f"{name} line {line_no}: weight {label!r} {problem}")
     return number
 
 

@@ -111,9 +111,10 @@ class _TextCheck:
             self._no_nul(region, stream_offset)
             line_start = _find_lf(region[: exc.start], last=True) + 1
             line = first_line + int(np.count_nonzero(region[: exc.start] == LF))
+            # The position only: even one byte of a key is the key's content, which messages never show.
             raise InputError(
-                f"{self.name} line {line}: not valid UTF-8 (byte 0x{region[exc.start]:02x} at byte "
-                f"{exc.start - line_start + 1} of the line){self.hint}"
+                f"{self.name} line {line}: not valid UTF-8 (at byte {exc.start - line_start + 1} of the line)"
+                f"{self.hint}"
             ) from None
         if "\x00" in text:
             self._no_nul(region, stream_offset)

@@ -68,8 +68,14 @@ _ZSTD_CHUNK_BOUNDS = (1 << 10, 1 << 20)
 
 
 def display_name(source: str) -> str:
-    """How messages name a source: the path as given, ``<stdin>`` for ``-``."""
-    return "<stdin>" if source == STDIN else source
+    """How messages name a source: the path as given (a URL's password masked), ``<stdin>`` for ``-``."""
+    if source == STDIN:
+        return "<stdin>"
+    if "://" in source:  # a database URL read as a file (--format lines): its password stays out of messages
+        from hashaudit.keys.sql import mask_url
+
+        return mask_url(source)
+    return source
 
 
 def compression_for(source: str) -> str | None:
@@ -110,7 +116,7 @@ def source_size(source: str) -> int | None:
         else:
             st = os.stat(source)
     except OSError as exc:
-        raise InputError(f"{source}: cannot open: {exc.strerror or exc}") from None
+        raise InputError(f"{display_name(source)}: cannot open: {exc.strerror or type(exc).__name__}") from None
     if stat.S_ISDIR(st.st_mode):
         raise InputError(f"{display_name(source)}: is a directory, not a file of keys")
     return st.st_size if stat.S_ISREG(st.st_mode) else None
@@ -281,7 +287,7 @@ def open_source(source: str) -> Iterator[OpenedSource]:
         try:
             head = _read_head(counter, SNIFF_BYTES)
         except OSError as exc:
-            raise InputError(f"{name}: cannot read: {exc.strerror or exc}") from None
+            raise InputError(f"{name}: cannot read: {exc.strerror or type(exc).__name__}") from None
         compression = sniff_compression(head)
         raw: io.RawIOBase = PrefixedReader(head, counter)
         decompressed = _decompressing(raw, compression)
@@ -291,7 +297,7 @@ def open_source(source: str) -> Iterator[OpenedSource]:
     try:
         file = open(source, "rb", buffering=0)  # noqa: SIM115 - closed below, after the generator finishes
     except OSError as exc:
-        raise InputError(f"{name}: cannot open: {exc.strerror or exc}") from None
+        raise InputError(f"{name}: cannot open: {exc.strerror or type(exc).__name__}") from None
     try:
         counter = _Counting(file)
         decompressed = _decompressing(counter, compression)

@@ -1,7 +1,15 @@
-"""What a source hands on: keys with the numbers of the records they came from, and running counts."""
+"""What a source hands on: keys with the numbers of the records they came from, and running counts.
+
+Also how a source's messages speak of what it read. A message names the record (source, line or row, byte
+offset, column) and the reason, never the content of a key, a field or a row: key dumps are often personal data
+or credentials, and error lines end up in CI logs and tickets. Values the user typed (a column name, a
+delimiter, a pattern) may be quoted.
+"""
 
 from __future__ import annotations
 
+import math
+import re
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -77,3 +85,56 @@ class RecordBatch:
         if self.records is None:
             return RecordBatch(keys, self.first_record, self.first_record + kept.astype(np.int64), weights)
         return RecordBatch(keys, self.first_record, self.records[kept], weights)
+
+
+def weight_problem(number: float) -> str | None:
+    """What is wrong with a weight, worded for a message (``"is negative"``), or None for a usable weight.
+
+    Parameters
+    ----------
+    number : float
+        The weight as parsed (NaN when the field is not a number).
+
+    Returns
+    -------
+    str or None
+        ``"is not a number"``, ``"is not finite"``, ``"is negative"`` or None. The value itself is never part of
+        it: a weight is not a key, but it is a field of a record.
+    """
+    if math.isnan(number):
+        return "is not a number"
+    if math.isinf(number):
+        return "is not finite"
+    if number < 0:
+        return "is negative"
+    return None
+
+
+# pyarrow quotes the text some messages are about: a ragged row ("Expected 4 columns, got 5: <row>"), a CSV field
+# it could not convert ("invalid value '<field>'"), a string a cast could not parse ("Failed to parse string:
+# '<field>' as a scalar of type double"). The quoted part goes; the words and numbers around it stay.
+_ARROW_CONTENT = (
+    (re.compile(r"(Expected \d+ columns?, got \d+)\s*:.*", re.DOTALL), r"\1"),
+    (re.compile(r"(invalid value)\s*'.*", re.DOTALL), r"\1"),
+    (re.compile(r"(Failed to parse string)\s*:\s*'.*' (as a scalar of type \S+)", re.DOTALL), r"\1 \2"),
+)
+
+
+def arrow_reason(error: BaseException) -> str:
+    """A pyarrow error's message on one line, without the row or field text pyarrow appends to some of them.
+
+    Parameters
+    ----------
+    error : BaseException
+        Typically a ``pyarrow.ArrowException``.
+
+    Returns
+    -------
+    str
+        The message with whitespace collapsed and any quoted content cut (``"CSV parse error: Expected 4 columns,
+        got 5"``); the numbers pyarrow gives (rows, columns) stay.
+    """
+    text = " ".join(str(error).split()) or type(error).__name__
+    for pattern, kept in _ARROW_CONTENT:
+        text = pattern.sub(kept, text)
+    return text

@@ -250,8 +250,8 @@ def _tokens(query: str, lexis: _Lexis) -> Iterator[tuple[str, str]]:
         elif (query.startswith("--", i) and not (lexis.mysql and i + 2 < n and not query[i + 2].isspace())) or (
             c == "#" and lexis.mysql
         ):
-            end = _LINE_END.search(query, i)
-            i = n if end is None else end.end()
+            line_end = _LINE_END.search(query, i)
+            i = n if line_end is None else line_end.end()
         elif query.startswith("/*!", i) and lexis.mysql:
             i += 3  # MySQL runs the text of a /*! … */ comment: read it as code
         elif query.startswith("/*", i):

@@ -191,10 +191,18 @@ class KeyStream:
 
     def _keys(self, batches: Iterator[RecordBatch], opened: Any) -> Iterator[KeyBatch]:
         """Normalised keys of record batches, counted (``opened``: the byte stream, for progress)."""
-        for keys in counted_keys(batches, self._normaliser, self.stats, self._locate):
-            if opened is not None:
-                self.stats.bytes_read = opened.bytes_read
-            yield keys
+        try:
+            for keys in counted_keys(batches, self._normaliser, self.stats, self._locate):
+                if opened is not None:
+                    self.stats.bytes_read = opened.bytes_read
+                yield keys
+        finally:
+            # A reader stopped early (a bad record, a consumer that stops) lets go of its file and of pyarrow's
+            # read-ahead thread now. Left to the garbage collector (an error's traceback keeps it alive), it could be
+            # freed while the interpreter exits, and a read-ahead thread calling into it then aborts the process.
+            close = getattr(batches, "close", None)
+            if close is not None:
+                close()
 
     def _no_keys_message(self) -> str:
         stats = self.stats

@@ -11,15 +11,18 @@ The accumulator stores every hash value it is given (the engine passes only thos
 value per distinct key: 8 bytes per key, 16 for 128-bit functions) in slabs of at most 64 MiB. While the slabs
 stay within ``memory_bytes`` everything is sorted in memory at the end. Past the budget the slabs are
 *spilled*: each is split into 256 partitions (a counting sort) and appended to one file per partition (raw
-little-endian ``uint64``; ``(low, high)`` word pairs for 128-bit values) in a private folder made with
-``tempfile.mkdtemp`` under ``spill_dir``. The partition of a value is the top 8 bits of the value times the
-golden-ratio constant 0x9E3779B97F4A7C15 (Knuth's multiplicative hashing), not the top 8 bits of the value
-itself: a function under audit may well leave its top bits constant (a 32-bit function declared 64-bit, a 64-bit
-one widened to 128), and the partitions must stay small all the same. Equal values always land in the same
+little-endian ``uint64``; ``(low, high)`` word pairs for 128-bit values) in a private folder (``hashaudit-spill-``
+and a random suffix, made with ``tempfile.mkdtemp``: only this user may enter it) under ``spill_dir``. The
+partition of a value is the top 8 bits of the value times the golden-ratio constant 0x9E3779B97F4A7C15 (Knuth's
+multiplicative hashing), not the top 8 bits of the value itself: a function under audit may well leave its top bits
+constant (a 32-bit function declared 64-bit, a 64-bit one widened to 128), and the partitions must stay small all
+the same. Equal values always land in the same
 partition, so ``result()`` sorts and counts one partition at a time: its working set is one partition (about
 1/256 of the values) rather than all of them. Values that never left memory are partitioned the same way, slab
-by slab, at the end. The folder is removed when the result is computed, when the accumulator is closed, and when
-it is garbage-collected.
+by slab, at the end. The folder is removed when the result is computed, when the accumulator is closed, when it is
+garbage-collected, and, as a safety net, when the interpreter exits (an :mod:`atexit` hook removes every spill
+folder of the process still on disk). That covers a normal end, an exception, Ctrl-C, and SIGTERM once the command
+line turns it into ``SystemExit``; only SIGKILL or a crash leaves a folder behind.
 
 ``result()`` is the last step, like closing a file: it consumes the stored values (freeing their memory and
 disk space), keeps the result, and returns the same result when called again; ``update`` and ``merge`` then
@@ -50,6 +53,7 @@ import hashaudit._numba_setup  # noqa: F401  (sets the numba cache folder before
 
 # isort: split
 
+import atexit
 import math
 import os
 import shutil
@@ -74,6 +78,33 @@ SLAB_BYTES = 64 << 20  # largest in-memory slab; above glibc's largest mmap thre
 MIN_SLAB_BYTES = 1 << 20
 WIDTHS = (32, 64, 128)
 SMALL_ROWS = 1 << 20  # equality compares sets up to this size in one piece
+SPILL_PREFIX = "hashaudit-spill-"
+
+# Spill folders that may still be on disk, with the id of the process that made each: a child forked while they
+# exist inherits this table and its copies of the accumulators, and must not remove its parent's folders. A dict's
+# item assignment, pop and copy are atomic under the GIL, so threads need no lock (nor can the exit hook wait on
+# one that a dying thread holds).
+_LIVE_FOLDERS: dict[str, int] = {}
+
+
+def _remove_folder(folder: str) -> None:
+    """Remove a spill folder this process made, with everything in it (nothing if it is gone), and forget it."""
+    if _LIVE_FOLDERS.get(folder, os.getpid()) != os.getpid():
+        return
+    shutil.rmtree(folder, ignore_errors=True)
+    _LIVE_FOLDERS.pop(folder, None)
+
+
+@atexit.register
+def _remove_leftover_folders() -> None:
+    """At interpreter exit, remove the spill folders no ``close()``, result or garbage collection removed.
+
+    The command line turns SIGTERM into ``SystemExit``; the exception may leave accumulators referenced from its
+    traceback until the very end, so their folders are removed here. Threads that write spill files are not daemon
+    threads: the interpreter has joined them before atexit hooks run, so no file appears during the removal.
+    """
+    for folder in _LIVE_FOLDERS.copy():
+        _remove_folder(folder)
 
 
 # --------------------------------------------------------------------------------------------------------
@@ -380,8 +411,11 @@ class FullCollisions:
         if self._folder is None:
             if self.spill_dir is not None and not os.path.isdir(self.spill_dir):
                 raise UsageError(f"the spill folder {self.spill_dir!r} does not exist")
-            self._folder = tempfile.mkdtemp(prefix="hashaudit-collisions-", dir=self.spill_dir)
-            self._finalizer = weakref.finalize(self, shutil.rmtree, self._folder, True)
+            folder = tempfile.mkdtemp(prefix=SPILL_PREFIX, dir=self.spill_dir)
+            # Registered before any file is written in it: a signal in between could leave an empty folder at worst.
+            _LIVE_FOLDERS[folder] = os.getpid()
+            self._folder = folder
+            self._finalizer = weakref.finalize(self, _remove_folder, folder)
         return self._folder
 
     def _path(self, partition: int) -> str:

@@ -106,7 +106,7 @@ def test_crlf_and_lf_keys_are_the_same_keys(tmp_path):
 def test_invalid_utf8_names_the_line(tmp_path):
     code, line, _ = audit(tmp_path, "bad.txt", KEYS + b"ok\n\xc3\x28 bad\n")
     assert code == 2
-    assert "line 2002: not valid UTF-8 (byte 0xc3 at byte 1 of the line)" in line
+    assert "line 2002: not valid UTF-8 (at byte 1 of the line)" in line
 
 
 def test_invalid_utf8_with_raw_bytes(tmp_path):
@@ -272,8 +272,16 @@ def test_json_weights_that_are_not_usable_numbers(tmp_path, weight):
     data = b'{"k":"a","w":' + weight + b'}\n{"k":"b","w":1}\n'
     code, line, _ = audit(tmp_path, "w.jsonl", data, "-f", "k", "--weight-column", "w", "--shards", "4")
     assert code == 2
-    assert "line 1: weight 'w' is" in line
-    assert len(line) < 200  # a 400-digit weight is shortened in the message
+    # named by what is wrong, never by its value
+    reasons = (
+        "too large",
+        "not finite",
+        "negative",
+        "not a number",
+        "a boolean, not a number",
+        "a string, not a number",
+    )
+    assert any(line.endswith(f"line 1: weight 'w' is {reason}") for reason in (*reasons, "null")), line
 
 
 def test_json_lines_that_are_not_json(tmp_path):
@@ -313,7 +321,7 @@ def test_csv_newlines_inside_quotes(tmp_path):
 def test_csv_ragged_rows(tmp_path):
     code, line, _ = audit(tmp_path, "ragged.csv", b"k,v\n1,2\n3\n4,5,6\n")
     assert code == 2
-    assert "Expected 2 columns, got 1" in line
+    assert line.endswith("ragged.csv row 2 has 1 field, the header 2")
 
 
 def test_csv_byte_order_mark_before_the_header(tmp_path):
@@ -338,7 +346,7 @@ def test_csv_weight_that_is_not_a_number(tmp_path):
     data = b"k,w\na,1\nb,heavy\n"
     code, line, _ = audit(tmp_path, "w.csv", data, "-c", "k", "--weight-column", "w", "--shards", "4")
     assert code == 2
-    assert "invalid value 'heavy'" in line
+    assert line.endswith("w.csv row 2: weight 'w' is not a number") and "heavy" not in line
 
 
 # --- key formats ---------------------------------------------------------------------------------------------

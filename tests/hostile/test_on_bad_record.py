@@ -99,7 +99,7 @@ def test_fail_stops_at_the_first_bad_line(tmp_path):
     with pytest.raises(InputError, match=r"looks like a binary file \(NUL byte at offset 6\)"):
         read(path)
     path.write_bytes(MIXED.replace(b"c\x00d", b"cd"))
-    with pytest.raises(InputError, match=r"k\.txt line 2: not valid UTF-8 \(byte 0xff at byte 2 of the line\)"):
+    with pytest.raises(InputError, match=r"k\.txt line 2: not valid UTF-8 \(at byte 2 of the line\)"):
         read(path)
 
 
@@ -240,9 +240,12 @@ def test_json_lines_skip(tmp_path):
     [
         (b"not json", r"line 2: not valid JSON: Expecting value \(column 1\)$"),
         (b'{"x":1}', r"line 2: no field 'k' \(missing 'k'\)$"),
-        (b'{"k":"b","w":null}', r"line 2: weight 'w' is null, not a number of at least 0$"),
-        (b'{"k":"b","w":-1}', r"line 2: weight 'w' is -1, not a number of at least 0$"),
-        (b'{"k":"b","w":' + b"9" * 400 + b"}", r"line 2: weight 'w' is 9{20}\.\.\. \(400 digits\), not a number"),
+        (b'{"k":"b","w":null}', r"line 2: weight 'w' is null$"),
+        (b'{"k":"b","w":-1}', r"line 2: weight 'w' is negative$"),
+        (b'{"k":"b","w":' + b"9" * 400 + b"}", r"line 2: weight 'w' is too large$"),
+        (b'{"k":"b","w":NaN}', r"line 2: weight 'w' is not a number$"),
+        (b'{"k":"b","w":Infinity}', r"line 2: weight 'w' is not finite$"),
+        (b'{"k":"b","w":"3"}', r"line 2: weight 'w' is a string, not a number$"),
         (b'{"k":"b"}', r"line 2: no weight 'w'$"),
         (b'{"k":"\xff"}', r"line 2: not valid UTF-8"),
     ],
@@ -304,7 +307,7 @@ def test_key_format_skip_through_a_source(tmp_path):
     ]
     _, stats = read(path, key_format="int", on_bad_record=SKIP)
     assert stats.skipped == {"bad_key_format": 3}
-    with pytest.raises(InputError, match=r"ints\.txt line 2: not a decimal integer: 'x'$"):
+    with pytest.raises(InputError, match=r"ints\.txt line 2: not a decimal integer \(1 byte\)$"):
         read(path, key_format="int")
 
 
@@ -355,14 +358,14 @@ def test_csv_good_weights_read_alike_in_both_modes(tmp_path):
 def test_csv_bad_weight_fails_by_default(tmp_path):
     path = tmp_path / "w.csv"
     path.write_bytes(b"k,w\na,1\nb,heavy\n")
-    with pytest.raises(InputError, match=r"invalid value 'heavy'"):
+    with pytest.raises(InputError, match=r"w\.csv row 2: weight 'w' is not a number$"):
         read(path, columns=("k",), weight_column="w")
 
 
 def test_csv_ragged_rows_fail_or_are_skipped(tmp_path):
     path = tmp_path / "r.csv"
     path.write_bytes(b"k,v\n1,2\n3\n")
-    with pytest.raises(InputError, match="Expected 2 columns, got 1"):
+    with pytest.raises(InputError, match=r"r\.csv row 2 has 1 field, the header 2$"):
         read(path, on_bad_record="fail")
     stream = open_keys(path, SourceOptions(on_bad_record="skip"))
     assert [k for batch in stream for k in batch.to_list()] == [b"1"] and stream.stats.skipped == {"ragged_row": 1}
@@ -392,7 +395,7 @@ def test_parquet_bad_weights_skipped_and_null_keys_counted_apart(tmp_path):
     batches = list(stream)
     assert [k for b in batches for k in b.to_list()] == [b"a"]
     assert stream.stats.skipped == {"null": 2, "bad_weight": 3}
-    with pytest.raises(InputError, match="weight column 'w' must be numbers without nulls"):
+    with pytest.raises(InputError, match=r"w\.parquet row 2: weight 'w' is null$"):
         read(path, columns=("k",), weight_column="w")
 
 
@@ -434,7 +437,7 @@ def test_command_line_report_counts_the_skipped_records(tmp_path):
     args = ["audit", str(path), *QUICK, "-f", "k", "--weight-column", "w", "--shards", "4", "--json", str(report)]
     code, line = expect_clean(run(args), names=str(path))
     assert code == 2
-    assert line.endswith("line 7: not valid UTF-8 (byte 0xff at byte 7 of the line)")  # a block is checked first
+    assert line.endswith("line 7: not valid UTF-8 (at byte 7 of the line)")  # a block is checked first
     code, _ = expect_clean(run([*args, "--on-bad-record", "skip"]), report=report)
     assert code in (0, 1)
     source = read_report(report)["sources"][0]

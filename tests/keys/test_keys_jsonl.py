@@ -87,7 +87,7 @@ def test_path_through_a_non_object(tmp_path):
 
 def test_error_after_skipped_records_names_the_right_line(tmp_path):
     path = write(tmp_path, b'{"id": null}\n\n{"id": "12"}\n{"id": "x"}\n')
-    with pytest.raises(InputError, match=r"events\.jsonl line 4: not a decimal integer: 'x'"):
+    with pytest.raises(InputError, match=r"events\.jsonl line 4: not a decimal integer \(1 byte\)$"):
         read_all(path, field="id", key_format="int")
 
 

@@ -199,7 +199,7 @@ def test_gzip_data_without_suffix_gets_a_hint(tmp_path):
 
 def test_invalid_utf8_names_the_line(tmp_path, monkeypatch):
     data = b"one\ntwo\nthr\xe9e\nfour\n"
-    with pytest.raises(InputError, match=r"keys.txt line 3: not valid UTF-8 \(byte 0xe9 at byte 4 of the line\)"):
+    with pytest.raises(InputError, match=r"keys.txt line 3: not valid UTF-8 \(at byte 4 of the line\)"):
         read_all(write(tmp_path, data))
     monkeypatch.setattr(lines_module, "BLOCK_BYTES", 3)  # the error line now sits in a later block
     with pytest.raises(InputError, match=r"line 3: not valid UTF-8"):
