@@ -198,8 +198,3 @@ def _plain(table: dict, known: dict[str, type], path: Path, text: str, section: 
         if not fits:
             raise UsageError(f"{at}: {key!r} in [{section}] must be {'a number' if kind is float else 'a string'}")
     return dict(table)
-
-
-def resolve_output(cli_value: str | None, config: GateConfig, kind: str) -> str | None:
-    """A report path: the command line wins over the file's [reports]."""
-    return cli_value or config.reports.get(kind)

@@ -23,7 +23,7 @@ from __future__ import annotations
 import math
 import re
 from collections.abc import Callable, Iterable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any
 
 from hashaudit.errors import UsageError
@@ -150,7 +150,6 @@ class Setting:
     metavar: str | None = None
     recorded: bool = True
     negatable: bool = False
-    extra: dict = field(default_factory=dict, compare=False)
 
     def __post_init__(self) -> None:
         if self.section not in SECTIONS or self.kind not in KINDS:

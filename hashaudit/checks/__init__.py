@@ -40,11 +40,6 @@ DEFAULT_GROUPS: tuple[str, ...] = tuple(g.name for g in GROUPS if g.default)
 FACTS_ONLY: frozenset[str] = frozenset(c.name for c in CHECKS.values() if c.facts_only)
 
 
-def group_of(check: str) -> CheckGroup:
-    """The group a check belongs to."""
-    return next(g for g in GROUPS if check in g.check_names)
-
-
 def parse_checks(text: str | list | tuple | None) -> tuple[str, ...]:
     """Groups named by ``--checks``: groups or check names (comma-separated text or a list), or ``all``.
 
@@ -168,7 +163,6 @@ __all__ = [
     "Conclusion",
     "Tested",
     "Thresholds",
-    "group_of",
     "group_settings",
     "judge",
     "parse_checks",

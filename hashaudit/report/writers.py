@@ -10,8 +10,9 @@ from __future__ import annotations
 
 import json
 import os
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import IO, TYPE_CHECKING, Protocol
+from typing import IO, TYPE_CHECKING
 
 import click
 
@@ -22,21 +23,6 @@ if TYPE_CHECKING:  # the renderers load when a report is written: the command li
 __all__ = ["WRITERS", "ReportWriter", "write_reports"]
 
 STDOUT = "-"
-
-
-class WriteReport(Protocol):
-    """The signature every report writer has."""
-
-    def __call__(
-        self,
-        result: AuditResult,
-        path: str | os.PathLike,
-        *,
-        show_keys: bool = False,
-        comparison: Comparison | None = None,
-        stdout: IO[str] | None = None,
-    ) -> None:
-        """Write the report of ``result`` to ``path``."""
 
 
 @dataclass(frozen=True)
@@ -52,101 +38,74 @@ class ReportWriter:
         The usual suffix of the file, with its dot.
     help : str
         One sentence for the command-line option that asks for the report.
-    write : WriteReport
-        ``write(result, path, *, show_keys=False, comparison=None, stdout=None)`` writes the report.
+    render : callable
+        ``render(result, show_keys, comparison) -> str``: the report's text (renderers compute nothing).
     """
 
     name: str
     suffix: str
     help: str
-    write: WriteReport
+    render: Callable[[AuditResult, bool, Comparison | None], str]
+
+    def write(
+        self,
+        result: AuditResult,
+        path: str | os.PathLike,
+        *,
+        show_keys: bool = False,
+        comparison: Comparison | None = None,
+        stdout: IO[str] | None = None,
+    ) -> None:
+        """Write the report to ``path`` atomically, or to ``stdout`` (standard output by default) for ``-``."""
+        from hashaudit.report.json_report import write_text_atomically
+
+        text = self.render(result, show_keys, comparison)
+        if str(path) == STDOUT:
+            click.echo(text, file=stdout, nl=False)
+        else:
+            write_text_atomically(path, text)
 
 
-def _emit(path: str | os.PathLike, text: str, stdout: IO[str] | None) -> None:
-    """Write a text report to ``path``, or to ``stdout`` (standard output by default) when the path is ``-``."""
-    from hashaudit.report.json_report import write_text_atomically
-
-    if str(path) == STDOUT:
-        click.echo(text, file=stdout, nl=False)
-    else:
-        write_text_atomically(path, text)
-
-
-def _rows(comparison: Comparison | None) -> list[dict] | None:
-    """The comparison rows the Markdown and JUnit renderers take."""
-    return None if comparison is None else comparison.rows
-
-
-def _write_json(
-    result: AuditResult,
-    path: str | os.PathLike,
-    *,
-    show_keys: bool = False,
-    comparison: Comparison | None = None,
-    stdout: IO[str] | None = None,
-) -> None:
+def _json(result: AuditResult, show_keys: bool, comparison: Comparison | None) -> str:
     """The JSON report, with the comparison as its ``baseline`` block when there is one."""
     from hashaudit.report.json_report import report_dict, to_json
 
     if comparison is None:
-        text = to_json(result)
-    else:
-        document = report_dict(result)
-        document["baseline"] = comparison.to_dict()
-        # not allow_nan=False: a baseline file read back may hold NaN effects (json.load accepts them)
-        text = json.dumps(document, indent=2, ensure_ascii=False) + "\n"
-    _emit(path, text, stdout)
+        return to_json(result)
+    document = report_dict(result)
+    document["baseline"] = comparison.to_dict()
+    # not allow_nan=False: a baseline file read back may hold NaN effects (json.load accepts them)
+    return json.dumps(document, indent=2, ensure_ascii=False) + "\n"
 
 
-def _write_markdown(
-    result: AuditResult,
-    path: str | os.PathLike,
-    *,
-    show_keys: bool = False,
-    comparison: Comparison | None = None,
-    stdout: IO[str] | None = None,
-) -> None:
-    """The Markdown summary; it never shows keys, so ``show_keys`` is ignored."""
+def _markdown(result: AuditResult, show_keys: bool, comparison: Comparison | None) -> str:
+    """The Markdown summary (never shows keys)."""
     from hashaudit.report.markdown import render_markdown
 
-    _emit(path, render_markdown(result, comparison=_rows(comparison)), stdout)
+    return render_markdown(result, comparison=None if comparison is None else comparison.rows)
 
 
-def _write_junit(
-    result: AuditResult,
-    path: str | os.PathLike,
-    *,
-    show_keys: bool = False,
-    comparison: Comparison | None = None,
-    stdout: IO[str] | None = None,
-) -> None:
-    """The JUnit XML report; it never shows keys, and ``-`` is a file name here."""
+def _junit(result: AuditResult, show_keys: bool, comparison: Comparison | None) -> str:
+    """The JUnit XML report (never shows keys)."""
     from hashaudit.report.junit import render_junit
 
-    _emit(path, render_junit(result, comparison=_rows(comparison)), stdout)
+    return render_junit(result, comparison=None if comparison is None else comparison.rows)
 
 
-def _write_html(
-    result: AuditResult,
-    path: str | os.PathLike,
-    *,
-    show_keys: bool = False,
-    comparison: Comparison | None = None,
-    stdout: IO[str] | None = None,
-) -> None:
-    """The HTML page; it does not show the comparison, and ``-`` is a file name here."""
+def _html(result: AuditResult, show_keys: bool, comparison: Comparison | None) -> str:
+    """The HTML page (it does not show the comparison)."""
     from hashaudit.report.html import render_html
 
-    _emit(path, render_html(result, show_keys=show_keys), stdout)
+    return render_html(result, show_keys=show_keys)
 
 
 WRITERS: dict[str, ReportWriter] = {
     writer.name: writer
     for writer in (
-        ReportWriter("json", ".json", "Write the JSON report to FILE ('-': stdout).", _write_json),
-        ReportWriter("markdown", ".md", "Write a Markdown summary to FILE ('-': stdout).", _write_markdown),
-        ReportWriter("junit", ".xml", "Write JUnit XML to FILE, one test case per check.", _write_junit),
-        ReportWriter("html", ".html", "Write the HTML report (one self-contained file) to FILE.", _write_html),
+        ReportWriter("json", ".json", "Write the JSON report to FILE ('-': stdout).", _json),
+        ReportWriter("markdown", ".md", "Write a Markdown summary to FILE ('-': stdout).", _markdown),
+        ReportWriter("junit", ".xml", "Write JUnit XML to FILE, one test case per check ('-': stdout).", _junit),
+        ReportWriter("html", ".html", "Write the HTML report (one self-contained file) to FILE ('-': stdout).", _html),
     )
 }
 
