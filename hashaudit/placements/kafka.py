@@ -26,23 +26,15 @@ import operator
 import numpy as np
 from numba import njit, uint32
 
+from hashaudit.hashes.murmur import (
+    _load32,
+)  # little-endian 4-byte blocks at any alignment, as the JVM client reads them
 from hashaudit.keys.batch import KeyBatch
 
 SEED = 0x9747B28C
 _M = 0x5BD1E995
 _R = 24
 _POSITIVE = 0x7FFFFFFF
-
-
-@njit(cache=True, nogil=True)
-def _load32(data, p):  # pragma: no cover - compiled
-    # byte by byte: keys start at any alignment; the JVM client assembles the block the same way
-    return (
-        uint32(data[p])
-        | (uint32(data[p + 1]) << uint32(8))
-        | (uint32(data[p + 2]) << uint32(16))
-        | (uint32(data[p + 3]) << uint32(24))
-    )
 
 
 @njit(cache=True, nogil=True)
