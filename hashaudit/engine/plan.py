@@ -97,6 +97,8 @@ class AuditPlan:
         """The JSON report's ``settings``: every recorded setting by name, then ``thresholds``."""
         declared = plan_settings()
         block = {name: s.to_json(self._values[name]) for name, s in declared.items() if s.recorded}
+        if not any(g.subjects == "hashes" for g in self.groups()):
+            block["hashes"] = []  # only placements ran: no hash function was audited
         block["thresholds"] = self.thresholds.as_dict()
         return block
 
