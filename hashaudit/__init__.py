@@ -30,6 +30,7 @@ _EXPORTS = {
     "InputError": "hashaudit.errors",
     "KeyBatch": "hashaudit.keys.batch",
     "MergeError": "hashaudit.errors",
+    "ResourceError": "hashaudit.errors",
     "SourceOptions": "hashaudit.keys.options",
     "Thresholds": "hashaudit.checks",
     "UsageError": "hashaudit.errors",

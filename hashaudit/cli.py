@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import signal
 import sys
 import threading
@@ -97,18 +98,20 @@ def _source_options(values: dict):  # type: ignore[no-untyped-def]
     return options
 
 
-def _show(result, quiet: bool, show_all: bool, color: bool | None, comparison=None) -> None:  # type: ignore[no-untyped-def]
-    """The terminal report (and the baseline comparison) on standard output."""
+def _show(result, quiet: bool, show_all: bool, color: bool | None, outputs: dict, comparison=None) -> None:  # type: ignore[no-untyped-def]
+    """The terminal report (and the baseline comparison) on standard output, or on standard error when a report
+    was written there (``-``), so that standard output stays that one report."""
     if quiet:
         return
     from hashaudit.report.terminal import render
 
-    use_colour = sys.stdout.isatty() if color is None else color
-    click.echo(render(result, show_all=show_all, colour=use_colour), color=use_colour)
+    err = "-" in outputs.values()
+    use_colour = (sys.stderr if err else sys.stdout).isatty() if color is None else color
+    click.echo(render(result, show_all=show_all, colour=use_colour), color=use_colour, err=err)
     if comparison is not None:
         from hashaudit.report.baseline import comparison_text
 
-        click.echo(comparison_text(comparison.rows))
+        click.echo(comparison_text(comparison.rows), err=err)
 
 
 @cli.command(cls=SectionedCommand)
@@ -165,7 +168,7 @@ def audit(sources, databases, show_keys, show_all, quiet, color, debug, engine, 
             if progress is not None:
                 progress.close()
     write_reports(result, outputs, show_keys=show_keys)
-    _show(result, quiet, show_all, color)
+    _show(result, quiet, show_all, color, outputs)
     sys.exit(result.exit_code)
 
 
@@ -210,7 +213,7 @@ def gate(config_path, baseline, tolerance, show_all, quiet, color, debug, thread
         rows = compare(report_dict(result), old, config.tolerance if tolerance is None else tolerance)
         comparison = Comparison(base_path, rows)
     write_reports(result, outputs, comparison=comparison)
-    _show(result, quiet, show_all, color, comparison)
+    _show(result, quiet, show_all, color, outputs, comparison)
     sys.exit(EXIT_FAIL if result.exit_code or (comparison is not None and comparison.regressed) else EXIT_OK)
 
 
@@ -389,6 +392,11 @@ def _on_sigterm(signum: int, frame: object) -> None:
     raise SystemExit(143)
 
 
+def _one_line(text: str) -> str:
+    """``text`` with its control characters (a newline in a file name, say) written as escapes: one line."""
+    return re.sub(r"[\x00-\x1f\x7f]", lambda m: repr(m[0])[1:-1], text)
+
+
 def main(argv: list[str] | None = None) -> None:
     """Entry point: run the command, turning expected errors into one line on stderr and exit code 2."""
     on_main_thread = threading.current_thread() is threading.main_thread()  # the only thread that may set one
@@ -407,23 +415,31 @@ def main(argv: list[str] | None = None) -> None:
         if _debug_requested(argv):
             traceback.print_exc()
         message = as_flags(exc) if isinstance(exc, SettingError) else str(exc)
-        click.echo(f"hashaudit: error: {message}", err=True)
+        click.echo(f"hashaudit: error: {_one_line(message)}", err=True)
         code = EXIT_ERROR
     except MemoryError:
-        click.echo("hashaudit: error: out of memory (try smaller --buckets)", err=True)
+        if _debug_requested(argv):
+            traceback.print_exc()
+        click.echo(
+            "hashaudit: error: out of memory (try smaller --buckets, a smaller --distinct-memory or "
+            "--collision-memory, or fewer hash functions at once)",
+            err=True,
+        )
         code = EXIT_ERROR
     except OSError as exc:
         if _debug_requested(argv):
             traceback.print_exc()
         where = f" {exc.filename!r}" if getattr(exc, "filename", None) else ""
-        click.echo(f"hashaudit: error:{where} {exc.strerror or exc}", err=True)
+        click.echo(f"hashaudit: error:{_one_line(where)} {_one_line(str(exc.strerror or exc))}", err=True)
         code = EXIT_ERROR
     except SystemExit as exc:
         code = exc.code if isinstance(exc.code, int) else EXIT_ERROR
     except Exception as exc:  # a bug: still one line, and the way to see more
         if _debug_requested(argv):
             traceback.print_exc()
-        click.echo(f"hashaudit: internal error: {type(exc).__name__}: {exc} (rerun with --debug)", err=True)
+        click.echo(
+            f"hashaudit: internal error: {type(exc).__name__}: {_one_line(str(exc))} (rerun with --debug)", err=True
+        )
         code = EXIT_ERROR
     if previous is not None:  # None: not set from Python (or not the main thread), so nothing to put back
         signal.signal(signal.SIGTERM, previous)

@@ -25,6 +25,10 @@ class InputError(HashAuditError):
     """A source that cannot be read as keys."""
 
 
+class ResourceError(HashAuditError):
+    """The machine ran short of something the audit needs (disk space for spill files)."""
+
+
 class UnknownHashError(UsageError):
     """A hash function name that is not registered."""
 

@@ -9,7 +9,7 @@ def test_all_is_sorted_and_exact():
     assert hashaudit.__all__ == sorted(hashaudit.__all__)
     assert hashaudit.__all__ == [
         "AuditPlan", "AuditResult", "BitCounts", "BucketCounts", "DistinctKeys", "Finding", "FullCollisions",
-        "HashAuditError", "HashRegistry", "HashSpec", "InputError", "KeyBatch", "KeySample", "MergeError", "REGISTRY", "SourceOptions", "Thresholds", "UsageError",
+        "HashAuditError", "HashRegistry", "HashSpec", "InputError", "KeyBatch", "KeySample", "MergeError", "REGISTRY", "ResourceError", "SourceOptions", "Thresholds", "UsageError",
         "__version__", "audit", "audit_batches", "bucket_index", "from_callable", "get_hash", "open_keys",
         "plan_capacity",
     ]  # fmt: skip

@@ -64,6 +64,9 @@ def conclude(
         Compute the data of the HTML page's figures (``AuditResult.plots``): the no-collision curve (a subsample
         simulation) and the flip matrices. Without it nothing is drawn and the JSON is the same.
     """
+    cut = 0
+    if sample is not None:
+        sample, cut = sample.cut_long_keys()
     ctx = Conclusion(plan, states, tables, keys, occurrences, sample, heavy, figures=figures)
     family: list[tuple[str, str | None, int | None, int, Any]] = []
     for state in states:
@@ -105,7 +108,7 @@ def conclude(
     }
     settings = plan.settings_block()
     return AuditResult(
-        overall, keys, tuple(hash_audits), tuple(sources), settings, run, occurrences, ctx.plots, tuple(tables)
+        overall, keys, tuple(hash_audits), tuple(sources), settings, run, occurrences, ctx.plots, tuple(tables), cut
     )
 
 

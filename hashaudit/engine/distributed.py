@@ -166,7 +166,9 @@ def _partition_batches(part: _Partition, stats: SourceStats):  # type: ignore[no
         stats.bytes_read = (part.end or 0) - (part.start or 0)
         records = line_records(io.BytesIO(data), part.source, o, stats)
         where = "{} line {} of the byte range at " + str(part.start)  # lines counted from the range's start
-    yield from counted_keys(records, Normaliser(o), stats, lambda r: where.format(part.source, r))
+    limit = o.max_key_bytes if part.row_group is not None else None  # line_records holds lines to it already
+    skip = o.on_bad_record == "skip"
+    yield from counted_keys(records, Normaliser(o), stats, lambda r: where.format(part.source, r), limit, skip)
 
 
 def _stage_read(part: _Partition, plan: AuditPlan, pairs: list, bits: int) -> tuple[list, _Partial]:

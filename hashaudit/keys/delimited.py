@@ -344,7 +344,10 @@ def read_delimited(
         if first_ragged and not skip_bad:
             failure = _ragged_message(name, first_ragged[0], options.header, rows)
         else:
-            failure = f"{name}: {arrow_reason(exc)}" + (f" (after data row {rows})" if rows else "")
+            # pyarrow parses ahead of the rows handed on and does not say which row failed: name the last good one
+            failure = f"{name}: {arrow_reason(exc)}" + (
+                f" (somewhere after data row {rows:,}, the last one read)" if rows else ""
+            )
     finally:
         # Whatever ends the read (the end of the input, an error, a consumer that stops), pyarrow's read-ahead
         # thread is done with the stream before this returns (see _Handoff). The reader is dropped first, which
@@ -361,7 +364,7 @@ def _ragged_message(name: str, ragged: tuple[int | None, int, int], header: bool
     """``"keys.csv row 3 has 5 fields, the header 4"``: the row named by its data row number, never shown."""
     number, expected, actual = ragged
     if number is None:  # pyarrow did not number it: say which rows it follows
-        where = f"a row after data row {rows}" if rows else "a row"
+        where = f"a row somewhere after data row {rows:,}" if rows else "a row"
     else:
         where = f"row {number - 1 if header else number}"  # pyarrow counts the header row as row 1
     first = "the header" if header else "the first row"

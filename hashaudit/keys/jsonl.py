@@ -122,6 +122,7 @@ def read_jsonl(
     batch_keys: int = 1 << 20,
     weight: str | None = None,
     skip_bad: bool = False,
+    max_key_bytes: int | None = None,
 ) -> Iterator[RecordBatch]:
     """Yield the value at ``field`` (a dotted path) of every record of a JSON Lines stream.
 
@@ -142,7 +143,9 @@ def read_jsonl(
         Dotted path of each record's weight (a number of at least 0).
     skip_bad : bool
         Drop a line that is not UTF-8 JSON, lacks the field or has no valid weight, counting it in ``stats`` as
-        ``bad_utf8``, ``bad_json``, ``missing_field`` or ``bad_weight``, instead of raising.
+        ``bad_utf8``, ``bad_json``, ``missing_field``, ``bad_weight`` or ``too_long``, instead of raising.
+    max_key_bytes : int, optional
+        Longest line accepted (see :func:`hashaudit.keys.lines.read_lines`).
 
     Yields
     ------
@@ -158,7 +161,16 @@ def read_jsonl(
     path = split_field_path(field)
     weight_path = split_field_path(weight) if weight is not None else None
     decode = json.JSONDecoder().raw_decode
-    lines = read_lines(stream, name, check_text=True, batch_keys=batch_keys, hint=None, skip_bad=skip_bad, stats=stats)
+    lines = read_lines(
+        stream,
+        name,
+        check_text=True,
+        batch_keys=batch_keys,
+        hint=None,
+        skip_bad=skip_bad,
+        stats=stats,
+        max_key_bytes=max_key_bytes,
+    )
     for block in lines:
         # The block is valid UTF-8 (read_lines checked it) and split at LFs: decode it once, not line by line.
         texts = b"\n".join(block.keys.to_list()).decode("utf-8").split("\n")

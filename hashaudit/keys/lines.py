@@ -108,7 +108,7 @@ class _TextCheck:
         try:
             text, _ = codecs.utf_8_decode(region.data, "strict", True)
         except UnicodeDecodeError as exc:
-            self._no_nul(region, stream_offset)
+            self.no_nul(region, stream_offset)
             line_start = _find_lf(region[: exc.start], last=True) + 1
             line = first_line + int(np.count_nonzero(region[: exc.start] == LF))
             # The position only: even one byte of a key is the key's content, which messages never show.
@@ -117,7 +117,7 @@ class _TextCheck:
                 f"{self.hint}"
             ) from None
         if "\x00" in text:
-            self._no_nul(region, stream_offset)
+            self.no_nul(region, stream_offset)
 
     def is_text(self, region: np.ndarray, stream_offset: int) -> bool:
         """True when ``region`` is UTF-8 without NUL bytes; raises only for a compressed file without its suffix."""
@@ -133,7 +133,8 @@ class _TextCheck:
             raise InputError(f"{self.name}: starts like {kind} data: give the file its compression suffix")
         return False
 
-    def _no_nul(self, region: np.ndarray, stream_offset: int) -> None:
+    def no_nul(self, region: np.ndarray, stream_offset: int) -> None:
+        """Raise the binary-file error when ``region`` holds a NUL byte."""
         nul = np.flatnonzero(region == 0)
         if not len(nul):
             return
@@ -171,19 +172,32 @@ def _not_text(data: np.ndarray, offsets: np.ndarray) -> tuple[np.ndarray, np.nda
     return bad_utf8, (per_line & 2).astype(bool) & ~bad_utf8
 
 
-def _text_lines(block: KeyBatch, first_line: int, batch_keys: int, stats: SourceStats | None) -> Iterator[RecordBatch]:
-    """The lines of a block that are text, numbered; the others counted as skipped records."""
-    bad_utf8, nul = _not_text(block.data, block.offsets)
-    if stats is not None:
-        stats.skip("bad_utf8", int(np.count_nonzero(bad_utf8)))
-        stats.skip("nul_byte", int(np.count_nonzero(nul)))
-        stats.records += int(np.count_nonzero(bad_utf8 | nul))
-    kept = np.flatnonzero(~(bad_utf8 | nul))
+def _kept_lines(
+    block: KeyBatch, first_line: int, batch_keys: int, stats: SourceStats | None, dropped: dict[str, np.ndarray]
+) -> Iterator[RecordBatch]:
+    """The lines of a block that no mask of ``dropped`` (reason -> mask) marks, numbered; the others counted as
+    skipped records under their first reason."""
+    gone = np.zeros(len(block), dtype=bool)
+    for reason, mask in dropped.items():
+        fresh = mask & ~gone
+        if stats is not None:
+            stats.skip(reason, int(np.count_nonzero(fresh)))
+            stats.records += int(np.count_nonzero(fresh))
+        gone |= fresh
+    kept = np.flatnonzero(~gone)
     keys = block.take(kept)
     numbers = first_line + kept
     for start in range(0, len(kept), batch_keys):
         stop = min(start + batch_keys, len(kept))
         yield RecordBatch(keys.slice(start, stop), int(numbers[start]), numbers[start:stop])
+
+
+def too_long_message(where: str, limit: int) -> str:
+    """The message for a record (``where``: source and line or row) whose key is longer than ``max_key_bytes``."""
+    return (
+        f"{where}: a key of more than {limit:,} bytes (raise --max-key-bytes, or skip such records with "
+        f"--on-bad-record skip)"
+    )
 
 
 def read_lines(
@@ -197,6 +211,7 @@ def read_lines(
     block_bytes: int | None = None,
     skip_bad: bool = False,
     stats: SourceStats | None = None,
+    max_key_bytes: int | None = None,
 ) -> Iterator[RecordBatch]:
     """Yield the lines of ``stream`` as keys, in batches of at most ``batch_keys``.
 
@@ -221,7 +236,11 @@ def read_lines(
         starts like compressed data is still an error). Only a block where the fast whole-block check failed is
         looked at line by line.
     stats : SourceStats or None
-        Where dropped lines are counted, as records read and skipped (``bad_utf8``, ``nul_byte``).
+        Where dropped lines are counted, as records read and skipped (``bad_utf8``, ``nul_byte``, ``too_long``).
+    max_key_bytes : int or None
+        Longest line accepted as a key: a longer one raises ``InputError`` naming its line (or, with
+        ``skip_bad``, is dropped and counted as ``too_long``) as soon as that many bytes of it are read, so a file
+        without line breaks never fills memory. None: no limit.
 
     Yields
     ------
@@ -233,11 +252,13 @@ def read_lines(
     slack = block // 8  # room for the unfinished line carried over, so the buffer is rarely reallocated
     checker = _TextCheck(name, hint) if check_text else None
     splitter = _Splitter(drop_cr=not keep_cr)
+    limit = max_key_bytes
     buf = np.empty(block + slack, dtype=np.uint8)
     have = 0
     line_no = 1
     stream_offset = 0
     eof = False
+    discarding = False  # skipping the rest of a line longer than the limit
     while not eof:
         if len(buf) - have < block:  # a long line is being carried: grow geometrically, not block by block
             grown = np.empty(max(have + block + slack, 2 * len(buf)), dtype=np.uint8)
@@ -246,11 +267,32 @@ def read_lines(
         got = _fill(stream, buf.data[have : have + block])
         have += got
         eof = got < block
+        if discarding:
+            lf = _find_lf(buf[:have], last=False)
+            stream_offset += have if lf < 0 else lf + 1
+            if lf < 0:
+                have = 0
+                continue
+            buf[: have - lf - 1] = buf[lf + 1 : have]
+            have -= lf + 1
+            line_no += 1
+            discarding = False
         if eof:
             end = have
         else:
             end = _find_lf(buf[:have], last=True) + 1
             if end == 0:
+                if limit is not None and have > limit:  # one line already longer than any key may be
+                    if checker is not None:
+                        checker.no_nul(buf[:have], stream_offset)
+                    if not skip_bad:
+                        raise InputError(too_long_message(f"{name} line {line_no}", limit))
+                    if stats is not None:
+                        stats.skip("too_long")
+                        stats.records += 1
+                    stream_offset += have
+                    have = 0
+                    discarding = True
                 continue  # no complete line yet: read on
         region = buf[:end]
         lines = int(np.count_nonzero(region == LF))
@@ -262,12 +304,21 @@ def read_lines(
                 checker.check(region, line_no, stream_offset)
         data, offsets = splitter.split(region, lines, eof)
         keys = len(offsets) - 1
-        if text:
+        dropped: dict[str, np.ndarray] = {}
+        if not text:
+            dropped["bad_utf8"], dropped["nul_byte"] = _not_text(data, offsets)
+        if limit is not None and end > limit:
+            too_long = np.diff(offsets) > limit
+            if too_long.any():
+                if not skip_bad:
+                    raise InputError(too_long_message(f"{name} line {line_no + int(np.argmax(too_long))}", limit))
+                dropped["too_long"] = too_long
+        if dropped:
+            yield from _kept_lines(KeyBatch(data, offsets), line_no, batch_keys, stats, dropped)
+        else:
             for start in range(0, keys, batch_keys):
                 stop = min(start + batch_keys, keys)
                 yield RecordBatch(KeyBatch(data, offsets[start : stop + 1]), line_no + start)
-        else:
-            yield from _text_lines(KeyBatch(data, offsets), line_no, batch_keys, stats)
         del data, offsets  # the consumer may keep its batches; this generator need not keep them too
         line_no += keys
         stream_offset += end

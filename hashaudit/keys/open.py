@@ -119,6 +119,9 @@ def source_size(source: str) -> int | None:
         raise InputError(f"{display_name(source)}: cannot open: {exc.strerror or type(exc).__name__}") from None
     if stat.S_ISDIR(st.st_mode):
         raise InputError(f"{display_name(source)}: is a directory, not a file of keys")
+    if source != STDIN and (stat.S_ISCHR(st.st_mode) or stat.S_ISBLK(st.st_mode)):
+        # /dev/zero or /dev/urandom never end; a disk read as keys is a mistake. A pipe (or - ) is still welcome.
+        raise InputError(f"{display_name(source)}: is a device, not a file of keys (pipe a bounded part of it instead)")
     return st.st_size if stat.S_ISREG(st.st_mode) else None
 
 

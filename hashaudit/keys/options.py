@@ -12,6 +12,7 @@ DRIVERS = ("auto", "adbc", "sqlalchemy")
 INTEGER_FORMATS = ("le64", "decimal")
 ON_BAD_RECORD = ("fail", "skip")
 MAX_SPLIT_PARTS = 4096
+DEFAULT_MAX_KEY_BYTES = 16 << 20
 
 SOURCE_SETTINGS: tuple[Setting, ...] = (
     Setting(
@@ -112,6 +113,16 @@ SOURCE_SETTINGS: tuple[Setting, ...] = (
         toml_aliases=("driver",),
     ),
     Setting(
+        "max_key_bytes",
+        "sources",
+        "Longest key (a JSON Lines source: longest line) accepted; a longer record is a bad record, refused as soon "
+        "as that many of its bytes are read. 16m, 64k, 2^20.",
+        default=DEFAULT_MAX_KEY_BYTES,
+        kind="size",
+        minimum=1,
+        metavar="SIZE",
+    ),
+    Setting(
         "on_bad_record",
         "sources",
         "A record that cannot become a key (not JSON, no such field, a bad weight, a key --key-format cannot "
@@ -204,9 +215,13 @@ class SourceOptions:
         UTF-8 or holds a NUL byte; a delimited, columnar or database row whose weight is missing, null, negative,
         not finite or not a number. ``fail`` (the default) stops with an error naming the record; ``skip`` drops
         it and counts it in ``SourceStats.skipped`` as ``bad_json``, ``missing_field``, ``bad_weight``,
-        ``bad_key_format``, ``bad_utf8``, ``nul_byte`` or ``ragged_row`` (a delimited row with too few or too many
-        fields). A quoted field that never closes is an error either way: the records after it cannot be told
+        ``bad_key_format``, ``bad_utf8``, ``nul_byte``, ``too_long`` (see ``max_key_bytes``) or ``ragged_row`` (a
+        delimited row with too few or too many fields). A quoted field that never closes is an error either way: the records after it cannot be told
         apart.
+    max_key_bytes : int
+        Longest key accepted, in bytes (default 16 MiB); for text and JSON Lines sources, longest line. A longer one
+        is a bad record (see ``on_bad_record``), refused as soon as that many of its bytes are read: a file without
+        line breaks does not fill memory.
     db_split_column : str or None
         Database sources, Dask engine: a column of the query's result (with ``table``: of the table) to split the
         source on into key ranges read in parallel; the local engine reads the source unsplit, as one stream.
@@ -237,6 +252,7 @@ class SourceOptions:
     db_table: str | None = None
     db_driver: str = "auto"
     on_bad_record: str = "fail"
+    max_key_bytes: int = DEFAULT_MAX_KEY_BYTES
     db_split_column: str | None = None
     db_split_parts: int | None = None
     key_range: KeyRange | None = None

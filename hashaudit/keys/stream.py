@@ -11,7 +11,7 @@ import numpy as np
 from hashaudit.errors import InputError, UsageError
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.encode import Normaliser
-from hashaudit.keys.lines import read_lines
+from hashaudit.keys.lines import read_lines, too_long_message
 from hashaudit.keys.open import (
     STDIN,
     Readable,
@@ -137,6 +137,7 @@ class KeyStream:
             "keep_cr": options.keep_cr,
             "raw_bytes": options.raw_bytes,
             "on_bad_record": options.on_bad_record,
+            "max_key_bytes": options.max_key_bytes,
         }
         if self._format == "sql":
             from hashaudit.keys.sql import build_query
@@ -164,7 +165,14 @@ class KeyStream:
             from hashaudit.keys.jsonl import read_jsonl
 
             yield from read_jsonl(
-                stream, self._name, o.field or "", self.stats, o.batch_keys, o.weight_column, skip_bad=self._skip_bad
+                stream,
+                self._name,
+                o.field or "",
+                self.stats,
+                o.batch_keys,
+                o.weight_column,
+                skip_bad=self._skip_bad,
+                max_key_bytes=o.max_key_bytes,
             )
         else:
             yield from line_records(stream, self._name, o, self.stats)
@@ -192,7 +200,9 @@ class KeyStream:
     def _keys(self, batches: Iterator[RecordBatch], opened: Any) -> Iterator[KeyBatch]:
         """Normalised keys of record batches, counted (``opened``: the byte stream, for progress)."""
         try:
-            for keys in counted_keys(batches, self._normaliser, self.stats, self._locate):
+            # lines and JSON Lines are held to the limit line by line, while they are read
+            limit = None if self._format in ("lines", "jsonl") else self._options.max_key_bytes
+            for keys in counted_keys(batches, self._normaliser, self.stats, self._locate, limit, self._skip_bad):
                 if opened is not None:
                     self.stats.bytes_read = opened.bytes_read
                 yield keys
@@ -223,19 +233,28 @@ def line_records(stream: Readable, name: str, options: SourceOptions, stats: Sou
         batch_keys=options.batch_keys,
         skip_bad=options.on_bad_record == "skip",
         stats=stats,
+        max_key_bytes=options.max_key_bytes,
     ):
         stats.records += len(records.keys)
         yield records
 
 
 def counted_keys(
-    batches: Iterable[RecordBatch], normaliser: Normaliser, stats: SourceStats, locate: Callable[[int], str]
+    batches: Iterable[RecordBatch],
+    normaliser: Normaliser,
+    stats: SourceStats,
+    locate: Callable[[int], str],
+    max_key_bytes: int | None = None,
+    skip_bad: bool = False,
 ) -> Iterator[KeyBatch]:
-    """Record batches as key batches: normalised (``locate`` names a record in messages), weights attached, and
-    counted in ``stats`` (keys, empty keys); batches left empty are dropped."""
+    """Record batches as key batches: normalised (``locate`` names a record in messages), held to
+    ``max_key_bytes`` (a longer key raises ``InputError``, or with ``skip_bad`` is dropped as ``too_long``),
+    weights attached, and counted in ``stats`` (keys, empty keys); batches left empty are dropped."""
     for records in batches:
         if not normaliser.is_identity:
             records = normaliser.apply(records, stats, locate)
+        if max_key_bytes is not None and len(records.keys):
+            records = _short_enough(records, max_key_bytes, skip_bad, stats, locate)
         keys = records.keys
         if records.weights is not None:
             keys = KeyBatch(keys.data, keys.offsets, records.weights)
@@ -243,6 +262,23 @@ def counted_keys(
             stats.keys += len(keys)
             stats.empty_keys += int(np.count_nonzero(keys.offsets[1:] == keys.offsets[:-1]))
             yield keys
+
+
+def _short_enough(
+    records: RecordBatch, limit: int, skip_bad: bool, stats: SourceStats, locate: Callable[[int], str]
+) -> RecordBatch:
+    """``records`` without its keys longer than ``limit`` bytes (or InputError for the first, unless ``skip_bad``)."""
+    offsets = records.keys.offsets
+    if int(offsets[-1] - offsets[0]) <= limit:
+        return records
+    too_long = np.diff(offsets) > limit
+    if not too_long.any():
+        return records
+    if not skip_bad:
+        raise InputError(too_long_message(locate(records.record_of(int(np.argmax(too_long)))), limit))
+    stats.skip("too_long", int(np.count_nonzero(too_long)))
+    kept = np.flatnonzero(~too_long)
+    return records.subset(records.keys.take(kept), kept)
 
 
 def open_keys(source: str | os.PathLike[str], options: SourceOptions = _DEFAULT_OPTIONS) -> KeyStream:

@@ -89,6 +89,15 @@ def render(result: AuditResult, *, show_all: bool = False, colour: bool = False)
     if placements:
         subjects.append(f"{placements} system placement{'' if placements == 1 else 's'}")
     lines.append(f"hashaudit: {counted} from {sources}; {'; '.join(subjects)}")
+    if result.sampled_keys_cut:
+        from hashaudit.stats.sample import LONG_KEY_END_BYTES
+
+        cut = result.sampled_keys_cut
+        lines.append(
+            f"note: {cut:,} sampled key{'' if cut == 1 else 's'} longer than {2 * LONG_KEY_END_BYTES:,} bytes "
+            f"{'was' if cut == 1 else 'were'} cut to the first and last {LONG_KEY_END_BYTES:,} bytes for the "
+            "avalanche, neighbour and seed checks"
+        )
     lines.append(
         f"verdict: {_tag(result.verdict, colour).strip()}   "
         f"({counts['fail']} fail, {counts['warn']} warn, {counts['info']} info, {counts['pass']} pass; "

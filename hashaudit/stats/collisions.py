@@ -54,6 +54,7 @@ import hashaudit._numba_setup  # noqa: F401  (sets the numba cache folder before
 # isort: split
 
 import atexit
+import errno
 import math
 import os
 import shutil
@@ -66,7 +67,7 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit, uint64
 
-from hashaudit.errors import MergeError, UsageError
+from hashaudit.errors import MergeError, ResourceError, UsageError
 from hashaudit.stats.outcome import FitTest
 from hashaudit.stats.tails import colliding_pairs_test
 
@@ -438,10 +439,29 @@ class FullCollisions:
             self._write(int(p), out[bounds[p] : bounds[p + 1]])
 
     def _write(self, partition: int, rows: np.ndarray) -> None:
-        with open(self._path(partition), "ab") as f:
-            rows.astype("<u8", copy=False).tofile(f)
+        try:
+            with open(self._path(partition), "ab") as f:
+                rows.astype("<u8", copy=False).tofile(f)
+        except OSError as exc:  # numpy's own message for a full disk is "N requested and 0 written"
+            raise ResourceError(self._write_failure(exc, rows.nbytes)) from None
         self._disk_rows[partition] += rows.shape[0]
         self.spilled_bytes_ += rows.nbytes
+
+    def _write_failure(self, exc: OSError, wanted: int) -> str:
+        """One line on a spill write that failed: where, why, and the way out."""
+        where = self.spill_dir if self.spill_dir is not None else tempfile.gettempdir()
+        try:
+            free = shutil.disk_usage(self._folder or where).free
+        except OSError:
+            free = None
+        if exc.errno == errno.ENOSPC or (free is not None and free < wanted):
+            why = "the disk is full" + (f" ({free:,} bytes free)" if free is not None else "")
+        else:
+            why = exc.strerror or "the write failed"
+        return (
+            f"cannot write the collision check's spill files in {where!r}: {why}; give --spill-dir on a disk with "
+            f"room (about 8 bytes per distinct key per hash function) or a larger --collision-memory"
+        )
 
     def _read(self, partition: int) -> np.ndarray:
         values = np.fromfile(self._path(partition), dtype="<u8")

@@ -27,6 +27,8 @@ from hashaudit.stats import _hooks
 from hashaudit.stats._hooks import Priority
 
 DEFAULT_SAMPLE_SIZE = 4096
+LONG_KEY_END_BYTES = 1024
+"""The deep checks see a sampled key longer than twice this as its first and last this many bytes."""
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -209,6 +211,33 @@ class KeySample:
         twin.priorities_ = self.priorities_.copy()
         twin.keys_seen_ = self.keys_seen_
         return twin
+
+    def cut_long_keys(self, end_bytes: int = LONG_KEY_END_BYTES) -> tuple[KeySample, int]:
+        """This sample with every key longer than ``2 * end_bytes`` cut to its first and last ``end_bytes`` bytes,
+        and how many keys were cut (``self`` unchanged when none was).
+
+        The avalanche, neighbour and seed checks copy each sampled key hundreds of times: a multi-megabyte key
+        would make their memory follow key length. The cut keys keep the sample's order and priorities.
+        """
+        lengths = np.diff(self.offsets_)
+        long = np.flatnonzero(lengths > 2 * end_bytes)
+        if not len(long):
+            return self, 0
+        new_lengths = np.minimum(lengths, 2 * end_bytes)
+        offsets = np.zeros(len(lengths) + 1, dtype=np.int64)
+        np.cumsum(new_lengths, out=offsets[1:])
+        data = np.empty(int(offsets[-1]), dtype=np.uint8)
+        for i in range(len(lengths)):  # a few thousand keys at most: not the fast path
+            start, stop = int(self.offsets_[i]), int(self.offsets_[i + 1])
+            if stop - start > 2 * end_bytes:
+                head = self.data_[start : start + end_bytes]
+                tail = self.data_[stop - end_bytes : stop]
+                data[offsets[i] : offsets[i + 1]] = np.concatenate([head, tail])
+            else:
+                data[offsets[i] : offsets[i + 1]] = self.data_[start:stop]
+        cut = self.copy()
+        cut.data_, cut.offsets_ = data, offsets
+        return cut, len(long)
 
     def keys(self) -> KeyBatch:
         """The sampled keys, in order of increasing (priority, bytes)."""

@@ -86,6 +86,9 @@ class AuditResult:
     ``avalanche`` (flip probabilities, input bit × output bit) and ``no_collision`` (the subsample curve)."""
     tables: tuple[tuple[str, int], ...] = ()
     """The (scheme, buckets) tables every hash function was counted in (sizes resolved when automatic)."""
+    sampled_keys_cut: int = 0
+    """Keys of the sample longer than twice ``LONG_KEY_END_BYTES`` that the avalanche, neighbour and seed checks
+    saw as their first and last ``LONG_KEY_END_BYTES`` bytes (``hashaudit.stats.sample``)."""
 
     @property
     def repeated_keys(self) -> int:
@@ -108,25 +111,30 @@ class AuditResult:
         counts = {v: 0 for v in ("fail", "warn", "info", "pass")}
         for f in self.findings:
             counts[f.verdict] += 1
+        summary: dict = {
+            "keys": self.keys,
+            "keys_read": self.keys_read if self.keys_read >= 0 else self.keys,
+            "repeated_keys": self.repeated_keys,
+            "checks": counts,
+            "worst": [
+                {
+                    "hash": f.hash_name,
+                    "check": f.check,
+                    "table": f.table,
+                    "verdict": f.verdict,
+                    "message": f.message,
+                }
+                for f in self.findings[:3]
+            ],
+        }
+        if self.sampled_keys_cut:
+            from hashaudit.stats.sample import LONG_KEY_END_BYTES
+
+            summary["sampled_keys_cut"] = {"keys": self.sampled_keys_cut, "end_bytes_kept": LONG_KEY_END_BYTES}
         return {
             "schema": SCHEMA,
             "verdict": self.verdict,
-            "summary": {
-                "keys": self.keys,
-                "keys_read": self.keys_read if self.keys_read >= 0 else self.keys,
-                "repeated_keys": self.repeated_keys,
-                "checks": counts,
-                "worst": [
-                    {
-                        "hash": f.hash_name,
-                        "check": f.check,
-                        "table": f.table,
-                        "verdict": f.verdict,
-                        "message": f.message,
-                    }
-                    for f in self.findings[:3]
-                ],
-            },
+            "summary": summary,
             "settings": self.settings,
             "tables": [{"scheme": scheme, "buckets": buckets} for scheme, buckets in self.tables],
             "sources": list(self.sources),

@@ -76,6 +76,7 @@ def test_description_is_json_and_complete(tmp_path):
         "keep_cr": False,
         "raw_bytes": False,
         "on_bad_record": "fail",
+        "max_key_bytes": 16 << 20,
     }
     assert stream.size_bytes == 8
 
