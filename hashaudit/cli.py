@@ -381,9 +381,16 @@ def placements(as_json, debug):  # type: ignore[no-untyped-def]
     if as_json:
         click.echo(json.dumps(rows, indent=2))
         return
-    for row in rows:
-        params = ",".join(f"{name}=N" for name in row["parameters"])
-        click.echo(f"{row['name']}:{params}\n    {row['models']}\n    checked against {row['reference']}")
+    for rule in RULES.values():
+        params = ",".join(
+            p.form
+            if p.default is None and not p.listed
+            else f"[{p.form}]"
+            if p.default is None
+            else f"[{p.name}={p.default}]"
+            for p in rule.params
+        )
+        click.echo(f"{rule.name}:{params}\n    {rule.models}\n    checked against {rule.reference}")
 
 
 def _on_sigterm(signum: int, frame: object) -> None:

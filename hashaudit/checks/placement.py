@@ -87,7 +87,8 @@ GROUP = CheckGroup(
             "placements",
             "checks",
             "A system's placement rule with its parameters (repeatable): kafka:partitions=N, "
-            "jvm-hashcode-mod:n=N, redis-cluster:nodes=N (hashaudit placements lists them).",
+            "jvm-hashcode-mod:n=N, redis-cluster:nodes=N, cassandra:nodes=N, ketama:servers=N "
+            "(hashaudit placements lists them).",
             default=(),
             kind="text",
             parse=_parse,

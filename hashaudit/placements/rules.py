@@ -25,12 +25,20 @@ from hashaudit.settings import SettingError
 
 @dataclass(frozen=True)
 class Param:
-    """One parameter of a placement rule (``partitions=12``)."""
+    """One parameter of a placement rule (``partitions=12``): required unless it has a ``default``; a ``listed``
+    parameter takes whole numbers joined by ``:`` (``weights=3:1:1``) and may be left out."""
 
     name: str
     help: str
     minimum: int = 1
     maximum: int = (1 << 31) - 1
+    default: int | None = None
+    listed: bool = False
+
+    @property
+    def form(self) -> str:
+        """How the parameter is written: ``partitions=N``, ``weights=N:N:…``."""
+        return f"{self.name}=N:N:…" if self.listed else f"{self.name}=N"
 
 
 @dataclass(frozen=True)
@@ -46,7 +54,7 @@ class PlacementRule:
     reference : str
         The outside reference the tests check it against.
     params : tuple of Param
-        Its parameters, all required.
+        Its parameters (required unless they have a default or are listed).
     unit : str
         What the units are called (``partition``, ``node``).
     width : int
@@ -55,6 +63,8 @@ class PlacementRule:
         ``KeyBatch -> uint64 values``: the system's hash of every key (after its key transform).
     layout : callable
         ``params -> layout``: the mapping of hash values to units (see :class:`ModLayout` for the interface).
+    check : callable, optional
+        ``params -> message or None``: what the parameters must satisfy together (None: they are fine).
     """
 
     name: str
@@ -64,7 +74,8 @@ class PlacementRule:
     unit: str
     width: int
     hash_batch: Callable[[Any], np.ndarray]
-    layout: Callable[[dict[str, int]], Any]
+    layout: Callable[[dict[str, Any]], Any]
+    check: Callable[[dict[str, Any]], str | None] | None = None
 
 
 class ModLayout:
@@ -176,6 +187,138 @@ class SlotMapLayout(ModLayout):
         return f"{self.slots} slots on {self.shards} nodes"
 
 
+class RingLayout(ModLayout):
+    """Points on a circle of ``2^bits`` positions, each owned by a unit: a value goes to the unit of the first
+    point at or after its position, wrapping round past the largest (Karger et al. 1997). A subclass says where the
+    points are (``_points``), how a hash value becomes a position (``_positions``) and how the system grows."""
+
+    scheme = "ring"
+    bits = 64
+
+    def _identity(self) -> tuple:
+        return (self.shards,)
+
+    def __eq__(self, other: object) -> bool:
+        return type(other) is type(self) and other._identity() == self._identity()  # type: ignore[attr-defined]
+
+    def __hash__(self) -> int:
+        return hash((type(self).__name__, self._identity()))
+
+    def __getstate__(self) -> dict:
+        return {k: v for k, v in self.__dict__.items() if k != "_ring"}  # the ring is rebuilt where needed
+
+    def resized(self, shards: int) -> RingLayout:
+        raise NotImplementedError
+
+    def _points(self) -> tuple[np.ndarray, np.ndarray]:
+        """Distinct positions (uint64, ascending, below ``2^bits``) and the unit owning each (int64)."""
+        raise NotImplementedError
+
+    def _positions(self, values: np.ndarray) -> np.ndarray:
+        """Hash values as positions on the circle (uint64)."""
+        return np.asarray(values, dtype=np.uint64)
+
+    @property
+    def ring(self) -> tuple[np.ndarray, np.ndarray]:
+        """The points and their owners, built once."""
+        if "_ring" not in self.__dict__:
+            self.__dict__["_ring"] = self._points()
+        return self.__dict__["_ring"]
+
+    def _owner_at(self, positions: np.ndarray) -> np.ndarray:
+        points, owners = self.ring
+        at = np.searchsorted(points, positions, side="left")
+        at[at == len(points)] = 0
+        return owners[at]
+
+    def assign(self, values: np.ndarray, width: int) -> np.ndarray:
+        return self._owner_at(self._positions(values))
+
+    def _arcs(self, cuts: np.ndarray) -> np.ndarray:
+        """Length of the arc ending at each cut (from the cut before it; the first from the last, round the circle)."""
+        wrap = 2.0**self.bits - float(cuts[-1] - cuts[0])
+        return np.concatenate(([wrap], np.diff(cuts).astype(np.float64)))
+
+    def shares(self, width: int = 64) -> np.ndarray:
+        """Each unit's share of the circle: the arcs ending at its points, exactly up to float rounding."""
+        points, owners = self.ring
+        return np.bincount(owners, weights=self._arcs(points), minlength=self.shards) / 2.0**self.bits
+
+    def ideal_moved(self, shards: int, width: int = 64) -> float | None:
+        """Share of the circle whose owner differs with ``shards`` units: between consecutive points of either ring
+        both owners are constant, so the arcs between the union of the points decide it exactly."""
+        other = self.resized(shards)
+        cuts = np.union1d(self.ring[0], other.ring[0])
+        moved = self._owner_at(cuts) != other._owner_at(cuts)
+        return float(self._arcs(cuts)[moved].sum() / 2.0**self.bits)
+
+
+class CassandraRingLayout(RingLayout):
+    """The token ring of ``Murmur3Partitioner``: ``num_tokens`` seeded random tokens per node, a token to the node
+    of the first ring token at or after it; a node added draws its own tokens and every other token stays."""
+
+    def __init__(self, shards: int, num_tokens: int = 16, seed: int = 0) -> None:
+        super().__init__(shards)
+        self.num_tokens = int(num_tokens)
+        self.seed = int(seed)
+        self.vnodes = self.num_tokens
+
+    def _identity(self) -> tuple:
+        return (self.shards, self.num_tokens, self.seed)
+
+    def resized(self, shards: int) -> CassandraRingLayout:
+        return CassandraRingLayout(shards, self.num_tokens, self.seed)
+
+    def _points(self) -> tuple[np.ndarray, np.ndarray]:
+        from hashaudit.placements.cassandra import random_tokens
+
+        tokens, owners = random_tokens(self.shards, self.num_tokens, self.seed)
+        return self._positions(tokens.view(np.uint64)), owners
+
+    def _positions(self, values: np.ndarray) -> np.ndarray:
+        # a signed token's order is that of its bits with the sign bit flipped
+        return np.asarray(values, dtype=np.uint64) ^ np.uint64(1 << 63)
+
+    @property
+    def label(self) -> str:
+        return f"{self.shards} nodes × {self.num_tokens} tokens"
+
+
+class KetamaLayout(RingLayout):
+    """The ketama ring of servers ``server1`` .. ``serverN``: 40 MD5 labels per server of average weight, four 32-bit
+    points each; a server added is named after the last and weighs the mean weight, rounded (at least 1)."""
+
+    bits = 32
+
+    def __init__(self, shards: int, weights: tuple[int, ...] = ()) -> None:
+        super().__init__(shards)
+        self.server_weights = tuple(int(w) for w in weights)
+        from hashaudit.placements.ketama import LABELS_PER_SERVER, POINTS_PER_LABEL, labels_per_server
+
+        labels = labels_per_server(self.server_weights) if self.server_weights else [LABELS_PER_SERVER] * self.shards
+        self.vnodes = max(1, round(POINTS_PER_LABEL * sum(labels) / self.shards))
+
+    def _identity(self) -> tuple:
+        return (self.shards, self.server_weights)
+
+    def resized(self, shards: int) -> KetamaLayout:
+        if not self.server_weights:
+            return KetamaLayout(shards)
+        added = max(1, round(sum(self.server_weights) / len(self.server_weights)))
+        return KetamaLayout(shards, (self.server_weights + (added,) * shards)[:shards])
+
+    def _points(self) -> tuple[np.ndarray, np.ndarray]:
+        from hashaudit.placements.ketama import continuum, server_names
+
+        points, owners = continuum(server_names(self.shards), self.server_weights or None)
+        return points.astype(np.uint64), owners
+
+    @property
+    def label(self) -> str:
+        weighted = " (weighted)" if self.server_weights else ""
+        return f"{self.shards} servers, {self.vnodes} points each{weighted}"
+
+
 def _kafka_values(batch: Any) -> np.ndarray:
     from hashaudit.placements.kafka import murmur2
 
@@ -192,6 +335,31 @@ def _redis_values(batch: Any) -> np.ndarray:
     from hashaudit.placements.redis_cluster import crc16
 
     return crc16(batch).astype(np.uint64)
+
+
+def _cassandra_values(batch: Any) -> np.ndarray:
+    from hashaudit.placements.cassandra import partition_token
+
+    return partition_token(batch).view(np.uint64)  # the signed token's bits
+
+
+def _ketama_values(batch: Any) -> np.ndarray:
+    from hashaudit.placements.ketama import key_hash
+
+    return key_hash(batch).astype(np.uint64)
+
+
+def _ketama_check(params: dict[str, Any]) -> str | None:
+    from hashaudit.placements.ketama import labels_per_server
+
+    weights = params.get("weights")
+    if weights is None:
+        return None
+    if len(weights) != params["servers"]:
+        return f"weights lists {len(weights)} numbers for {params['servers']} servers"
+    if min(labels_per_server(weights)) < 1:
+        return "every weight must be at least the total over 40 times the servers (a server needs one point label)"
+    return None
 
 
 RULES: dict[str, PlacementRule] = {
@@ -227,6 +395,38 @@ RULES: dict[str, PlacementRule] = {
             _redis_values,
             lambda p: SlotMapLayout(p["nodes"]),
         ),
+        PlacementRule(
+            "cassandra",
+            "Murmur3Partitioner: MurmurHash3 x64_128 h1 of the key bytes (signed tail bytes) as the token, "
+            "num_tokens seeded random tokens per node",
+            "cassandra-driver's Murmur3Token and TokenMap",
+            (
+                Param("nodes", "nodes of the ring", maximum=1000),
+                Param("num_tokens", "tokens per node (default 16)", maximum=1536, default=16),
+                Param("seed", "seed of the nodes' random tokens (default 0)", minimum=0, default=0),
+            ),
+            "node",
+            64,
+            _cassandra_values,
+            lambda p: CassandraRingLayout(p["nodes"], p["num_tokens"], p["seed"]),
+        ),
+        PlacementRule(
+            "ketama",
+            "the memcached clients' ketama ring: MD5 of the key to the next of 160 MD5 points per server "
+            "(servers server1..N; weights=w1:w2:… scales them)",
+            "uhashring's ketama ring",
+            (
+                Param("servers", "servers of the ring, named server1 .. serverN", maximum=1000),
+                Param(
+                    "weights", "optional whole-number weight of each server, joined by ':' (weights=3:1:1)", listed=True
+                ),
+            ),
+            "server",
+            32,
+            _ketama_values,
+            lambda p: KetamaLayout(p["servers"], p.get("weights", ())),
+            _ketama_check,
+        ),
     )
 }
 
@@ -236,7 +436,7 @@ class Placement:
     """A rule with its parameters: one subject of an audit (shaped like a registered hash function)."""
 
     rule: str
-    params: tuple[tuple[str, int], ...]
+    params: tuple[tuple[str, int | tuple[int, ...]], ...]
     seeded: bool = field(default=False, init=False)
     path: str = field(default="placement", init=False)
     integer_keys: bool = field(default=False, init=False)
@@ -244,7 +444,7 @@ class Placement:
     @property
     def name(self) -> str:
         """``kafka:partitions=12``: how it was asked for, and its name in the reports."""
-        return self.rule + ":" + ",".join(f"{k}={v}" for k, v in self.params)
+        return self.rule + ":" + ",".join(f"{k}={_written(v)}" for k, v in self.params)
 
     @property
     def width(self) -> int:
@@ -263,29 +463,44 @@ class Placement:
         return RULES[self.rule].hash_batch(batch)
 
 
+def _written(value: int | tuple[int, ...]) -> str:
+    return ":".join(map(str, value)) if isinstance(value, tuple) else str(value)
+
+
 def parse_placement(text: str) -> Placement:
-    """``NAME:param=value,...`` into a :class:`Placement`; ``SettingError`` naming ``placements`` otherwise."""
+    """``NAME:param=value,...`` into a :class:`Placement`; ``SettingError`` naming ``placements`` otherwise.
+
+    Parameters left out take their defaults (listed in the name, which says the whole rule); a listed parameter
+    (``weights=3:1:1``) left out stays out."""
     match = re.fullmatch(r"\s*([a-z0-9-]+)\s*(?::(.*))?", text)
     if match is None or match[1] not in RULES:
         raise SettingError("placements", f"takes NAME:param=value with NAME one of {', '.join(RULES)}, not {text!r}")
     rule = RULES[match[1]]
-    given: dict[str, int] = {}
+    known = {p.name: p for p in rule.params}
+    given: dict[str, int | tuple[int, ...]] = {}
     for part in (match[2] or "").split(","):
         if not part.strip():
             continue
         key, _, value = part.partition("=")
         key = key.strip()
-        known = {p.name: p for p in rule.params}
-        if key not in known or not re.fullmatch(r"\s*\d+\s*", value):
-            names = ", ".join(f"{p.name}=N" for p in rule.params)
+        form = r"\s*\d+(\s*:\s*\d+)*\s*" if key in known and known[key].listed else r"\s*\d+\s*"
+        if key not in known or not re.fullmatch(form, value):
+            names = ", ".join(p.form for p in rule.params)
             raise SettingError("placements", f"{rule.name} takes {names}, not {part.strip()!r}")
-        number = int(value)
-        if not known[key].minimum <= number <= known[key].maximum:
+        numbers = [int(v) for v in value.split(":")]
+        if not all(known[key].minimum <= number <= known[key].maximum for number in numbers):
             raise SettingError(
                 "placements", f"{rule.name}: {key} must be between {known[key].minimum} and {known[key].maximum:,}"
             )
-        given[key] = number
-    missing = [p.name for p in rule.params if p.name not in given]
+        given[key] = tuple(numbers) if known[key].listed else numbers[0]
+    missing = [p.form for p in rule.params if p.name not in given and p.default is None and not p.listed]
     if missing:
-        raise SettingError("placements", f"{rule.name} needs {', '.join(f'{m}=N' for m in missing)}")
-    return Placement(rule.name, tuple((p.name, given[p.name]) for p in rule.params))
+        raise SettingError("placements", f"{rule.name} needs {', '.join(missing)}")
+    for p in rule.params:
+        if p.name not in given and p.default is not None:
+            given[p.name] = p.default
+    params = tuple((p.name, given[p.name]) for p in rule.params if p.name in given)
+    problem = rule.check(dict(params)) if rule.check is not None else None
+    if problem:
+        raise SettingError("placements", f"{rule.name}: {problem}")
+    return Placement(rule.name, params)
