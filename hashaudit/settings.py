@@ -358,10 +358,20 @@ AUDIT_SETTINGS: tuple[Setting, ...] = (
         kind="bool",
     ),
     Setting(
+        "memory",
+        "run",
+        "Memory the audit's stores share (distinct-key fingerprints, full-width hash values, table counts); "
+        "what does not fit is read in more passes or spilled to disk. Default: a quarter of the machine's "
+        "memory, at most 1g.",
+        kind="size",
+        minimum=64 << 20,
+        metavar="BYTES",
+        recorded=False,  # a memory budget: the result is the same for any
+    ),
+    Setting(
         "distinct_memory",
         "hashes",
-        "Memory budget of the distinct-key fingerprint store (about 20 bytes per distinct key).",
-        default=640 << 20,
+        "Memory of the distinct-key fingerprint store (about 20 bytes per distinct key). Default: a share of --memory.",
         kind="size",
         minimum=4 << 20,
         metavar="BYTES",

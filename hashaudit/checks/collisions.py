@@ -56,8 +56,8 @@ GROUP = CheckGroup(
         Setting(
             "collision_memory",
             "checks",
-            "Hash values kept in memory per function for full-width collisions before spilling to disk.",
-            default=1 << 30,
+            "Hash values kept in memory per function for full-width collisions before spilling to disk. "
+            "Default: a share of --memory.",
             kind="size",
             minimum=0,
             metavar="BYTES",

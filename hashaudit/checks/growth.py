@@ -8,7 +8,7 @@ from collections.abc import Iterator
 from typing import Any
 
 from hashaudit.checks._base import Check, CheckGroup, Conclusion, Tested
-from hashaudit.checks.tables import first_values, simulated
+from hashaudit.checks.tables import first_values, simulated, simulated_schemes
 from hashaudit.settings import Setting, SettingError
 from hashaudit.verdict.words import excess, num
 
@@ -57,19 +57,20 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
     found = simulated(ctx, state)
     if found is None:
         return
-    values, _slots, scheme = found
+    values = found[0]
     plan, width = ctx.plan, state.spec.width
-    for kind in plan.table_kinds:  # every kept key: growth decides the sizes
-        for i, policy in enumerate(plan.growth):
-            if kind == "quadratic" and not policy.powers_of_two:
-                continue
-            grown = replay_growth(values, width, kind, policy, scheme)
-            ideal_growth = ideal_replay(width, kind, policy, scheme, len(values), plan.seed)
-            for test in growth_tests(grown, ideal_growth):
-                yield _scheme_of(grown.slots, scheme), grown.slots, len(values), test
-            if i == 0 and kind != "chaining":  # order cannot change a chained table's total work
-                test = order_hazard(values, width, kind, policy, scheme, grown.slots, plan.seed)
-                yield _scheme_of(grown.slots, scheme), grown.slots, len(values), test
+    for scheme in simulated_schemes(ctx, state):
+        for kind in plan.table_kinds:  # every kept key: growth decides the sizes
+            for i, policy in enumerate(plan.growth):
+                if kind == "quadratic" and not policy.powers_of_two:
+                    continue
+                grown = replay_growth(values, width, kind, policy, scheme)
+                ideal_growth = ideal_replay(width, kind, policy, scheme, len(values), plan.seed)
+                for test in growth_tests(grown, ideal_growth):
+                    yield _scheme_of(grown.slots, scheme), grown.slots, len(values), test
+                if i == 0 and kind != "chaining":  # order cannot change a chained table's total work
+                    test = order_hazard(values, width, kind, policy, scheme, grown.slots, plan.seed)
+                    yield _scheme_of(grown.slots, scheme), grown.slots, len(values), test
 
 
 def _prepare(values: dict) -> None:

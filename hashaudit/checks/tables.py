@@ -40,8 +40,9 @@ def simulated_slots(plan: Any, keys: int) -> int | None:
 
 
 def simulated(ctx: Conclusion, state: Any) -> tuple[Any, int, str] | None:
-    """The kept values of one hash, the slots of its simulated tables and the scheme that places them (the first
-    ``--scheme`` that fits the size); None when too few keys fill the smallest table."""
+    """The kept values of one hash, the slots of its simulated tables and the first scheme that places them (the
+    first ``--scheme`` that fits the size; :func:`simulated_schemes` gives all of them); None when too few keys fill
+    the smallest table."""
     from hashaudit.tables.schemes import is_power_of_two
 
     kept = state.get("first_values")
@@ -58,6 +59,19 @@ def simulated(ctx: Conclusion, state: Any) -> tuple[Any, int, str] | None:
             scheme = next((s for s in ctx.plan.schemes if s in ("mod", "range") or power), "mask" if power else "mod")
             ctx.shared[key] = (values, slots, scheme)
     return ctx.shared[key]
+
+
+def simulated_schemes(ctx: Conclusion, state: Any) -> list[str]:
+    """Every scheme the simulated tables are placed by: each ``--scheme`` asked for that fits their size (``mask``
+    and ``high`` need a power of two), else the one :func:`simulated` picks."""
+    from hashaudit.tables.schemes import is_power_of_two
+
+    found = simulated(ctx, state)
+    if found is None:
+        return []
+    power = is_power_of_two(found[1])
+    fitting = [s for s in ctx.plan.schemes if s in ("mod", "range") or power]
+    return fitting or [found[2]]
 
 
 def first_values(spec: Any, plan: Any, tables: list, lanes: int) -> dict:
@@ -83,15 +97,16 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
     found = simulated(ctx, state)
     if found is None:
         return
-    values, slots, scheme = found
+    values, slots, _ = found
     plan, width = ctx.plan, state.spec.width
-    for kind in plan.table_kinds:
-        if kind_fits(kind, slots) is not None:
-            continue
-        cells = simulate(values, width, kind, slots, scheme, plan.loads)
-        ideal = ideal_cells(width, kind, slots, scheme, plan.loads, plan.seed)
-        for test in probe_tests(cells, ideal, scheme):
-            yield scheme, slots, cells[-1].keys, test
+    for scheme in simulated_schemes(ctx, state):
+        for kind in plan.table_kinds:
+            if kind_fits(kind, slots) is not None:
+                continue
+            cells = simulate(values, width, kind, slots, scheme, plan.loads)
+            ideal = ideal_cells(width, kind, slots, scheme, plan.loads, plan.seed)
+            for test in probe_tests(cells, ideal, scheme):
+                yield scheme, slots, cells[-1].keys, test
 
 
 def _prepare(values: dict) -> None:

@@ -105,6 +105,7 @@ def conclude(
         # reads of the input: more when the distinct keys outgrew distinct_memory or to settle the heavy keys
         "passes": passes,
         "platform": sys.platform,
+        "peak_memory_bytes": _peak_memory(),
     }
     settings = plan.settings_block()
     return AuditResult(
@@ -131,6 +132,16 @@ def _summary(table: Any, loads: list[Any]) -> TableSummary:
         [(int(b), int(counts[b])) for b in hottest],
         load.hottest(HOTTEST_SHOWN) if load is not None else [],
     )
+
+
+def _peak_memory() -> int | None:
+    """The process's largest resident set so far, in bytes (None where the system does not say)."""
+    try:
+        import resource
+    except ImportError:  # pragma: no cover - not on Windows
+        return None
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    return int(peak) * (1 if sys.platform == "darwin" else 1024)  # bytes on macOS, KiB elsewhere
 
 
 def _version() -> str:

@@ -173,6 +173,9 @@ def _partition_batches(part: _Partition, stats: SourceStats):  # type: ignore[no
 
 def _stage_read(part: _Partition, plan: AuditPlan, pairs: list, bits: int) -> tuple[list, _Partial]:
     """Stage 1: rows routed by fingerprint prefix, and the occurrence-level accumulators of this partition."""
+    from hashaudit.engine._malloc import fix_mmap_threshold
+
+    fix_mmap_threshold()  # in each worker process
     from hashaudit.hashes.fingerprint import key_fingerprints_128
     from hashaudit.stats.avalanche import KeySample
     from hashaudit.stats.heavy import HeavyKeys

@@ -12,6 +12,7 @@ import os
 from typing import Any
 
 from hashaudit.checks import GROUP_BY_NAME, GROUPS, Thresholds, parse_checks, plan_settings
+from hashaudit.engine.memory import share_memory
 from hashaudit.errors import UsageError
 from hashaudit.settings import SettingError
 
@@ -25,7 +26,7 @@ class AuditPlan:
     ----------
     **settings
         Any setting of ``hashaudit.checks.plan_settings()`` by name (``hashes``, ``buckets``, ``schemes``,
-        ``seed``, ``all_keys``, ``distinct_memory``, ``checks``, ``spill_dir`` and every check group's options such
+        ``seed``, ``all_keys``, ``memory``, ``distinct_memory``, ``checks``, ``spill_dir`` and every check group's options such
         as ``avalanche_keys``, ``table_kinds``, ``tag_bits``, ``shards``), plus ``thresholds`` (a
         :class:`~hashaudit.checks.Thresholds`). Values may be given as their text (``"2^16"``, ``"2@0.75"``) or
         already converted. A setting left out takes its declared default.
@@ -178,6 +179,7 @@ def _resolve(values: dict[str, Any]) -> None:
     for group in GROUPS:
         if group.prepare is not None:
             group.prepare(values)
+    share_memory(values)
     if values["all_keys"] is False and values["distinct_memory"] < 4 << 20:
         raise SettingError("distinct_memory", f"must be at least 4 MiB, not {values['distinct_memory']:,} bytes")
     spill = values["spill_dir"]

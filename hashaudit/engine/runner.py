@@ -16,6 +16,7 @@ from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
+from hashaudit.engine._malloc import fix_mmap_threshold
 from hashaudit.engine.conclude import conclude
 from hashaudit.engine.plan import AuditPlan
 from hashaudit.engine.prefetch import prefetch
@@ -79,8 +80,9 @@ def audit_batches(
     threading.Thread(target=_import_quietly, args=("hashaudit.stats.fit",), daemon=True).start()
     specs = plan.subjects(registry)
     pairs = plan.tables(keys)
+    fix_mmap_threshold()
     lanes = _lane_count(threads, len(specs))
-    count_bytes = 8 * sum(m for _, m in pairs)  # one int64 per bucket per table, for one hash
+    count_bytes = 4 * sum(m for _, m in pairs)  # one uint32 per bucket per table, for one hash
     _check_memory(count_bytes * len(specs), pairs)
     for group in plan.groups():  # what the widths and sizes alone refuse is said before reading
         if group.before_read is not None:

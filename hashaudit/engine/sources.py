@@ -84,7 +84,7 @@ def audit(
                 keys = estimate(first)
                 batches = itertools.chain([first], batches)
         if keys is None:
-            keys = sum(len(b) for s, o in zip(sources, per_source, strict=True) for b in open_keys(s, o))
+            keys = _count_keys(sources, per_source, plan)
 
     # files, and database queries (run again: on a database that changes meanwhile, audit a snapshot)
     readable_again = all(str(s) != "-" and (os.path.isfile(s) or is_database(str(s))) for s in sources)
@@ -104,6 +104,15 @@ def audit(
         reopen=reopen if readable_again else None,
         figures=figures,
     )
+    if keys is not None and readable_again and _sizes_differ(plan, keys, result.keys):
+        # The sizes came from an estimate of the lines, and the distinct keys (what the tables hold) are fewer
+        # or more than it by enough to change them: audit again with tables sized for the keys there are.
+        passes = result.run.get("passes", 1)
+        keys = result.keys
+        result = audit_batches(
+            reopen(), plan, keys=keys, threads=threads, key_estimate=estimate, reopen=reopen, figures=figures
+        )
+        result = dataclasses.replace(result, run={**result.run, "passes": result.run.get("passes", 1) + passes})
     if result.run.get("passes", 1) > 1 or keys is not None:
         _check_unchanged(stamps)  # a change during the last of several reads
     described = tuple({**stream.description, "stats": _stats_dict(stream.stats)} for stream in streams)
@@ -113,6 +122,31 @@ def audit(
 
         attach_colliding_keys(final, sources, per_source, plan.seed)
     return final
+
+
+def _count_keys(sources: Sequence[str | os.PathLike], per_source: list[SourceOptions], plan: AuditPlan) -> int:
+    """The keys the tables will hold, counted in a first read: distinct keys unless every occurrence counts (a
+    key repeated 50 times must not size the tables for 50 keys). Occurrences when the distinct keys outgrow
+    their memory."""
+    batches = (b for s, o in zip(sources, per_source, strict=True) for b in open_keys(s, o))
+    if not plan.distinct:
+        return sum(len(b) for b in batches)
+    from hashaudit.stats.distinct import DistinctBudgetError, DistinctKeys
+
+    seen = DistinctKeys(plan.distinct_memory)
+    occurrences = 0
+    try:
+        for batch in batches:
+            occurrences += len(batch)
+            seen.update(batch)
+    except DistinctBudgetError:
+        return occurrences + sum(len(b) for b in batches)
+    return seen.distinct_
+
+
+def _sizes_differ(plan: AuditPlan, assumed: int, counted: int) -> bool:
+    """Whether automatic table sizes for ``counted`` keys differ from those used for ``assumed``."""
+    return plan.needs_key_count() and plan.tables(assumed) != plan.tables(counted)
 
 
 def _stamp(path: str) -> tuple[int, int, int]:

@@ -17,7 +17,9 @@ from hashaudit.errors import InputError
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.keys.lines import read_lines
 from hashaudit.keys.open import Readable
+from hashaudit.keys.options import JSON_VALUES
 from hashaudit.keys.records import RecordBatch, SourceStats, weight_problem
+from hashaudit.settings import SettingError
 
 _JSON_SPACE = " \t\r\n"  # whitespace as RFC 8259 section 2 defines it
 _JSON_KINDS = {dict: "an object", list: "an array", str: "a string", bool: "a boolean", float: "a number"}
@@ -106,12 +108,26 @@ def _key_value(
     return record, value
 
 
-def _key_bytes(value: Any, field: str, name: str, line_no: int) -> bytes:
-    """:func:`value_bytes`, with a value nested too deeply to write back as JSON made a bad record."""
+def _key_bytes(value: Any, field: str, name: str, line_no: int, as_json: bool = False) -> bytes:
+    """:func:`value_bytes` (``as_json``: every value's compact JSON text, a string's quotes included), with a
+    value nested too deeply to write back as JSON made a bad record."""
     try:
+        if as_json:
+            return json.dumps(value, separators=(",", ":"), ensure_ascii=False).encode("utf-8", "surrogatepass")
         return value_bytes(value)
     except RecursionError:  # json.loads stopped just short of the limit that json.dumps then reached
         raise _BadRecord("bad_json", f"{name} line {line_no}: the value of {field!r} is nested too deeply") from None
+
+
+def _mixed_message(name: str, field: str, line_no: int, seen: dict[bool, int]) -> str:
+    here, before = (
+        ("a string", "other values") if seen[True] == line_no else ("a value that is not a string", "strings")
+    )
+    return (
+        f"{name} line {line_no}: the field {field!r} holds {here} here and {before} before (first at line "
+        f'{seen[not (seen[True] == line_no)]}): say whether 1 and "1" are one key with --json-values text, or two with '
+        "--json-values json"
+    )
 
 
 def read_jsonl(
@@ -123,6 +139,7 @@ def read_jsonl(
     weight: str | None = None,
     skip_bad: bool = False,
     max_key_bytes: int | None = None,
+    json_values: str = "auto",
 ) -> Iterator[RecordBatch]:
     """Yield the value at ``field`` (a dotted path) of every record of a JSON Lines stream.
 
@@ -146,6 +163,11 @@ def read_jsonl(
         ``bad_utf8``, ``bad_json``, ``missing_field``, ``bad_weight`` or ``too_long``, instead of raising.
     max_key_bytes : int, optional
         Longest line accepted (see :func:`hashaudit.keys.lines.read_lines`).
+    json_values : {"auto", "text", "json"}
+        How a value becomes key bytes. ``text``: a string's UTF-8 content, any other value its JSON text, so ``1``
+        and ``"1"`` are the same key. ``json``: every value's compact JSON text, so they differ (``"1"`` keeps its
+        quotes). ``auto`` (the default): as ``text`` while the field holds only strings or only other values, and
+        an error at the first line that mixes the two, since the two readings then give different keys.
 
     Yields
     ------
@@ -158,6 +180,10 @@ def read_jsonl(
         Unless ``skip_bad``: a line that is not JSON, a record without the field or with an invalid weight (naming
         the line).
     """
+    if json_values not in JSON_VALUES:
+        raise SettingError("json_values", f"takes {' or '.join(JSON_VALUES)}, not {json_values!r}")
+    as_json = json_values == "json"
+    seen = {True: 0, False: 0}  # the first line holding a string value, and a value of another kind (0: none yet)
     path = split_field_path(field)
     weight_path = split_field_path(weight) if weight is not None else None
     decode = json.JSONDecoder().raw_decode
@@ -190,7 +216,13 @@ def read_jsonl(
                 if value is None:
                     stats.skip("null")
                     continue
-                key = _key_bytes(value, field, name, line_no)
+                key = _key_bytes(value, field, name, line_no, as_json)
+                if json_values == "auto":
+                    kind = isinstance(value, str)
+                    if not seen[kind]:
+                        seen[kind] = line_no
+                        if seen[not kind]:
+                            raise InputError(_mixed_message(name, field, line_no, seen))
                 if weight_path is not None:
                     weights.append(_weight(record, weight_path, name, line_no))
             except _BadRecord as bad:

@@ -12,6 +12,7 @@ DRIVERS = ("auto", "adbc", "sqlalchemy")
 INTEGER_FORMATS = ("le64", "decimal")
 ON_BAD_RECORD = ("fail", "skip")
 MAX_SPLIT_PARTS = 4096
+JSON_VALUES = ("auto", "text", "json")
 DEFAULT_MAX_KEY_BYTES = 16 << 20
 
 SOURCE_SETTINGS: tuple[Setting, ...] = (
@@ -111,6 +112,16 @@ SOURCE_SETTINGS: tuple[Setting, ...] = (
         kind="choice",
         choices=DRIVERS,
         toml_aliases=("driver",),
+    ),
+    Setting(
+        "json_values",
+        "sources",
+        "JSON Lines: text hashes a string's content and any other value's JSON text (1 and \"1\" are one key); "
+        "json hashes every value's JSON text (they are two); auto is text, but stops at a field mixing strings "
+        "with other values.",
+        default="auto",
+        kind="choice",
+        choices=JSON_VALUES,
     ),
     Setting(
         "max_key_bytes",
@@ -218,6 +229,9 @@ class SourceOptions:
         ``bad_key_format``, ``bad_utf8``, ``nul_byte``, ``too_long`` (see ``max_key_bytes``) or ``ragged_row`` (a
         delimited row with too few or too many fields). A quoted field that never closes is an error either way: the records after it cannot be told
         apart.
+    json_values : {"auto", "text", "json"}
+        JSON Lines: how a value becomes key bytes (see ``hashaudit.keys.jsonl.read_jsonl``); ``auto`` stops at a
+        field that mixes strings with other values, where ``1`` and ``"1"`` would otherwise be one key.
     max_key_bytes : int
         Longest key accepted, in bytes (default 16 MiB); for text and JSON Lines sources, longest line. A longer one
         is a bad record (see ``on_bad_record``), refused as soon as that many of its bytes are read: a file without
@@ -253,6 +267,7 @@ class SourceOptions:
     db_driver: str = "auto"
     on_bad_record: str = "fail"
     max_key_bytes: int = DEFAULT_MAX_KEY_BYTES
+    json_values: str = "auto"
     db_split_column: str | None = None
     db_split_parts: int | None = None
     key_range: KeyRange | None = None

@@ -138,6 +138,7 @@ class KeyStream:
             "raw_bytes": options.raw_bytes,
             "on_bad_record": options.on_bad_record,
             "max_key_bytes": options.max_key_bytes,
+            "json_values": options.json_values if self._format == "jsonl" else None,
         }
         if self._format == "sql":
             from hashaudit.keys.sql import build_query
@@ -173,6 +174,7 @@ class KeyStream:
                 o.weight_column,
                 skip_bad=self._skip_bad,
                 max_key_bytes=o.max_key_bytes,
+                json_values=o.json_values,
             )
         else:
             yield from line_records(stream, self._name, o, self.stats)

@@ -65,7 +65,8 @@ class BucketCounts:
         self.scheme = scheme
         self.buckets = int(buckets)
         self.width = int(width)
-        self.counts_ = np.zeros(self.buckets, dtype=np.int64)
+        # 4-byte counts while no bucket can pass 2^32 - 1 (half the memory of a large table), 8-byte after
+        self.counts_ = np.zeros(self.buckets, dtype=np.uint32)
         self.keys_seen_ = 0
 
     def settings(self) -> tuple[str, int, str, int, int]:
@@ -74,9 +75,15 @@ class BucketCounts:
 
     def update(self, hashes: np.ndarray) -> BucketCounts:
         """Count a batch of hash values (``uint64[n]``, or ``uint64[n, 2]`` for 128-bit functions)."""
+        self._widen_for(int(hashes.shape[0]))
         add_counts(hashes, self.scheme, self.buckets, self.width, self.counts_)
         self.keys_seen_ += int(hashes.shape[0])
         return self
+
+    def _widen_for(self, more: int) -> None:
+        """Switch to 8-byte counts before ``more`` keys could take a bucket past 2^32 - 1."""
+        if self.counts_.dtype == np.uint32 and self.keys_seen_ + more > np.iinfo(np.uint32).max:
+            self.counts_ = self.counts_.astype(np.int64)
 
     def merge(self, other: BucketCounts) -> BucketCounts:
         """Add ``other``'s counts to this accumulator (in place); settings must match."""
@@ -84,6 +91,9 @@ class BucketCounts:
             mine = self.settings()
             theirs = other.settings() if isinstance(other, BucketCounts) else type(other).__name__
             raise MergeError(f"cannot merge bucket counts {theirs} into {mine}: settings differ")
+        self._widen_for(other.keys_seen_)
+        if self.counts_.dtype != other.counts_.dtype:
+            self.counts_ = self.counts_.astype(np.int64)
         self.counts_ += other.counts_
         self.keys_seen_ += other.keys_seen_
         return self
@@ -96,8 +106,8 @@ class BucketCounts:
         return twin
 
     def result(self) -> BucketCountsResult:
-        """The counts so far, frozen."""
-        counts = self.counts_.copy()
+        """The counts so far (int64), frozen."""
+        counts = self.counts_.astype(np.int64)
         counts.setflags(write=False)
         return BucketCountsResult(
             self.hash_name, self.seed, self.scheme, self.buckets, self.width, self.keys_seen_, counts

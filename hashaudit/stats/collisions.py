@@ -75,8 +75,9 @@ DEFAULT_MEMORY_BYTES = 1 << 30
 PARTITIONS = 256  # partitions, chosen by the top 8 bits of the value times GOLDEN
 GOLDEN = 0x9E3779B97F4A7C15  # 2^64 / golden ratio, odd (Knuth, TAOCP vol. 3, §6.4)
 LARGEST_GROUPS = 10  # how many of the biggest groups a result keeps
-SLAB_BYTES = 64 << 20  # largest in-memory slab; above glibc's largest mmap threshold, so freeing returns it
+SLAB_BYTES = 16 << 20  # largest in-memory slab; above glibc's largest mmap threshold, so freeing returns it
 MIN_SLAB_BYTES = 1 << 20
+FIRST_SLAB_BYTES = 256 << 10  # slabs start small and double: a store of a few thousand values stays small
 WIDTHS = (32, 64, 128)
 SMALL_ROWS = 1 << 20  # equality compares sets up to this size in one piece
 SPILL_PREFIX = "hashaudit-spill-"
@@ -391,7 +392,9 @@ class FullCollisions:
         start, n = 0, rows.shape[0]
         while start < n:
             if not self._slabs or self._fill == self._slabs[-1].shape[0]:
-                self._slabs.append(np.empty((self._slab_rows, self._words), dtype=np.uint64))
+                last = self._slabs[-1].shape[0] if self._slabs else FIRST_SLAB_BYTES // (8 * self._words) // 2
+                rows_next = min(self._slab_rows, 2 * last)
+                self._slabs.append(np.empty((rows_next, self._words), dtype=np.uint64))
                 self._fill = 0
             slab = self._slabs[-1]
             take = min(n - start, slab.shape[0] - self._fill)

@@ -72,21 +72,31 @@ def _lookup_cost(keys: int, pairs: float) -> float:
     return 1.0 + pairs / keys if keys else 1.0
 
 
+SIMULATION_CHUNK = 512  # draws simulated at once: the peak memory is a few chunk-sized arrays, not every draw's
+
+
 @lru_cache(maxsize=64)
 def _simulated_null(buckets: int, keys: int, seed: int) -> dict[str, np.ndarray]:
-    """Statistics of SIMULATION_DRAWS multinomial tables (uniform hashing), fixed seed."""
+    """Statistics of SIMULATION_DRAWS multinomial tables (uniform hashing), fixed seed.
+
+    The tables are drawn a chunk at a time from one generator: the same draws as all at once, in a few MiB."""
     rng = np.random.default_rng([seed, buckets, keys])
-    draws = rng.multinomial(keys, np.full(buckets, 1.0 / buckets), size=SIMULATION_DRAWS).astype(np.float64)
     lam = keys / buckets
-    with np.errstate(divide="ignore", invalid="ignore"):
-        g_terms = np.where(draws > 0, draws * np.log(draws / lam), 0.0)
-    return {
-        "chi_square": buckets / keys * np.einsum("ij,ij->i", draws, draws) - keys,
-        "g_test": 2.0 * g_terms.sum(axis=1),
-        "empty_buckets": (draws == 0).sum(axis=1).astype(np.float64),
-        "colliding_pairs": np.einsum("ij,ij->i", draws, draws - 1.0) / 2.0,
-        "max_load": draws.max(axis=1),
-    }
+    probabilities = np.full(buckets, 1.0 / buckets)
+    names = ("chi_square", "g_test", "empty_buckets", "colliding_pairs", "max_load")
+    out = {name: np.empty(SIMULATION_DRAWS, dtype=np.float64) for name in names}
+    for start in range(0, SIMULATION_DRAWS, SIMULATION_CHUNK):
+        size = min(SIMULATION_CHUNK, SIMULATION_DRAWS - start)
+        draws = rng.multinomial(keys, probabilities, size=size).astype(np.float64)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            g_terms = np.where(draws > 0, draws * np.log(draws / lam), 0.0)
+        part = slice(start, start + size)
+        out["chi_square"][part] = buckets / keys * np.einsum("ij,ij->i", draws, draws) - keys
+        out["g_test"][part] = 2.0 * g_terms.sum(axis=1)
+        out["empty_buckets"][part] = (draws == 0).sum(axis=1)
+        out["colliding_pairs"][part] = np.einsum("ij,ij->i", draws, draws - 1.0) / 2.0
+        out["max_load"][part] = draws.max(axis=1)
+    return out
 
 
 def _simulated_p(null: np.ndarray, observed: float) -> tuple[float, float]:

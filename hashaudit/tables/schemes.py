@@ -162,6 +162,6 @@ def bucket_index(hashes: np.ndarray, scheme: str, buckets: int, width: int = 64)
 
 
 def add_counts(hashes: np.ndarray, scheme: str, buckets: int, width: int, counts: np.ndarray) -> None:
-    """Add one to ``counts[bucket]`` for every hash value (``counts`` is int64 of length ``buckets``)."""
+    """Add one to ``counts[bucket]`` for every hash value (``counts``: uint32 or int64, of length ``buckets``)."""
     values = _prepare(hashes, width)
     _count_kernel(values, _KIND[scheme], int(buckets), min(width, 64), counts)

@@ -9,7 +9,6 @@ import re
 import shutil
 import subprocess
 import tempfile
-import time
 from html.parser import HTMLParser
 from pathlib import Path
 
@@ -207,12 +206,9 @@ def test_cautions_say_what_a_pass_does_not_mean(full_page):
         assert phrase in cautions
 
 
-def test_rendering_is_deterministic_and_quick(full_result, full_page):
-    started = time.perf_counter()
-    again = render_html(full_result)
-    seconds = time.perf_counter() - started
-    assert again == full_page
-    assert seconds < 3.0, f"rendering took {seconds:.2f} s"
+def test_rendering_is_deterministic(full_result, full_page):
+    # its speed is measured by bench/, not asserted here: a timed test fails on a busy machine, not on slow code
+    assert render_html(full_result) == full_page
 
 
 def test_missing_figure_data_leaves_those_figures_out(full_result):

@@ -314,14 +314,3 @@ def test_simulated_nulls_are_reproducible():
     values = random_values(np.random.default_rng(4), 30, 64)
     result = BitCounts("h", 0, 64).update(values).result()
     assert bit_tests(result, seed=1) == bit_tests(result, seed=1)
-
-
-@pytest.mark.slow
-def test_ten_million_values_in_about_a_second():
-    import time
-
-    values = random_values(np.random.default_rng(1), 10_000_000, 64)
-    BitCounts("h", 0, 64).update(values[:64])  # compile or load the kernel first
-    start = time.perf_counter()
-    BitCounts("h", 0, 64).update(values)
-    assert time.perf_counter() - start < 1.5

@@ -86,3 +86,18 @@ class TestBucketCountsRange32(TestBucketCounts):
 class TestBucketCountsHigh(TestBucketCounts):
     scheme = "high"
     buckets = 4096
+
+
+def test_counts_widen_to_eight_bytes_before_a_bucket_could_overflow():
+    """Four-byte counts halve a large table's memory; they switch to eight bytes before 2^32 keys could meet."""
+    values = np.arange(20, dtype=np.uint64)
+    small = BucketCounts("xxh3_64", 0, "mod", 7, 64).update(values)
+    assert small.counts_.dtype == np.uint32
+    near = BucketCounts("xxh3_64", 0, "mod", 7, 64)
+    near.keys_seen_ = 2**32 - 10
+    near.update(values)
+    assert near.counts_.dtype == np.int64
+    np.testing.assert_array_equal(near.counts_, small.counts_)
+    assert near.result().counts.dtype == small.result().counts.dtype == np.int64
+    merged = BucketCounts("xxh3_64", 0, "mod", 7, 64).update(values).merge(near)
+    assert merged.counts_.dtype == np.int64 and merged.counts_.sum() == 40
