@@ -10,7 +10,7 @@ from __future__ import annotations
 import platform
 import sys
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import Any
 
 import numpy as np
@@ -38,6 +38,7 @@ def conclude(
     heavy: Any = None,
     passes: int = 1,
     figures: bool = True,
+    phase: Callable[[str], None] | None = None,
 ) -> AuditResult:
     """Turn merged accumulators into the audit's result.
 
@@ -63,6 +64,8 @@ def conclude(
     figures : bool
         Compute the data of the HTML page's figures (``AuditResult.plots``): the no-collision curve (a subsample
         simulation) and the flip matrices. Without it nothing is drawn and the JSON is the same.
+    phase : callable, optional
+        Told the step under way (``"avalanche checks of xxh3_64"``) before each one, for a progress line.
     """
     cut = 0
     if sample is not None:
@@ -72,8 +75,12 @@ def conclude(
     for state in states:
         for group in state.groups:
             if group.conclude is not None:
+                if phase is not None:
+                    phase(f"{group.name} checks of {state.spec.name}")
                 family += [(state.spec.name, *tested) for tested in group.conclude(ctx, state)]
         if figures and sample is not None and len(sample) >= CURVE_MIN_SAMPLE and state.spec.path != "placement":
+            if phase is not None:
+                phase(f"the no-collision curve of {state.spec.name} for the page")
             from hashaudit.stats.curves import no_collision_curve
 
             spec = state.spec
@@ -84,6 +91,8 @@ def conclude(
     findings = judge(family, plan.thresholds)
     for group in plan.groups():
         if group.facts is not None:
+            if phase is not None:
+                phase(f"{group.name} facts")
             findings += group.facts(ctx)
     hash_audits = []
     for state in states:

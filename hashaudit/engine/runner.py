@@ -81,6 +81,7 @@ def audit_batches(
     specs = plan.subjects(registry)
     pairs = plan.tables(keys)
     fix_mmap_threshold()
+    phase = getattr(progress, "phase", None)  # a progress line that can also name the phases after the reading
     lanes = _lane_count(threads, len(specs))
     count_bytes = 4 * sum(m for _, m in pairs)  # one uint32 per bucket per table, for one hash
     _check_memory(count_bytes * len(specs), pairs)
@@ -201,6 +202,8 @@ def audit_batches(
                 occurrences = 0
                 counting[0] = None
                 for part in range(parts):
+                    if part and phase is not None:
+                        phase(f"reading the input again for part {part + 1} of {parts} of the distinct keys")
                     distinct = DistinctKeys(plan.distinct_memory, part, parts) if plan.distinct else None
                     if part == 1 and heavy is not None and not heavy.exact and heavy.prune():
                         counting[0] = HeavyCounts(heavy)  # the second read settles the heavy keys' counts too
@@ -237,6 +240,8 @@ def audit_batches(
             counting[0] = HeavyCounts(heavy)  # no kept key can be above the floor: nothing to read again for
         again = reopen or ((lambda: batches) if isinstance(batches, list | tuple) else None)
         if counting[0] is None and again is not None:
+            if phase is not None:
+                phase("counting the heaviest keys exactly (another read of the input)")
             counted = counting[0] = HeavyCounts(heavy)
             for batch in prefetch(again()) if read_ahead else again():
                 counted.update(batch, batch.weights)
@@ -249,6 +254,8 @@ def audit_batches(
     else:
         order = [spec.name for spec in specs]
         states = sorted((st for lane in lane_states for st in lane), key=lambda st: order.index(st.spec.name))
+    if phase is not None:
+        phase("concluding")
     return conclude(
         states,
         plan,
@@ -262,6 +269,7 @@ def audit_batches(
         heavy=heavy,
         passes=parts + extra_reads,
         figures=figures,
+        phase=phase,
     )
 
 

@@ -1,4 +1,5 @@
-"""``--show-keys``: find the keys behind the largest full-width collision groups with a second pass over the input.
+"""``--show-keys``: find the keys behind the largest full-width collision groups and the heavy keys of a hot shard
+with a second pass over the input.
 
 Reports never show keys unless the user asks (keys in production dumps are often personal data). When asked, the
 audit reads its sources once more, hashes every key with the functions that had collisions, and keeps up to
@@ -38,20 +39,30 @@ def attach_colliding_keys(
     """Add ``sample_keys`` to each reported collision group of ``result`` (in place); False when the input cannot
     be read twice (standard input or another non-regular file)."""
     wanted: dict[str, tuple[dict[int, dict], int]] = {}
+    heavy: dict[int, list[dict]] = {}  # heavy keys of hot shards, by fingerprint
     for audit in result.hashes:
         for finding in audit.findings:
+            for entry in finding.details.get("heavy_keys") or []:
+                heavy.setdefault(int(entry["fingerprint"], 16), []).append(entry)
             if not CHECKS[finding.check].shows_keys:
                 continue
             groups = finding.details.get("largest_groups") or []
             if groups:
                 wanted[audit.name] = ({int(g["hash"], 16): g for g in groups}, audit.width)
-    if not wanted:
+    if not wanted and not heavy:
         return True
     if any(str(s) == "-" or not os.path.isfile(s) for s in sources):
         for targets, _ in wanted.values():
             for group in targets.values():
                 group["sample_keys"] = None
+        for entries in heavy.values():
+            for entry in entries:
+                entry["key"] = None
         return False
+    if heavy:
+        _find_heavy_keys(heavy, sources, options)
+    if not wanted:
+        return True
     found: dict[str, dict[int, list[bytes]]] = {name: {v: [] for v in targets} for name, (targets, _) in wanted.items()}
     per_source = [options] * len(sources) if isinstance(options, SourceOptions) else list(options)
     for source, source_options in zip(sources, per_source, strict=True):
@@ -75,3 +86,25 @@ def attach_colliding_keys(
         for value, group in targets.items():
             group["sample_keys"] = [k.decode("utf-8", "backslashreplace") for k in found[name][value]]
     return True
+
+
+def _find_heavy_keys(
+    heavy: dict[int, list[dict]], sources: Sequence[str | os.PathLike], options: SourceOptions | Sequence[SourceOptions]
+) -> None:
+    """Add ``key`` (as text, undecodable bytes escaped) to every heavy-key entry, found by its fingerprint."""
+    from hashaudit.hashes.fingerprint import heavy_fingerprints
+
+    targets = np.array(sorted(heavy), dtype=np.uint64)
+    left = set(heavy)
+    per_source = [options] * len(sources) if isinstance(options, SourceOptions) else list(options)
+    for source, source_options in zip(sources, per_source, strict=True):
+        for batch in open_keys(source, source_options):
+            prints = heavy_fingerprints(batch)
+            for row in np.flatnonzero(np.isin(prints, targets)).tolist():
+                fingerprint = int(prints[row])
+                if fingerprint in left:
+                    for entry in heavy[fingerprint]:
+                        entry["key"] = batch.key(row).decode("utf-8", "backslashreplace")
+                    left.discard(fingerprint)
+            if not left:
+                return

@@ -109,8 +109,18 @@ def audit(
         # or more than it by enough to change them: audit again with tables sized for the keys there are.
         passes = result.run.get("passes", 1)
         keys = result.keys
+        phase = getattr(progress, "phase", None)
+        if phase is not None:
+            phase(f"reading the input again with tables sized for {keys:,} distinct keys")
         result = audit_batches(
-            reopen(), plan, keys=keys, threads=threads, key_estimate=estimate, reopen=reopen, figures=figures
+            reopen(),
+            plan,
+            keys=keys,
+            progress=progress,
+            threads=threads,
+            key_estimate=estimate,
+            reopen=reopen,
+            figures=figures,
         )
         result = dataclasses.replace(result, run={**result.run, "passes": result.run.get("passes", 1) + passes})
     if result.run.get("passes", 1) > 1 or keys is not None:
@@ -119,6 +129,9 @@ def audit(
     final = dataclasses.replace(result, sources=described)
     if show_keys:
         from hashaudit.engine.showkeys import attach_colliding_keys
+
+        if getattr(progress, "phase", None) is not None:
+            progress.phase("reading the input again to name the keys (--show-keys)")  # type: ignore[union-attr]
 
         attach_colliding_keys(final, sources, per_source, plan.seed)
     return final

@@ -118,7 +118,7 @@ SOURCE_SETTINGS: tuple[Setting, ...] = (
         "sources",
         "JSON Lines: text hashes a string's content and any other value's JSON text (1 and \"1\" are one key); "
         "json hashes every value's JSON text (they are two); auto is text, but stops at a field mixing strings "
-        "with other values.",
+        "with other values (unless --key-format reads the text: int, hex, base64).",
         default="auto",
         kind="choice",
         choices=JSON_VALUES,

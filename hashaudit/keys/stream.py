@@ -174,7 +174,8 @@ class KeyStream:
                 o.weight_column,
                 skip_bad=self._skip_bad,
                 max_key_bytes=o.max_key_bytes,
-                json_values=o.json_values,
+                # a key format reads the value's text (1 and "1" are the same integer): nothing to tell apart
+                json_values="text" if o.json_values == "auto" and o.key_format != "bytes" else o.json_values,
             )
         else:
             yield from line_records(stream, self._name, o, self.stats)

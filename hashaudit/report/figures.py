@@ -308,7 +308,8 @@ def _avalanche_figure(figures: Figures, matrix: Any) -> str | None:
 
 
 def _shard_figure(figures: Figures, finding: Finding) -> str | None:
-    """Distinct keys per shard against an even share."""
+    """Distinct keys per shard against an even share and, below, the load each shard carries (occurrences or
+    summed weights) against its fair share: a hash can spread the keys evenly while a few heavy keys heat a shard."""
     counts = finding.details.get("keys_per_shard")
     if not counts:
         return None
@@ -316,33 +317,52 @@ def _shard_figure(figures: Figures, finding: Finding) -> str | None:
     shards = len(counts)
     even = total / shards
     hottest = finding.details.get("hottest_shard")
+    loads = finding.details.get("load_per_shard")
     uneven_scheme = (finding.details.get("expected_shares_max_over_mean") or 1.0) > 1 + 1e-9
     with figures.style():
-        fig = figures.new(6.4, 2.7)
-        ax = fig.add_subplot()
-        bars = ax.bar(range(shards), counts, width=0.75, color=_SKY, edgecolor=_BLUE, linewidth=0.6, label="keys")
-        if isinstance(hottest, int) and 0 <= hottest < shards:
-            bars[hottest].set_hatch("///")
-            bars[hottest].set_facecolor(_ORANGE)
-            bars[hottest].set_label("hottest shard")
-        ax.axhline(even, color="black", linewidth=1.1, label="even share n/N")
-        if uneven_scheme:
-            largest = even * float(finding.details["expected_shares_max_over_mean"])
-            ax.axhline(largest, color=_GREEN, linestyle="--", linewidth=1.1, label="largest share of the scheme")
-        low, high = min(counts), max(counts)
-        spread = max(high - low, 0.02 * even, 1.0)
-        ax.set_ylim(max(0.0, low - 1.5 * spread), high + 1.5 * spread)
-        ax.set_xlabel("shard")
-        ax.set_ylabel("distinct keys")
-        if shards <= 32:
-            ax.set_xticks(range(shards))
-        ax.legend(loc="upper right", ncols=2)
+        fig = figures.new(6.4, 4.9 if loads else 2.7)
+        panels = [
+            (fig.add_subplot(2, 1, 1) if loads else fig.add_subplot()),
+            *([fig.add_subplot(2, 1, 2)] if loads else []),
+        ]
+        rows = [(counts, "distinct keys", "keys")] + ([(loads, "load", "load")] if loads else [])
+        for ax, (values, ylabel, label) in zip(panels, rows, strict=True):
+            level = sum(values) / shards
+            bars = ax.bar(range(shards), values, width=0.75, color=_SKY, edgecolor=_BLUE, linewidth=0.6, label=label)
+            if isinstance(hottest, int) and 0 <= hottest < shards and values is counts:
+                bars[hottest].set_hatch("///")
+                bars[hottest].set_facecolor(_ORANGE)
+                bars[hottest].set_label("hottest shard")
+            if values is loads:
+                heaviest = max(range(shards), key=lambda i: values[i])
+                bars[heaviest].set_hatch("///")
+                bars[heaviest].set_facecolor(_ORANGE)
+                bars[heaviest].set_label("most loaded shard")
+            ax.axhline(level, color="black", linewidth=1.1, label="even share")
+            if uneven_scheme:
+                largest = level * float(finding.details["expected_shares_max_over_mean"])
+                ax.axhline(largest, color=_GREEN, linestyle="--", linewidth=1.1, label="largest share of the scheme")
+            low, high = min(values), max(values)
+            spread = max(high - low, 0.02 * level, 1e-9 * max(level, 1.0), 1.0 if values is counts else 0.0)
+            ax.set_ylim(max(0.0, low - 1.5 * spread), high + 1.5 * spread)
+            ax.set_ylabel(ylabel)
+            if shards <= 32:
+                ax.set_xticks(range(shards))
+            ax.legend(loc="upper right", ncols=3, fontsize="small")
+        panels[-1].set_xlabel("shard")
         _margins(fig, left=0.75, right=0.15, bottom=0.5, top=0.15)
-        svg = figures.svg(fig, "distinct keys per shard against an even share")
+        svg = figures.svg(fig, "distinct keys and load per shard against an even share")
     caption = (
         f"Distinct keys on each of {shards} shards (<strong>{esc(finding.details.get('shard_scheme'))}</strong>) "
-        "against an even share of the keys; the hottest shard is hatched. The vertical axis does not start at zero, "
-        "so small differences show. "
+        "against an even share of the keys; the hottest shard is hatched. "
+        + (
+            "Below, the load each shard carries (every occurrence, or the summed weights) against an even share of "
+            "the load, the most loaded shard hatched: keys spread evenly can still leave one shard hot when a few "
+            "keys carry much of the load (see hot_keys). "
+            if loads
+            else ""
+        )
+        + "The vertical axes do not start at zero, so small differences show. "
         + (
             "The scheme's own shares are not even (weights or ring arcs); the dashed line is its largest share. "
             if uneven_scheme

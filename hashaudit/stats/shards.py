@@ -213,6 +213,9 @@ def balance_tests(counts: ShardCounts) -> list[FitTest]:
         details["ring_share_cv_theory"] = 1 / math.sqrt(counts.layout.vnodes)  # arcs of V points: Gamma(V) sums
     if shards <= LISTED_SHARDS:
         details["keys_per_shard"] = counts.distinct_.tolist()
+        load = counts.load_
+        if float(load.sum()) > 0:  # what each shard feels: every occurrence, or the summed weights
+            details["load_per_shard"] = [rounded(float(x)) for x in load]
     effect = Effect(
         "shard_imbalance",
         float(ratios.max() / ideal_ratio - 1),

@@ -169,3 +169,10 @@ class AuditResult:
                 }
             )
         return pd.DataFrame(rows)
+
+    def _repr_html_(self) -> str:
+        """A compact HTML summary that notebooks show for the result: the verdict, the worst findings and a table
+        per hash of its checks' verdicts; no key, everything escaped (``hashaudit.report.notebook``)."""
+        from hashaudit.report.notebook import render_fragment
+
+        return render_fragment(self)

@@ -50,3 +50,9 @@ def test_an_unknown_choice_names_the_setting() -> None:
     with pytest.raises(SettingError) as caught:
         SourceOptions.from_settings(json_values="quoted")
     assert caught.value.setting == "json_values"
+
+
+def test_a_key_format_reads_the_text_so_mixed_kinds_are_one_key(tmp_path: Path) -> None:
+    path = tmp_path / "k.jsonl"
+    path.write_text('{"id": 7}\n{"id": "7"}\n{"id": "8"}\n')
+    assert _keys(path, key_format="int") == [(7).to_bytes(8, "little")] * 2 + [(8).to_bytes(8, "little")]

@@ -29,7 +29,7 @@ FIGURE_LABELS = {
     "no_collision": "probability of no collision against Q(m, k)",
     "probe_cost": "probe cost against load factor, observed, ideal and theory",
     "avalanche": "avalanche matrix heat map",
-    "shards": "distinct keys per shard against an even share",
+    "shards": "distinct keys and load per shard against an even share",
 }
 VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source", "track", "wbr"}
 
