@@ -313,11 +313,9 @@ def _shard_figure(figures: Figures, finding: Finding) -> str | None:
     counts = finding.details.get("keys_per_shard")
     if not counts:
         return None
-    total = sum(counts)
     shards = len(counts)
-    even = total / shards
     hottest = finding.details.get("hottest_shard")
-    loads = finding.details.get("load_per_shard")
+    loads: list[float] | None = finding.details.get("load_per_shard")
     uneven_scheme = (finding.details.get("expected_shares_max_over_mean") or 1.0) > 1 + 1e-9
     with figures.style():
         fig = figures.new(6.4, 4.9 if loads else 2.7)
@@ -333,8 +331,8 @@ def _shard_figure(figures: Figures, finding: Finding) -> str | None:
                 bars[hottest].set_hatch("///")
                 bars[hottest].set_facecolor(_ORANGE)
                 bars[hottest].set_label("hottest shard")
-            if values is loads:
-                heaviest = max(range(shards), key=lambda i: values[i])
+            if loads is not None and values is loads:
+                heaviest = max(range(shards), key=lambda i: loads[i])
                 bars[heaviest].set_hatch("///")
                 bars[heaviest].set_facecolor(_ORANGE)
                 bars[heaviest].set_label("most loaded shard")
