@@ -16,6 +16,7 @@ import threading
 import traceback
 
 import click
+from click.core import ParameterSource
 
 from hashaudit.checks import group_settings
 from hashaudit.cli_settings import SectionedCommand, SizeType, as_flags, options
@@ -36,6 +37,16 @@ VIEW_SETTINGS = (
         kind="bool",
     ),
     Setting("show_all", "reports", "List passing checks too.", default=False, kind="bool", flag="--all"),
+    Setting(
+        "markdown_detail",
+        "reports",
+        "How much the Markdown report holds: summary (the verdicts, every failing and warning check, a table per "
+        "hash; fits a pull-request comment) or full (every check with its effect).",
+        default="summary",
+        kind="choice",
+        choices=("summary", "full"),
+        recorded=False,
+    ),
     Setting(
         "quiet",
         "reports",
@@ -136,10 +147,15 @@ def audit(sources, databases, show_keys, show_all, quiet, color, debug, engine, 
     if not sources:
         raise UsageError("give a SOURCE (a key file, - for standard input) or --db URL")
     outputs = _take(values, REPORT_SETTINGS)
+    markdown_detail = values.pop("markdown_detail")
     check_outputs(outputs, list(sources))
     options_ = _source_options(values)
     thresholds = Thresholds(**_take(values, threshold_settings()))
-    plan = AuditPlan(thresholds=thresholds, **_take(values, plan_settings()))
+    planned = _take(values, plan_settings())
+    given = click.get_current_context().get_parameter_source("neighbour_keys") != ParameterSource.DEFAULT
+    if not given and options_.key_format == "int":
+        planned["neighbour_keys"] = "integers"  # integer keys get integer neighbours (value ± 1, strides, one bit)
+    plan = AuditPlan(thresholds=thresholds, **planned)
     if values:
         raise UsageError(f"options not handled: {', '.join(values)}")  # a declared setting nothing reads: a bug
     if engine == "dask":
@@ -167,7 +183,7 @@ def audit(sources, databases, show_keys, show_all, quiet, color, debug, engine, 
         finally:
             if progress is not None:
                 progress.close()
-    write_reports(result, outputs, show_keys=show_keys)
+    write_reports(result, outputs, show_keys=show_keys, markdown_detail=markdown_detail)
     _show(result, quiet, show_all, color, outputs)
     sys.exit(result.exit_code)
 
@@ -191,6 +207,7 @@ def gate(config_path, baseline, tolerance, show_all, quiet, color, debug, thread
     from hashaudit.report.writers import write_reports
 
     config = load_config(config_path)
+    markdown_detail = outputs.pop("markdown_detail")
     outputs = {name: outputs.get(name) or config.reports.get(name) for name in WRITERS}
     base_path = baseline or config.baseline
     check_outputs(outputs, [*config.sources, str(config.path), *([base_path] if base_path else [])])
@@ -212,7 +229,7 @@ def gate(config_path, baseline, tolerance, show_all, quiet, color, debug, thread
     if old is not None:
         rows = compare(report_dict(result), old, config.tolerance if tolerance is None else tolerance)
         comparison = Comparison(base_path, rows)
-    write_reports(result, outputs, comparison=comparison)
+    write_reports(result, outputs, comparison=comparison, markdown_detail=markdown_detail)
     _show(result, quiet, show_all, color, outputs, comparison)
     sys.exit(EXIT_FAIL if result.exit_code or (comparison is not None and comparison.regressed) else EXIT_OK)
 

@@ -85,11 +85,18 @@ def rejudge(findings: Iterable[Finding], thresholds: Thresholds, leave_out: Sequ
     return judge(family, thresholds)
 
 
-def null_configs(runs: int, seed: int, *, min_keys: int = 2_000, max_keys: int = 200_000) -> list[dict]:
+TINY_KEY_COUNTS = (1, 2, 3, 10, 100)
+"""Key counts of the tiny null audits: every check must be valid (or decline to judge) down to one key."""
+
+
+def null_configs(
+    runs: int, seed: int, *, min_keys: int = 2_000, max_keys: int = 200_000, key_counts: Sequence[int] = ()
+) -> list[dict]:
     """The settings of ``runs`` independent null audits (pure function of ``seed``).
 
     Each audit draws: its hash (cycling through ``NULL_HASHES``), its keys (byte strings of a length from
-    ``KEY_BYTES`` or 64-bit integers, alternating), a key count log-uniform in [``min_keys``, ``max_keys``], a
+    ``KEY_BYTES`` or 64-bit integers, alternating), a key count log-uniform in [``min_keys``, ``max_keys``] (or,
+    when ``key_counts`` is given, the counts in turn, e.g. ``TINY_KEY_COUNTS``), a
     seed for the hash and the samples, and two load factors from ``NULL_LOADS``: one for a power-of-two ``mask``
     table (the nearest power of two to n / load) and one for a prime ``mod`` table (the largest prime below
     n / load).
@@ -98,6 +105,8 @@ def null_configs(runs: int, seed: int, *, min_keys: int = 2_000, max_keys: int =
     for run in range(runs):
         rng = np.random.default_rng([seed, run, 0x4E11])
         keys = int(round(math.exp(rng.uniform(math.log(min_keys), math.log(max_keys)))))
+        if key_counts:
+            keys = int(key_counts[(run // len(NULL_HASHES) // len(KEY_KINDS)) % len(key_counts)])
         mask_load, mod_load = (float(x) for x in rng.choice(NULL_LOADS, size=2))
         kind = KEY_KINDS[(run // len(NULL_HASHES)) % len(KEY_KINDS)]
         configs.append(
@@ -238,6 +247,7 @@ def calibration(
     *,
     min_keys: int = 2_000,
     max_keys: int = 200_000,
+    key_counts: Sequence[int] = (),
     avalanche_keys: int = 256,
     alpha: float = 0.01,
     workers: int = 1,
@@ -252,6 +262,8 @@ def calibration(
         Every audit's settings and keys derive from it.
     min_keys, max_keys : int
         Range of the key counts (log-uniform).
+    key_counts : sequence of int, optional
+        Key counts taken in turn instead (``TINY_KEY_COUNTS``: the tiny audits), each with every hash and key kind.
     avalanche_keys : int
         Key sample of the avalanche checks (small keeps the study quick).
     alpha : float
@@ -266,13 +278,14 @@ def calibration(
         :func:`summarise_null_runs`.
     """
     started = time.perf_counter()
-    configs = null_configs(runs, seed, min_keys=min_keys, max_keys=max_keys)
+    configs = null_configs(runs, seed, min_keys=min_keys, max_keys=max_keys, key_counts=key_counts)
     task = functools.partial(null_run, avalanche_keys=avalanche_keys, threads=1 if workers > 1 else 0)
     rows = parallel_map(task, configs, workers)
     settings = {
         "runs": runs,
         "seed": seed,
         "min_keys": min_keys,
+        "key_counts": list(key_counts),
         "max_keys": max_keys,
         "avalanche_keys": avalanche_keys,
         "alpha": alpha,

@@ -145,10 +145,28 @@ class Thresholds:
 
 
 def judge(tests: list[tuple[str, str | None, int | None, int, Any]], thresholds: Thresholds) -> list:
-    """:func:`hashaudit.verdict.findings.judge` with every check's sentences from the registry."""
-    from hashaudit.verdict.findings import judge as judge_with
+    """:func:`hashaudit.verdict.findings.judge` with every check's sentences from the registry.
 
-    return judge_with(tests, thresholds, CHECKS)
+    An effect fails only beyond its threshold *in the failing direction*: a significant finding whose observed
+    quantity is no worse than an ideal hash's (``effect.observed <= effect.ideal``, e.g. a largest correlation
+    below the largest one chance gives) is at most a ``warn``, whatever its effect's size.
+    """
+    import dataclasses
+
+    from hashaudit.verdict.findings import judge as judge_with
+    from hashaudit.verdict.words import p_text
+
+    findings = judge_with(tests, thresholds, CHECKS)
+    for index, ((*_, test), finding) in enumerate(zip(tests, findings, strict=True)):
+        effect = finding.effect
+        if finding.verdict != "fail" or not (math.isfinite(effect.observed) and math.isfinite(effect.ideal)):
+            continue
+        if effect.observed <= effect.ideal:
+            sentence = CHECKS[finding.check].sentence
+            core = sentence(test) if sentence is not None else finding.message
+            message = f"significant but small ({p_text(test.p_upper)}; no worse than chance): {core}"
+            findings[index] = dataclasses.replace(finding, verdict="warn", message=message)
+    return findings
 
 
 __all__ = [

@@ -8,30 +8,37 @@ from typing import Any
 
 from hashaudit.checks._base import Check, CheckGroup, Conclusion, Tested
 from hashaudit.settings import Setting
-from hashaudit.verdict.words import excess, num, pct
+from hashaudit.verdict.words import count, excess, num, pct
 
 
 def _cost(test: Any) -> str:
     e = test.effect
-    core = (
-        f"a successful chained lookup costs {num(e.observed)} probes against {num(e.ideal)} for an ideal hash "
-        f"({excess(e.value)})"
-    )
+    cost = f"{count(e.observed, 'probe')} against {num(e.ideal)} for an ideal hash ({excess(e.value)})"
     if test.name == "colliding_pairs":
-        return f"{num(test.observed)} colliding pairs against {num(test.expected)} expected; {core}"
+        pairs = count(test.observed, "colliding pair")
+        return f"{pairs} against {num(test.expected)} expected; a successful chained lookup costs {cost}"
     symbol = "χ²" if test.name == "chi_square" else "G"
-    return f"bucket counts more uneven than random ({symbol} = {num(test.statistic)} vs {num(test.expected)}); {core}"
+    uneven = f"bucket counts more uneven than random ({symbol} = {num(test.statistic)} vs {num(test.expected)})"
+    if e.value <= 0:  # the statistic weighs light and empty buckets that chained lookups barely feel
+        return (
+            f"{uneven} in the light and empty buckets, not in the cost of lookups: a successful chained lookup "
+            f"costs {cost}"
+        )
+    return f"{uneven}; a successful chained lookup costs {cost}"
 
 
 def _empty(test: Any) -> str:
     e = test.effect
-    return f"{pct(e.observed)} of buckets stay empty against {pct(e.ideal)} for an ideal hash ({100 * e.value:+.1f} points)"
+    return (
+        f"{pct(e.observed)} of buckets stay empty against {pct(e.ideal)} for an ideal hash "
+        f"({100 * e.value:+.1f} points of the table)"
+    )
 
 
 def _max_load(test: Any) -> str:
     e = test.effect
     return (
-        f"the hottest bucket holds {num(e.observed)} keys against an expected maximum of {num(e.ideal)} "
+        f"the hottest bucket holds {count(e.observed, 'key')} against an expected maximum of {num(e.ideal)} "
         f"({e.value:,.3g}×)"
     )
 

@@ -7,14 +7,14 @@ from typing import Any
 
 from hashaudit.checks._base import Check, CheckGroup, Conclusion, Tested
 from hashaudit.settings import Setting
-from hashaudit.verdict.words import num
+from hashaudit.verdict.words import count
 
 
 def _full(test: Any) -> str:
     d = test.details
     return (
-        f"{num(d.get('keys_in_collisions', 0))} distinct keys share their full {d.get('width')}-bit value "
-        f"({num(d.get('groups', 0))} groups): {num(test.observed)} colliding pairs against "
+        f"{count(d.get('keys_in_collisions', 0), 'distinct key')} share their full {d.get('width')}-bit value "
+        f"({count(d.get('groups', 0), 'group')}): {count(test.observed, 'colliding pair')} against "
         f"{test.expected:.3g} expected by the birthday bound"
     )
 

@@ -10,7 +10,7 @@ from typing import Any
 from hashaudit.checks._base import Check, CheckGroup, Conclusion, Tested
 from hashaudit.checks.tables import first_values, simulated, simulated_schemes
 from hashaudit.settings import Setting, SettingError
-from hashaudit.verdict.words import excess, num
+from hashaudit.verdict.words import count, excess, num
 
 ORDER_WORDS = {
     "source": "in source order",
@@ -26,9 +26,10 @@ def _growth(test: Any) -> str:
     g = d.get("growth", {})
     search = "a successful" if d.get("search") == "hit" else "an unsuccessful"
     return (
-        f"growing {d.get('table_kind')} table ({g.get('policy')}, {g.get('resizes')} resizes moving "
-        f"{num(g.get('keys_moved', 0))} keys, {num(g.get('slots', 0))} slots at the end): {d.get('moment')} "
-        f"at {num(d.get('slots', 0))} slots, {search} lookup costs {num(e.observed)} probes against "
+        f"growing {d.get('table_kind')} table ({g.get('policy')}, {count(g.get('resizes', 0), 'resize')} moving "
+        f"{count(g.get('keys_moved', 0), 'key')}, {count(g.get('slots', 0), 'slot')} at the end): "
+        f"{d.get('moment')} at {count(d.get('slots', 0), 'slot')}, {search} lookup costs "
+        f"{count(e.observed, 'probe')} against "
         f"{num(e.ideal)} for an ideal hash ({excess(e.value)})"
     )
 
@@ -39,7 +40,7 @@ def _order(test: Any) -> str:
     over = "over " if d.get("worst_order") in d.get("stopped_orders", []) else ""
     return (
         f"building a growing {d.get('table_kind')} table ({d.get('growth')}) from the keys {worst} costs "
-        f"{over}{num(e.observed)} probes, {over}{num(e.value)}× a random order — copy tables in random order, size "
+        f"{over}{count(e.observed, 'probe')}, {over}{num(e.value)}× a random order — copy tables in random order, size "
         "the target before filling it, or give each table its own seed"
     )
 

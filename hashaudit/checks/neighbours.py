@@ -1,5 +1,9 @@
 """``neighbours``: families of keys made from the sample the way real keys resemble each other (counters, one
-changed character, case, shared prefixes, an appended byte), and whether the hash tells them apart."""
+changed character, case, shared prefixes, an appended byte; for integer keys the value ± 1, ± small strides, one
+flipped bit), and whether the hash tells them apart.
+
+Whether the keys are integers is the plan's ``neighbour_keys`` setting: the sample alone cannot tell 8-byte
+integers from 8-byte text."""
 
 from __future__ import annotations
 
@@ -7,23 +11,27 @@ from collections.abc import Iterator
 from typing import Any
 
 from hashaudit.checks._base import Check, CheckGroup, Conclusion, Tested
-from hashaudit.verdict.words import excess, num
+from hashaudit.settings import Setting
+from hashaudit.verdict.words import count, excess, num
 
 FAMILIES = ("counter", "one_char", "case", "shared_prefix", "appended_byte")
+INTEGER_FAMILIES = ("adjacent", "stride", "bit_flip")  # hashaudit.stats.neighbours.INTEGER_FAMILIES
+NEIGHBOUR_KEYS = ("bytes", "integers")
 
 
 def _sentence(test: Any) -> str:
     d, e = test.details, test.effect
     family = (
-        f"neighbour keys '{d.get('family')}' ({num(d.get('family_keys', 0))} keys made from yours: "
+        f"neighbour keys '{d.get('family')}' ({count(d.get('family_keys', 0), 'key')} made from yours: "
         f"{d.get('transformation')})"
     )
     if e.name == "lookup_cost_excess":
         return (
-            f"{family}: in {d.get('worst')}, {num(test.observed)} colliding pairs against {num(test.expected)} "
-            f"expected; a chained lookup costs {num(e.observed)} probes against {num(e.ideal)} ({excess(e.value)})"
+            f"{family}: in {d.get('worst')}, {count(test.observed, 'colliding pair')} against "
+            f"{num(test.expected)} expected; a chained lookup costs {count(e.observed, 'probe')} against "
+            f"{num(e.ideal)} ({excess(e.value)})"
         )
-    return f"{family}: {num(test.observed)} full-value colliding pairs against {test.expected:.3g} expected"
+    return f"{family}: {count(test.observed, 'full-value colliding pair')} against {test.expected:.3g} expected"
 
 
 def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
@@ -32,7 +40,8 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
     if ctx.sample is None or not len(ctx.sample):
         return
     if "neighbour_families" not in ctx.shared:  # built once, hashed by every function
-        ctx.shared["neighbour_families"] = neighbour_families(ctx.sample, seed=ctx.plan.seed)
+        integers = ctx.plan.neighbour_keys == "integers"
+        ctx.shared["neighbour_families"] = neighbour_families(ctx.sample, seed=ctx.plan.seed, integers=integers)
     tables = ctx.tables
     spec = state.spec
     for _family, test in neighbour_tests(
@@ -54,7 +63,18 @@ GROUP = CheckGroup(
     "families of similar keys made from the sample (counters, one changed character, case, prefixes)",
     tuple(
         Check(f"neighbour_{f}", _sentence, null_law="not_studied", help=f"neighbour keys: {f.replace('_', ' ')}")
-        for f in FAMILIES
+        for f in FAMILIES + INTEGER_FAMILIES
+    ),
+    settings=(
+        Setting(
+            "neighbour_keys",
+            "checks",
+            "How neighbour keys are made: bytes (changed characters, case, prefixes, appended bytes) or integers "
+            "(8-byte little-endian values: value ± 1, ± strides, one flipped bit).",
+            default="bytes",
+            kind="choice",
+            choices=NEIGHBOUR_KEYS,
+        ),
     ),
     conclude=_conclude,
     needs_sample=True,

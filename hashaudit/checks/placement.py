@@ -1,6 +1,11 @@
 """``placement``: where keys land in a system that is really run — a topic's partitions, a cluster's slots and
 nodes — under that system's exact placement rule (``hashaudit.placements.rules``), against an ideal hash placed by
 the same rule, and how many keys move when the system grows. Each placement is a subject of its own in the reports.
+
+Two facts that inform and never fail: ``placement_agreement`` (two rules with the same units, such as a JVM and a
+C-client producer of one topic, compared key by key: the share of distinct keys they place on different units,
+which is the share whose per-key order mixed producers break) and ``hash_tag_pinning`` (keys sharing a cluster hash
+tag all go to one slot: how many keys have a tag, and the largest tag family's share).
 """
 
 from __future__ import annotations
@@ -11,7 +16,7 @@ from typing import Any
 
 from hashaudit.checks._base import Check, CheckGroup, Conclusion, Tested
 from hashaudit.settings import Setting
-from hashaudit.verdict.words import excess, num, pct
+from hashaudit.verdict.words import count, excess, num, pct
 
 
 def _balance(test: Any) -> str:
@@ -42,10 +47,25 @@ def _show(placements: tuple) -> list[str]:
     return [p.name if hasattr(p, "name") else str(p) for p in placements]
 
 
+def _partners(subject: Any, placements: tuple) -> list:
+    """The other placements with units of the same name and number: the ones compared key by key with it."""
+    layout = subject.layout
+    return [
+        p for p in placements if p.name != subject.name and p.unit == subject.unit and p.layout.shards == layout.shards
+    ]
+
+
 def _accumulators(subject: Any, plan: Any, tables: list, lanes: int) -> dict:
     from hashaudit.stats.shards import ShardCounts
 
-    return {"units": (("loads", "values"), [ShardCounts(subject.name, subject.width, subject.layout)])}
+    kinds: dict[str, tuple[tuple[str, ...], list[Any]]] = {
+        "units": (("loads", "values"), [ShardCounts(subject.name, subject.width, subject.layout)])
+    }
+    if _partners(subject, plan.placements):
+        from hashaudit.placements.agreement import UnitRecords
+
+        kinds["unit_records"] = (("positions",), [UnitRecords(subject.name, subject.width, subject.layout)])
+    return kinds
 
 
 def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
@@ -61,6 +81,175 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
                 details["keys_per_shard"] = counts.distinct_.tolist()
             details["load_per_shard"] = [round(float(x), 6) for x in counts.load_]
             yield None, None, keys, replace(test, name=named[test.name], details=details)
+
+
+def _facts(ctx: Conclusion) -> list:
+    """``placement_agreement`` for every pair of placements with the same units (the finding goes to the later
+    one, naming the earlier), and ``hash_tag_pinning`` for every cluster placement with hash tags."""
+    states = [s for s in ctx.states if s.spec.path == "placement"]
+    findings = []
+    for j, later in enumerate(states):
+        for earlier in states[:j]:
+            if (
+                later.get("unit_records")
+                and earlier.get("unit_records")
+                and earlier.spec in _partners(later.spec, tuple(s.spec for s in states))
+            ):
+                findings.append(_agreement_finding(earlier, later))
+    if ctx.sample is not None:
+        findings += [_pinning_finding(ctx, s) for s in states if s.spec.rule == "redis-cluster"]
+    return findings
+
+
+def _fact(
+    subject: Any,
+    check: str,
+    keys: int,
+    effect: Any,
+    expected: float,
+    method: str,
+    verdict: str,
+    message: str,
+    details: dict,
+) -> Any:
+    import math
+
+    from hashaudit.verdict.findings import Finding
+
+    observed = float(effect.value)
+    return Finding(
+        subject.name,
+        check,
+        None,
+        None,
+        keys,
+        observed,
+        expected,
+        observed,
+        1.0,
+        1.0,
+        1.0,
+        method,
+        effect,
+        math.nan,
+        verdict,
+        "none",
+        message,
+        details,
+    )
+
+
+def _agreement_finding(earlier: Any, later: Any) -> Any:
+    from hashaudit.placements.agreement import agreement
+    from hashaudit.stats.outcome import Effect
+
+    a, b = earlier.spec, later.spec
+    result = agreement(earlier.get("unit_records")[0], later.get("unit_records")[0])
+    unit, units = b.unit, b.layout.shards
+    effect = Effect(
+        "disagreeing_share", result.share, result.share, 0.0, f"share of distinct keys on a different {unit}"
+    )
+    if result.exact:
+        method = f"every distinct key compared ({num(result.compared)})"
+        amount = f"{num(result.differing)} of {num(result.keys)} distinct keys ({pct(result.share)})"
+    else:
+        low, high = result.interval
+        method = (
+            f"a uniform sample of {num(result.compared)} of {num(result.keys)} distinct keys (bottom-k by stream "
+            "position), 95 % Wilson interval"
+        )
+        amount = f"{pct(result.share)} of the distinct keys (95 % interval {pct(low)} to {pct(high)})"
+    if result.differing:
+        message = (
+            f"{b.name} and {a.name} place {amount} on a different {unit}; producers of one topic that mix the two "
+            f"lose per-key order for those keys (two unrelated rules would disagree on {pct(result.independent_share)})"
+        )
+    else:
+        message = f"{b.name} and {a.name} place every one of {num(result.keys)} distinct keys on the same {unit}"
+    details = {
+        "unit": unit,
+        "shards": units,
+        "rule": b.rule,
+        "placement": b.name,
+        "compared_with": a.name,
+        "keys_compared": result.compared,
+        "keys_differing": result.differing,
+        "share_interval": [result.interval[0], result.interval[1]],
+        "independent_share": result.independent_share,
+        "exact": result.exact,
+    }
+    verdict = "info" if result.differing else "pass"
+    return _fact(
+        b, "placement_agreement", result.keys, effect, result.independent_share, method, verdict, message, details
+    )
+
+
+def _pinning_finding(ctx: Conclusion, state: Any) -> Any:
+    import numpy as np
+
+    from hashaudit.placements.redis_cluster import SLOTS, crc16, hash_tag_spans
+    from hashaudit.stats.outcome import Effect
+
+    spec, sample = state.spec, ctx.sample
+    keys = sample.keys()
+    start, stop = hash_tag_spans(keys)
+    tagged = np.flatnonzero((start > 0) | (stop < keys.lengths()))
+    data, offsets = keys.data, keys.offsets
+    tags = [bytes(data[offsets[i] + start[i] : offsets[i] + stop[i]]) for i in tagged.tolist()]  # a sample only
+    families: dict[bytes, int] = {}
+    for tag in tags:
+        families[tag] = families.get(tag, 0) + 1
+    largest_tag, largest = max(families.items(), key=lambda item: (item[1], item[0]), default=(b"", 0))
+    sampled, distinct = len(sample), max(ctx.keys, len(sample))
+    exact = sampled >= distinct or sampled < sample.size
+    scale = 1.0 if exact else distinct / sampled
+    share = largest / sampled if sampled else 0.0
+    tagged_share = len(tags) / sampled if sampled else 0.0
+    slot = int(crc16(type(keys).from_keys([largest_tag]))[0]) % SLOTS if largest else None
+    node = int(spec.layout.owners[slot]) if slot is not None else None
+    effect = Effect("pinned_share", share, share, 1.0 / SLOTS, "share of distinct keys in the largest tag family")
+    how = "" if exact else f" (estimated from a uniform sample of {num(sampled)} distinct keys)"
+    # the tag is part of the keys, which reports never show: it is named by its slot and node, and its length
+    if largest > 1:
+        message = (
+            f"{num(round(len(tags) * scale))} distinct keys ({pct(tagged_share)}) carry a hash tag{how}; the largest "
+            f"tag family (a tag of {count(len(largest_tag), 'byte')}) pins {num(round(largest * scale))} keys ({pct(share)}) to slot {slot} on node "
+            f"{node}: a key-design observation, not the hash's doing"
+        )
+    elif tags:
+        message = (
+            f"{num(round(len(tags) * scale))} distinct keys ({pct(tagged_share)}) carry a hash tag{how}; no tag "
+            "is shared by two keys"
+        )
+    else:
+        message = f"no key carries a hash tag{how}: every key is hashed whole"
+    details = {
+        "unit": spec.unit,
+        "shards": spec.layout.shards,
+        "rule": spec.rule,
+        "placement": spec.name,
+        "keys_sampled": sampled,
+        "exact": exact,
+        "tagged_keys": round(len(tags) * scale),
+        "tagged_share": tagged_share,
+        "tag_families": len(families),
+        "largest_family_keys": round(largest * scale),
+        "largest_family_tag_bytes": len(largest_tag),
+        "largest_family_slot": slot,
+        "largest_family_node": node,
+    }
+    method = "every distinct key" if exact else f"a uniform sample of {sampled} distinct keys (bottom-k)"
+    return _fact(
+        spec,
+        "hash_tag_pinning",
+        distinct,
+        effect,
+        1.0 / SLOTS,
+        method,
+        "info" if largest > 1 else "pass",
+        message,
+        details,
+    )
 
 
 GROUP = CheckGroup(
@@ -80,6 +269,18 @@ GROUP = CheckGroup(
             null_law="not_studied",
             help="keys moving when the system gains a unit",
         ),
+        Check(
+            "placement_agreement",
+            facts_only=True,
+            null_law="facts",
+            help="share of distinct keys two rules with the same units place differently (mixed producers)",
+        ),
+        Check(
+            "hash_tag_pinning",
+            facts_only=True,
+            null_law="facts",
+            help="keys a cluster hash tag pins to one slot: tagged keys and the largest tag family",
+        ),
     ),
     default=False,
     settings=(
@@ -87,7 +288,7 @@ GROUP = CheckGroup(
             "placements",
             "checks",
             "A system's placement rule with its parameters (repeatable): kafka:partitions=N, "
-            "jvm-hashcode-mod:n=N, redis-cluster:nodes=N, cassandra:nodes=N, ketama:servers=N "
+            "librdkafka:partitions=N[,partitioner=…], jvm-hashcode-mod:n=N, redis-cluster:nodes=N, cassandra:nodes=N, ketama:servers=N "
             "(hashaudit placements lists them).",
             default=(),
             kind="text",
@@ -102,4 +303,6 @@ GROUP = CheckGroup(
     subjects="placements",
     accumulators=_accumulators,
     conclude=_conclude,
+    facts=_facts,
+    needs_sample=True,
 )

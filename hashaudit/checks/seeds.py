@@ -7,7 +7,7 @@ from collections.abc import Iterator
 from typing import Any
 
 from hashaudit.checks._base import Check, CheckGroup, Conclusion, Tested
-from hashaudit.verdict.words import excess, num, p_text, table_label
+from hashaudit.verdict.words import count, excess, num, p_text, table_label
 
 
 def _spread(test: Any) -> str:
@@ -15,8 +15,8 @@ def _spread(test: Any) -> str:
     table = d.get("costliest_table") or {}
     where = table_label(table.get("scheme"), table.get("buckets"))
     return (
-        f"changing the seed does not change how the keys spread: over {len(d.get('seeds', []))} seeds the per-seed "
-        f"p-values pile up near 0; in {where} a chained lookup costs {num(e.observed)} probes (median over seeds) "
+        f"changing the seed does not change how the keys spread: over {count(len(d.get('seeds', [])), 'seed')} the per-seed "
+        f"p-values pile up near 0; in {where} a chained lookup costs {count(e.observed, 'probe')} (median over seeds) "
         f"against {num(e.ideal)} ({excess(e.value)})"
     )
 
@@ -31,8 +31,8 @@ def _alike(test: Any) -> str:
 def _independent(test: Any) -> str:
     d = test.details
     return (
-        f"{num(d.get('keys_in_collisions', 0))} keys of the sample collide under every one of {len(d.get('seeds', []))} "
-        f"seeds ({num(d.get('groups', 0))} groups): crafted keys could flood a table whatever its secret seed — use a "
+        f"{count(d.get('keys_in_collisions', 0), 'key')} of the sample collide under every one of "
+        f"{count(len(d.get('seeds', [])), 'seed')} ({count(d.get('groups', 0), 'group')}): crafted keys could flood a table whatever its secret seed — use a "
         "keyed hash such as siphash24 and follow your security policy"
     )
 

@@ -8,7 +8,7 @@ from typing import Any
 
 from hashaudit.checks._base import Check, CheckGroup, Conclusion, Tested
 from hashaudit.settings import Setting
-from hashaudit.verdict.words import excess, num, pct
+from hashaudit.verdict.words import count, excess, num, pct
 
 SHARD_SCHEMES = ("mod", "jump", "rendezvous", "ring")
 MAX_SHARDS = 1 << 16
@@ -19,8 +19,8 @@ HEAVY_HANDLES = 5  # of them, the ones on the hottest shard named by fingerprint
 def _balance(test: Any) -> str:
     d, e = test.details, test.effect
     return (
-        f"{d.get('shard_scheme')} over {d.get('shards')} shards: the hottest shard {d.get('hottest_shard')} holds "
-        f"{num(d.get('hottest_keys', 0))} distinct keys, {e.observed:.3f}× its share against an expected "
+        f"{d.get('shard_scheme')} over {count(d.get('shards', 0), 'shard')}: the hottest shard "
+        f"{d.get('hottest_shard')} holds {count(d.get('hottest_keys', 0), 'distinct key')}, {e.observed:.3f}× its share against an expected "
         f"maximum of {e.ideal:.3f}× for an ideal hash ({excess(e.value)}; χ² = {num(test.statistic)} on "
         f"{num(test.expected)} df)"
     )
@@ -29,7 +29,7 @@ def _balance(test: Any) -> str:
 def _movement(test: Any) -> str:
     d, e = test.details, test.effect
     return (
-        f"{d.get('shard_scheme')}: going from {d.get('shards')} to {d.get('shards', 0) + 1} shards moves "
+        f"{d.get('shard_scheme')}: going from {d.get('shards')} to {count(d.get('shards', 0) + 1, 'shard')} moves "
         f"{pct(e.observed)} of the keys against {pct(e.ideal)} for an ideal hash under this scheme"
     )
 

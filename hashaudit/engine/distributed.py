@@ -219,6 +219,14 @@ def _route(result: tuple[list, _Partial], group: int) -> list[tuple]:
     return result[0][group]
 
 
+def _distinct_in(routed: list[list[tuple]]) -> int:
+    """Distinct keys of one fingerprint group (its rows from every partition): the tables' key count."""
+    pieces = [piece for rows in routed for piece in rows]
+    if not pieces:
+        return 0
+    return len(np.unique(np.concatenate([p[0] for p in pieces]), axis=0))
+
+
 def _partial_of(result: tuple[list, _Partial]) -> _Partial:
     return replace(result[1], heavy=None)  # the heavy-key summaries are merged apart, before stage 2
 
@@ -341,7 +349,13 @@ def audit_dask(
         occurrences = sum(client.gather([client.submit(lambda r: r[1].occurrences, f) for f in first]))
         if occurrences == 0:
             raise UsageError("no keys to audit")
-        pairs = plan.tables(occurrences)  # automatic sizes follow the key count, known only now
+        pairs = plan.tables(None) if not plan.needs_key_count() else []
+        if plan.needs_key_count():  # automatic sizes follow the distinct keys, known once the rows are routed
+            counts = [
+                client.submit(_distinct_in, [client.submit(_route, f, g) for f in first], pure=False)
+                for g in range(1 << prefix_bits)
+            ]
+            pairs = plan.tables(sum(client.gather(counts)))
         heavy = None
         if any(g.needs_heavy for g in plan.groups()):
             heavy = _tree_merge(client, [client.submit(_heavy_of, f) for f in first], _merge_heavy).result()

@@ -5,6 +5,9 @@ sees the keys exactly as that system spreads them:
 
 - :mod:`hashaudit.placements.kafka`: the message broker's JVM client, ``Utils.murmur2`` and the default
   partitioner for keyed records.
+- :mod:`hashaudit.placements.librdkafka`: the C client's partitioners (``consistent_random``, ``murmur2_random``,
+  ``fnv1a_random``).
+- :mod:`hashaudit.placements.agreement`: two rules compared key by key (the ``placement_agreement`` fact).
 - :mod:`hashaudit.placements.redis_cluster`: the cluster's hash-tag rule, CRC16 and its 16384 hash slots.
 - :mod:`hashaudit.placements.jvm`: ``java.lang.String.hashCode`` of UTF-8 keys, the ``Math.abs(h % n)``
   selector and ``java.util.HashMap``'s spread and bucket index.

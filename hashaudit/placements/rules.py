@@ -26,18 +26,22 @@ from hashaudit.settings import SettingError
 @dataclass(frozen=True)
 class Param:
     """One parameter of a placement rule (``partitions=12``): required unless it has a ``default``; a ``listed``
-    parameter takes whole numbers joined by ``:`` (``weights=3:1:1``) and may be left out."""
+    parameter takes whole numbers joined by ``:`` (``weights=3:1:1``) and may be left out; a parameter with
+    ``choices`` takes one of those words (``partitioner=murmur2_random``)."""
 
     name: str
     help: str
     minimum: int = 1
     maximum: int = (1 << 31) - 1
-    default: int | None = None
+    default: int | str | None = None
     listed: bool = False
+    choices: tuple[str, ...] = ()
 
     @property
     def form(self) -> str:
-        """How the parameter is written: ``partitions=N``, ``weights=N:N:…``."""
+        """How the parameter is written: ``partitions=N``, ``weights=N:N:…``, ``partitioner=a|b``."""
+        if self.choices:
+            return f"{self.name}={'|'.join(self.choices)}"
         return f"{self.name}=N:N:…" if self.listed else f"{self.name}=N"
 
 
@@ -65,6 +69,9 @@ class PlacementRule:
         ``params -> layout``: the mapping of hash values to units (see :class:`ModLayout` for the interface).
     check : callable, optional
         ``params -> message or None``: what the parameters must satisfy together (None: they are fine).
+    variant : callable, optional
+        ``params -> (width, hash_batch)``: the hash and its width when a parameter chooses them
+        (``partitioner=``); ``width`` and ``hash_batch`` are then those of the default choice.
     """
 
     name: str
@@ -76,6 +83,7 @@ class PlacementRule:
     hash_batch: Callable[[Any], np.ndarray]
     layout: Callable[[dict[str, Any]], Any]
     check: Callable[[dict[str, Any]], str | None] | None = None
+    variant: Callable[[dict[str, Any]], tuple[int, Callable[[Any], np.ndarray]]] | None = None
 
 
 class ModLayout:
@@ -325,6 +333,35 @@ def _kafka_values(batch: Any) -> np.ndarray:
     return (murmur2(batch).astype(np.int64) & 0x7FFFFFFF).astype(np.uint64)  # toPositive: the sign bit cleared
 
 
+def _librdkafka_variant(params: dict[str, Any]) -> tuple[int, Callable[[Any], np.ndarray]]:
+    from hashaudit.placements.librdkafka import partitioner_hash
+
+    partitioner = str(params.get("partitioner", "consistent_random"))
+    width = {"consistent_random": 32, "murmur2_random": 31, "fnv1a_random": 32}[partitioner]
+    if partitioner == "fnv1a_random":  # the raw signed FNV-1a: JavaAbsModLayout folds it as abs() then % does
+
+        def values(batch: Any) -> np.ndarray:
+            from hashaudit.placements.librdkafka import fnv1a_signed
+
+            return fnv1a_signed(batch).view(np.uint32).astype(np.uint64)
+
+        return width, values
+    return width, lambda batch: partitioner_hash(batch, partitioner)
+
+
+def _librdkafka_values(batch: Any) -> np.ndarray:
+    from hashaudit.placements.librdkafka import partitioner_hash
+
+    return partitioner_hash(batch, "consistent_random")
+
+
+def _librdkafka_layout(params: dict[str, Any]) -> ModLayout:
+    # abs(h) % n == abs(h % n) for a truncating %: fnv1a_random places as Math.abs(h % n) does
+    if params.get("partitioner") == "fnv1a_random":
+        return JavaAbsModLayout(params["partitions"])
+    return ModLayout(params["partitions"])
+
+
 def _jvm_values(batch: Any) -> np.ndarray:
     from hashaudit.placements.jvm import string_hashcode
 
@@ -374,6 +411,27 @@ RULES: dict[str, PlacementRule] = {
             31,
             _kafka_values,
             lambda p: ModLayout(p["partitions"]),
+        ),
+        PlacementRule(
+            "librdkafka",
+            "the C client's partitioners: consistent_random (default) crc32(key) % partitions, murmur2_random "
+            "(murmur2(key) & 0x7fffffff) % partitions, fnv1a_random abs(int32 fnv1a(key)) % partitions; an empty "
+            "key, random under consistent_random in the client, goes to partition 0",
+            "confluent-kafka's Producer on librdkafka's built-in mock cluster (the partition of each delivery)",
+            (
+                Param("partitions", "partitions of the topic"),
+                Param(
+                    "partitioner",
+                    "the producer's partitioner: consistent_random (default), murmur2_random or fnv1a_random",
+                    default="consistent_random",
+                    choices=("consistent_random", "murmur2_random", "fnv1a_random"),
+                ),
+            ),
+            "partition",
+            32,
+            _librdkafka_values,
+            _librdkafka_layout,
+            variant=_librdkafka_variant,
         ),
         PlacementRule(
             "jvm-hashcode-mod",
@@ -436,7 +494,7 @@ class Placement:
     """A rule with its parameters: one subject of an audit (shaped like a registered hash function)."""
 
     rule: str
-    params: tuple[tuple[str, int | tuple[int, ...]], ...]
+    params: tuple[tuple[str, int | str | tuple[int, ...]], ...]
     seeded: bool = field(default=False, init=False)
     path: str = field(default="placement", init=False)
     integer_keys: bool = field(default=False, init=False)
@@ -448,7 +506,8 @@ class Placement:
 
     @property
     def width(self) -> int:
-        return RULES[self.rule].width
+        rule = RULES[self.rule]
+        return rule.variant(dict(self.params))[0] if rule.variant is not None else rule.width
 
     @property
     def layout(self) -> Any:
@@ -460,10 +519,13 @@ class Placement:
 
     def hash_batch(self, batch: Any, seed: int = 0) -> np.ndarray:
         """The system's hash of every key (the seed is not the system's: ignored)."""
-        return RULES[self.rule].hash_batch(batch)
+        rule = RULES[self.rule]
+        if rule.variant is not None:
+            return rule.variant(dict(self.params))[1](batch)
+        return rule.hash_batch(batch)
 
 
-def _written(value: int | tuple[int, ...]) -> str:
+def _written(value: int | str | tuple[int, ...]) -> str:
     return ":".join(map(str, value)) if isinstance(value, tuple) else str(value)
 
 
@@ -477,12 +539,19 @@ def parse_placement(text: str) -> Placement:
         raise SettingError("placements", f"takes NAME:param=value with NAME one of {', '.join(RULES)}, not {text!r}")
     rule = RULES[match[1]]
     known = {p.name: p for p in rule.params}
-    given: dict[str, int | tuple[int, ...]] = {}
+    given: dict[str, int | str | tuple[int, ...]] = {}
     for part in (match[2] or "").split(","):
         if not part.strip():
             continue
         key, _, value = part.partition("=")
         key = key.strip()
+        if key in known and known[key].choices:
+            if value.strip() not in known[key].choices:
+                raise SettingError(
+                    "placements", f"{rule.name}: {key} must be one of {', '.join(known[key].choices)}, not {value!r}"
+                )
+            given[key] = value.strip()
+            continue
         form = r"\s*\d+(\s*:\s*\d+)*\s*" if key in known and known[key].listed else r"\s*\d+\s*"
         if key not in known or not re.fullmatch(form, value):
             names = ", ".join(p.form for p in rule.params)

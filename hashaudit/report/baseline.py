@@ -18,6 +18,7 @@ from dataclasses import dataclass
 from hashaudit.checks import FACTS_ONLY
 from hashaudit.errors import UsageError
 from hashaudit.verdict.findings import table_label
+from hashaudit.verdict.words import count
 
 VERDICT_RANK = {"pass": 0, "info": 0, "warn": 1, "fail": 2}
 DEFAULT_TOLERANCE = 0.05
@@ -113,12 +114,11 @@ def compare(new: dict, old: dict, tolerance: float) -> list[dict]:
                 old_effect = (previous.get("effect") or {}).get("value")
                 row.update(old_verdict=previous["verdict"], old_effect=old_effect, reason="unchanged")
                 worse = VERDICT_RANK[check["verdict"]] > VERDICT_RANK[previous["verdict"]]
+                numbers = isinstance(new_effect, int | float) and isinstance(old_effect, int | float)
+                growth = float(new_effect) - float(old_effect) if numbers else math.nan  # type: ignore[arg-type]
                 grew = (
-                    isinstance(new_effect, int | float)
-                    and isinstance(old_effect, int | float)
-                    and math.isfinite(new_effect)
-                    and math.isfinite(old_effect)
-                    and new_effect - old_effect > tolerance
+                    math.isfinite(growth)
+                    and growth > tolerance
                     and check["name"] not in FACTS_ONLY  # their effect measures the keys, not the hash
                 )
                 if worse:
@@ -126,7 +126,7 @@ def compare(new: dict, old: dict, tolerance: float) -> list[dict]:
                 elif grew:
                     row.update(
                         regressed=True,
-                        reason=f"effect {old_effect:.4g} → {new_effect:.4g} (more than {tolerance:g} worse)",
+                        reason=f"effect grew by {growth:.4g}, more than the tolerance {tolerance:g}",
                     )
             rows.append(row)
     for key, check in before.items():
@@ -245,8 +245,8 @@ def comparison_text(rows: list[dict]) -> str:
 
     shown = [r for r in rows if r["regressed"] or r["reason"] not in ("unchanged",)]
     lines = [
-        f"against the baseline: {sum(r['regressed'] for r in rows)} regressed, "
-        f"{sum(r['reason'] == 'unchanged' for r in rows)} unchanged checks"
+        f"against the baseline: {count(len(rows), 'check')} compared, {sum(r['regressed'] for r in rows)} "
+        f"regressed, {sum(r['reason'] == 'unchanged' for r in rows)} unchanged"
     ]
     for r in shown:
         tag = "REGRESSED" if r["regressed"] else "note     "

@@ -1,7 +1,12 @@
 """The Markdown report, sized for a CI job summary or a pull-request comment.
 
-Layout: a title line with the verdict, one summary paragraph, a table of the failing and warning checks, every check
-in a collapsible ``<details>`` block, an optional "Against the baseline" table, and a caution paragraph. Every piece
+Two levels of detail. ``summary`` (the default) fits a comment (GitHub's limit is 65,536 characters; the summary aims
+at :data:`SUMMARY_BYTES`): a title line with the verdict, one summary paragraph, a table of the hash functions and
+their verdicts, then for each hash that failed or warned a table of its tables, one row per table with the finding
+that speaks for it and the table's other failing and warning checks named, so that every fail and warn is listed;
+against a baseline, only the checks that regressed, are new or are no longer run. ``full`` adds nothing to be
+skipped: a table of the failing and warning checks, every check in a collapsible ``<details>`` block, the whole
+"Against the baseline" table. Both end with a caution paragraph. Every piece
 of interpolated text is escaped for GitHub-flavoured Markdown tables and for the HTML that comment renderers allow.
 The report shows no key: ``Finding.details`` (where ``--show-keys`` puts sample keys) is never rendered.
 """
@@ -11,11 +16,17 @@ from __future__ import annotations
 import math
 import re
 
-from hashaudit.report.terminal import HASH_FLOODING_NOTE
+from hashaudit.report.terminal import HASH_FLOODING_NOTE, findings_by_table, speaking_finding
 from hashaudit.verdict.findings import Finding
 from hashaudit.verdict.result import AuditResult
+from hashaudit.verdict.words import count
 
+DETAILS = ("summary", "full")
+"""The Markdown report's levels of detail (``--markdown-detail``)."""
+SUMMARY_BYTES = 20_000
+"""What the summary aims to stay under; past it, its rows leave out the sentences (the checks stay named)."""
 _VERDICTS = ("fail", "warn", "info", "pass")
+_HASH_HEADER = ("Hash", "Width", "Verdict", "Fail", "Warn", "Info", "Pass")
 _FINDING_HEADER = ("Hash", "Check", "Table", "Verdict", "Effect", "Message")
 _BASELINE_HEADER = (
     "Hash",
@@ -86,9 +97,9 @@ def _summary(result: AuditResult, counts: dict[str, int]) -> str:
     origin = f" from {', '.join(escape(s, in_table=False) for s in sources)}" if sources else ""
     read = result.keys_read if result.keys_read >= 0 else result.keys
     if result.settings.get("all_keys"):
-        keys = f"{read:,} keys read{origin}, every occurrence counted"
+        keys = f"{count(read, 'key', exact=True)} read{origin}, every occurrence counted"
     else:
-        keys = f"{read:,} keys read{origin}, {result.keys:,} distinct"
+        keys = f"{count(read, 'key', exact=True)} read{origin}, {result.keys:,} distinct"
     hashes = ", ".join(f"{escape(h.name, in_table=False)} ({h.verdict})" for h in result.hashes)
     tally = ", ".join(f"{counts[v]} {v}" for v in _VERDICTS)
     alpha = result.settings.get("thresholds", {}).get("alpha")
@@ -97,17 +108,25 @@ def _summary(result: AuditResult, counts: dict[str, int]) -> str:
         if alpha is not None
         else ""
     )
-    plural = "s" if len(result.hashes) != 1 else ""
-    return f"{keys}. {len(result.hashes)} hash function{plural}: {hashes}. Checks: {tally}.{family}"
+    return f"{keys}. {count(len(result.hashes), 'hash function')}: {hashes}. Checks: {tally}.{family}"
 
 
-def _baseline(comparison: list[dict]) -> list[str]:
+def _baseline(comparison: list[dict], *, changed_only: bool = False) -> list[str]:
+    """The "Against the baseline" table; with ``changed_only``, only the checks that regressed, are new or are no
+    longer checked, the unchanged ones counted."""
     regressed = sum(1 for row in comparison if row.get("regressed"))
-    lines = ["### Against the baseline", ""]
-    lines.append(f"{regressed} of {len(comparison)} compared checks regressed.")
+    shown = (
+        [r for r in comparison if r.get("regressed") or r.get("reason") != "unchanged"] if changed_only else comparison
+    )
+    said = f"{regressed} of {count(len(comparison), 'compared check')} regressed."
+    if len(shown) < len(comparison):
+        said += f" {count(len(comparison) - len(shown), 'unchanged check')} not shown (the full report lists them)."
+    lines = ["### Against the baseline", "", said]
+    if not shown:
+        return lines
     lines.append("")
     rows = []
-    for row in comparison:
+    for row in shown:
         old = row.get("old_verdict")
         rows.append(
             [
@@ -126,26 +145,83 @@ def _baseline(comparison: list[dict]) -> list[str]:
     return lines
 
 
-def render_markdown(result: AuditResult, *, comparison: list[dict] | None = None) -> str:
-    """The audit as GitHub-flavoured Markdown for a CI job summary or a pull-request comment.
+def _hash_rows(result: AuditResult) -> list[list[str]]:
+    rows = []
+    for h in result.hashes:
+        tally = [str(sum(1 for f in h.findings if f.verdict == v)) for v in _VERDICTS]
+        verdict = f"**{h.verdict.upper()}**" if h.verdict == "fail" else h.verdict.upper()
+        rows.append([escape(h.name), f"{h.width}-bit", verdict, *tally])
+    return rows
 
-    Parameters
-    ----------
-    result : AuditResult
-        The audit to render; nothing is recomputed.
-    comparison : list of dict, optional
-        Rows of a comparison with a baseline report, each with ``hash``, ``check``, ``table``, ``old_verdict``
-        (None for a check the baseline lacks), ``new_verdict``, ``old_effect``, ``new_effect``, ``regressed`` and
-        ``reason``; rendered as an extra "Against the baseline" table in the given order.
 
-    Returns
-    -------
-    str
-        Markdown text ending with a newline. Interpolated text is escaped (``|``, backslashes, emphasis and link
-        characters, line breaks; ``<``, ``>``, ``&`` and backticks as HTML entities); keys are never shown.
-    """
+def _also(speaker: Finding, members: list[Finding]) -> str:
+    """The table's other failing and warning checks, by verdict (``fail: g_test; warn: max_load``)."""
+    parts = []
+    for verdict in ("fail", "warn"):
+        names = [escape(f.check) for f in members if f is not speaker and f.verdict == verdict]
+        if names:
+            parts.append(f"{verdict}: {', '.join(names)}")
+    return "; ".join(parts) or "—"
+
+
+def _per_hash(result: AuditResult, sentences: bool) -> list[str]:
+    """For each hash that failed or warned, a table of its tables that did, one row per table."""
+    groups = [(v, m) for v, m in findings_by_table(result.findings) if v in ("fail", "warn")]
+    header = ("Table", "Verdict", "Check", "Finding", "Also") if sentences else ("Table", "Verdict", "Check", "Also")
+    lines = []
+    for h in result.hashes:
+        mine = [(v, m) for v, m in groups if m[0].hash_name == h.name]
+        if not mine:
+            continue
+        tally = ", ".join(f"{n} {v}" for v in ("fail", "warn") if (n := sum(1 for f in h.findings if f.verdict == v)))
+        lines += [f"### {escape(h.name, in_table=False)}: {h.verdict.upper()} ({tally})", ""]
+        rows = []
+        for verdict, members in mine:
+            speaker = speaking_finding(verdict, members)
+            cells = [
+                escape(speaker.table),
+                f"**{verdict.upper()}**" if verdict == "fail" else verdict.upper(),
+                escape(speaker.check),
+            ]
+            if sentences:
+                cells.append(escape(speaker.message))
+            rows.append([*cells, _also(speaker, members)])
+        lines += _table(header, rows)
+        info = sum(1 for f in h.findings if f.verdict == "info")
+        if info:
+            lines += [
+                "",
+                f"{count(info, 'info finding')} (more even than random, or facts about the keys): in the full report.",
+            ]
+        lines.append("")
+    return lines
+
+
+def _summary_report(
+    result: AuditResult, counts: dict[str, int], comparison: list[dict] | None, sentences: bool
+) -> list[str]:
+    lines = [f"## hashaudit: {result.verdict.upper()}", "", _summary(result, counts), ""]
+    lines += _table(_HASH_HEADER, _hash_rows(result))
+    lines.append("")
+    flagged = counts["fail"] + counts["warn"]
+    if flagged:
+        lines.append(
+            f"Every failing and warning check is named below, one row per table: the check that speaks for the table "
+            f"and its sentence{'' if sentences else ' (left out to fit a comment)'}, then the table's other failing "
+            "and warning checks. The full report (`--markdown-detail full`) has every check with its effect."
+        )
+        lines.append("")
+        lines += _per_hash(result, sentences)
+    else:
+        lines += ["No check failed or warned.", ""]
+    if comparison is not None:
+        lines.extend(_baseline(comparison, changed_only=True))
+        lines.append("")
+    return lines
+
+
+def _full_report(result: AuditResult, counts: dict[str, int], comparison: list[dict] | None) -> list[str]:
     findings = result.findings
-    counts = {v: sum(1 for f in findings if f.verdict == v) for v in _VERDICTS}
     lines = [f"## hashaudit: {result.verdict.upper()}", "", _summary(result, counts), ""]
     flagged = [f for f in findings if f.verdict in ("fail", "warn")]
     if flagged:
@@ -159,11 +235,44 @@ def render_markdown(result: AuditResult, *, comparison: list[dict] | None = None
         lines.extend(_baseline(comparison))
         lines.append("")
     lines.append("<details>")
-    lines.append(f"<summary>All {len(findings)} checks</summary>")
+    lines.append(f"<summary>All {count(len(findings), 'check')}</summary>")
     lines.append("")
     lines.extend(_table(_FINDING_HEADER, [_finding_row(f) for f in findings]))
     lines.append("")
     lines.append("</details>")
     lines.append("")
-    lines.append("> **Caution:** " + escape(HASH_FLOODING_NOTE.removeprefix("Note: "), in_table=False))
-    return "\n".join(lines) + "\n"
+    return lines
+
+
+def render_markdown(result: AuditResult, *, comparison: list[dict] | None = None, detail: str = "summary") -> str:
+    """The audit as GitHub-flavoured Markdown for a CI job summary or a pull-request comment.
+
+    Parameters
+    ----------
+    result : AuditResult
+        The audit to render; nothing is recomputed.
+    comparison : list of dict, optional
+        Rows of a comparison with a baseline report, each with ``hash``, ``check``, ``table``, ``old_verdict``
+        (None for a check the baseline lacks), ``new_verdict``, ``old_effect``, ``new_effect``, ``regressed`` and
+        ``reason``; rendered as an extra "Against the baseline" table in the given order (the summary shows the rows
+        that regressed, are new or are no longer checked).
+    detail : {"summary", "full"}
+        ``summary`` fits a pull-request comment (every failing and warning check named, a table per hash that
+        failed or warned); ``full`` lists every check with its effect and sentence.
+
+    Returns
+    -------
+    str
+        Markdown text ending with a newline. Interpolated text is escaped (``|``, backslashes, emphasis and link
+        characters, line breaks; ``<``, ``>``, ``&`` and backticks as HTML entities); keys are never shown.
+    """
+    if detail not in DETAILS:
+        raise ValueError(f"no Markdown detail {detail!r} (known: {', '.join(DETAILS)})")
+    counts = {v: sum(1 for f in result.findings if f.verdict == v) for v in _VERDICTS}
+    caution = ["> **Caution:** " + escape(HASH_FLOODING_NOTE.removeprefix("Note: "), in_table=False)]
+    if detail == "full":
+        return "\n".join(_full_report(result, counts, comparison) + caution) + "\n"
+    text = "\n".join(_summary_report(result, counts, comparison, sentences=True) + caution) + "\n"
+    if len(text.encode("utf-8")) > SUMMARY_BYTES:
+        text = "\n".join(_summary_report(result, counts, comparison, sentences=False) + caution) + "\n"
+    return text

@@ -1,4 +1,6 @@
-"""The terminal report: a ranked table, worst first, one line per table with its plain-language sentence."""
+"""The terminal report: a ranked table, worst first, one line per table with the check that speaks for it and its
+plain-language sentence, then the table's other findings that did not pass, named by verdict or counted, so that
+every fail, warn and info is on the screen (``--all``: one line per check)."""
 
 from __future__ import annotations
 
@@ -10,6 +12,7 @@ from hashaudit.checks import CHECKS
 from hashaudit.settings import DEFAULT_HASHES
 from hashaudit.verdict.findings import VERDICT_ORDER, Finding
 from hashaudit.verdict.result import AuditResult
+from hashaudit.verdict.words import count
 
 _COLOURS = {"fail": "red", "warn": "yellow", "info": "cyan", "pass": "green"}
 HASH_FLOODING_NOTE = (
@@ -24,7 +27,7 @@ def _tag(verdict: str, colour: bool) -> str:
     return click.style(text, fg=_COLOURS[verdict], bold=verdict == "fail") if colour else text
 
 
-def _grouped(findings: list[Finding]) -> list[tuple[str, list[Finding]]]:
+def findings_by_table(findings: list[Finding]) -> list[tuple[str, list[Finding]]]:
     """Findings per (hash, table), each group led by its worst verdict, groups ranked worst first."""
     groups: OrderedDict[tuple[str, str], list[Finding]] = OrderedDict()
     for f in findings:
@@ -38,13 +41,29 @@ def _grouped(findings: list[Finding]) -> list[tuple[str, list[Finding]]]:
     return ranked
 
 
-def _line(verdict: str, members: list[Finding]) -> str:
-    same = [f for f in members if f.verdict == verdict]
-    # the finding whose sentence is in the most operational units speaks for the table (the registry's rank)
-    speaker = min(same, key=lambda f: CHECKS[f.check].rank)
-    others = [f.check for f in same if f is not speaker]
-    tail = f" [also {', '.join(others)}]" if others else ""
-    return f"{speaker.message}{tail}"
+TAIL_NAMES = 6  # checks a table's line names beside its own before it counts the rest
+
+
+def speaking_finding(verdict: str, members: list[Finding]) -> Finding:
+    """The finding that speaks for a table: of its worst verdict, the one in the most operational units (the
+    registry's rank)."""
+    return min((f for f in members if f.verdict == verdict), key=lambda f: CHECKS[f.check].rank)
+
+
+def _tail(speaker: Finding, members: list[Finding]) -> tuple[str, int]:
+    """The table's other findings that did not pass, named by verdict (``[also fail: g_test; warn: max_load]``),
+    the ones past :data:`TAIL_NAMES` counted; and how many findings the tail stands for."""
+    others = [f for f in members if f is not speaker and f.verdict != "pass"]
+    parts, named = [], 0
+    for verdict in ("fail", "warn", "info"):
+        names = [f.check for f in others if f.verdict == verdict][: max(0, TAIL_NAMES - named)]
+        named += len(names)
+        if names:
+            parts.append(f"{verdict}: {', '.join(names)}")
+    rest = len(others) - named
+    if rest:
+        parts.append(f"and {rest} more: --all")
+    return (f" [also {'; '.join(parts)}]" if parts else ""), len(others)
 
 
 def _collision_keys(result: AuditResult, hash_name: str) -> list[str]:
@@ -68,33 +87,34 @@ def render(result: AuditResult, *, show_all: bool = False, colour: bool = False)
     for f in result.findings:
         counts[f.verdict] += 1
     sources = ", ".join(str(s.get("source", "?")) for s in result.sources) or "(batches)"
-    counted = f"{result.keys:,} keys"
+    counted = count(result.keys, "key", exact=True)
     if result.repeated_keys:
         counted = (
-            f"{result.keys_read:,} keys ({result.keys:,} distinct; the {result.repeated_keys:,} repeats are not "
+            f"{count(result.keys_read, 'key', exact=True)} ({result.keys:,} distinct; the "
+            f"{count(result.repeated_keys, 'repeat', exact=True)} {'is' if result.repeated_keys == 1 else 'are'} not "
             "counted against the hash)"
         )
     elif result.settings.get("all_keys"):
-        counted = f"{result.keys:,} keys (every occurrence counted)"
+        counted = f"{count(result.keys, 'key', exact=True)} (every occurrence counted)"
     tables = len(result.tables)
     functions = sum(h.path != "placement" for h in result.hashes)
     placements = len(result.hashes) - functions
     subjects = []
     if functions:
         subjects.append(
-            f"{functions} hash function{'' if functions == 1 else 's'}"
+            count(functions, "hash function")
             + (" (the default set)" if tuple(result.settings.get("hashes", ())) == DEFAULT_HASHES else "")
-            + (f", {tables} table{'' if tables == 1 else 's'} each" if tables else "")
+            + (f", {count(tables, 'table')} each" if tables else "")
         )
     if placements:
-        subjects.append(f"{placements} system placement{'' if placements == 1 else 's'}")
+        subjects.append(count(placements, "system placement"))
     lines.append(f"hashaudit: {counted} from {sources}; {'; '.join(subjects)}")
     if result.sampled_keys_cut:
         from hashaudit.stats.sample import LONG_KEY_END_BYTES
 
         cut = result.sampled_keys_cut
         lines.append(
-            f"note: {cut:,} sampled key{'' if cut == 1 else 's'} longer than {2 * LONG_KEY_END_BYTES:,} bytes "
+            f"note: {count(cut, 'sampled key', exact=True)} longer than {2 * LONG_KEY_END_BYTES:,} bytes "
             f"{'was' if cut == 1 else 'were'} cut to the first and last {LONG_KEY_END_BYTES:,} bytes for the "
             "avalanche, neighbour and seed checks"
         )
@@ -105,22 +125,33 @@ def render(result: AuditResult, *, show_all: bool = False, colour: bool = False)
     )
     lines.append("")
     rows: list[tuple[str, str, str, str, str]] = []
+    folded = 0  # findings that did not pass, named or counted on another finding's line
     if show_all:
         for f in result.findings:
             rows.append((f.verdict, f.hash_name, f.table, f.check, f.message))
     else:
-        for verdict, members in _grouped(result.findings):
+        for verdict, members in findings_by_table(result.findings):
             if verdict != "pass":
-                rows.append((verdict, members[0].hash_name, members[0].table, "", _line(verdict, members)))
+                speaker = speaking_finding(verdict, members)
+                tail, more = _tail(speaker, members)
+                folded += more
+                rows.append((verdict, speaker.hash_name, speaker.table, speaker.check, speaker.message + tail))
     if rows:
         w_hash = max(len(r[1]) for r in rows)
         w_table = max(len(r[2]) for r in rows)
         w_check = max(len(r[3]) for r in rows)
         for verdict, hash_name, table, check, message in rows:
-            check_cell = f"{check:<{w_check}}  " if w_check else ""
-            lines.append(f"{_tag(verdict, colour)}  {hash_name:<{w_hash}}  {table:<{w_table}}  {check_cell}{message}")
+            lines.append(
+                f"{_tag(verdict, colour)}  {hash_name:<{w_hash}}  {table:<{w_table}}  {check:<{w_check}}  {message}"
+            )
             if table == "full value":
                 lines.extend(_collision_keys(result, hash_name))
+        if folded:
+            flagged = len(rows) + folded
+            lines.append(
+                f"({count(len(rows), 'line')} above for {count(flagged, 'finding')} that did not pass: each line "
+                "names its table's other findings in [also …]; --all gives every check its own line)"
+            )
         lines.append("")
     for h in result.hashes:
         tally = {v: sum(1 for f in h.findings if f.verdict == v) for v in ("fail", "warn", "info", "pass")}

@@ -39,13 +39,14 @@ class ReportWriter:
     help : str
         One sentence for the command-line option that asks for the report.
     render : callable
-        ``render(result, show_keys, comparison) -> str``: the report's text (renderers compute nothing).
+        ``render(result, show_keys, comparison, markdown_detail) -> str``: the report's text (renderers compute
+        nothing; only the Markdown report reads ``markdown_detail``).
     """
 
     name: str
     suffix: str
     help: str
-    render: Callable[[AuditResult, bool, Comparison | None], str]
+    render: Callable[[AuditResult, bool, Comparison | None, str], str]
 
     def write(
         self,
@@ -55,18 +56,19 @@ class ReportWriter:
         show_keys: bool = False,
         comparison: Comparison | None = None,
         stdout: IO[str] | None = None,
+        markdown_detail: str = "summary",
     ) -> None:
         """Write the report to ``path`` atomically, or to ``stdout`` (standard output by default) for ``-``."""
         from hashaudit.report.json_report import write_text_atomically
 
-        text = self.render(result, show_keys, comparison)
+        text = self.render(result, show_keys, comparison, markdown_detail)
         if str(path) == STDOUT:
             click.echo(text, file=stdout, nl=False)
         else:
             write_text_atomically(path, text)
 
 
-def _json(result: AuditResult, show_keys: bool, comparison: Comparison | None) -> str:
+def _json(result: AuditResult, show_keys: bool, comparison: Comparison | None, markdown_detail: str) -> str:
     """The JSON report, with the comparison as its ``baseline`` block when there is one."""
     from hashaudit.report.json_report import report_dict, to_json
 
@@ -78,21 +80,22 @@ def _json(result: AuditResult, show_keys: bool, comparison: Comparison | None) -
     return json.dumps(document, indent=2, ensure_ascii=False) + "\n"
 
 
-def _markdown(result: AuditResult, show_keys: bool, comparison: Comparison | None) -> str:
-    """The Markdown summary (never shows keys)."""
+def _markdown(result: AuditResult, show_keys: bool, comparison: Comparison | None, markdown_detail: str) -> str:
+    """The Markdown report, a summary that fits a pull-request comment or the full detail (never shows keys)."""
     from hashaudit.report.markdown import render_markdown
 
-    return render_markdown(result, comparison=None if comparison is None else comparison.rows)
+    rows = None if comparison is None else comparison.rows
+    return render_markdown(result, comparison=rows, detail=markdown_detail)
 
 
-def _junit(result: AuditResult, show_keys: bool, comparison: Comparison | None) -> str:
+def _junit(result: AuditResult, show_keys: bool, comparison: Comparison | None, markdown_detail: str) -> str:
     """The JUnit XML report (never shows keys)."""
     from hashaudit.report.junit import render_junit
 
     return render_junit(result, comparison=None if comparison is None else comparison.rows)
 
 
-def _html(result: AuditResult, show_keys: bool, comparison: Comparison | None) -> str:
+def _html(result: AuditResult, show_keys: bool, comparison: Comparison | None, markdown_detail: str) -> str:
     """The HTML page (it does not show the comparison)."""
     from hashaudit.report.html import render_html
 
@@ -103,7 +106,13 @@ WRITERS: dict[str, ReportWriter] = {
     writer.name: writer
     for writer in (
         ReportWriter("json", ".json", "Write the JSON report to FILE ('-': stdout).", _json),
-        ReportWriter("markdown", ".md", "Write a Markdown summary to FILE ('-': stdout).", _markdown),
+        ReportWriter(
+            "markdown",
+            ".md",
+            "Write the Markdown report to FILE ('-': stdout): a summary that fits a pull-request comment, or every "
+            "check with --markdown-detail full.",
+            _markdown,
+        ),
         ReportWriter("junit", ".xml", "Write JUnit XML to FILE, one test case per check ('-': stdout).", _junit),
         ReportWriter("html", ".html", "Write the HTML report (one self-contained file) to FILE ('-': stdout).", _html),
     )
@@ -116,6 +125,7 @@ def write_reports(
     *,
     show_keys: bool = False,
     comparison: Comparison | None = None,
+    markdown_detail: str = "summary",
 ) -> None:
     """Write every report asked for, in the order of ``WRITERS``.
 
@@ -129,6 +139,8 @@ def write_reports(
         Show the keys the audit collected, in the reports that can (the HTML page).
     comparison : Comparison, optional
         A comparison with a baseline report, for the reports that show it (JSON, Markdown, JUnit).
+    markdown_detail : {"summary", "full"}
+        How much the Markdown report holds: a summary that fits a pull-request comment, or every check.
 
     Raises
     ------
@@ -141,7 +153,7 @@ def write_reports(
     for name, writer in WRITERS.items():
         path = outputs.get(name)
         if path:
-            writer.write(result, path, show_keys=show_keys, comparison=comparison)
+            writer.write(result, path, show_keys=show_keys, comparison=comparison, markdown_detail=markdown_detail)
 
 
 def check_outputs(outputs: dict[str, str | None], inputs: list[str]) -> None:

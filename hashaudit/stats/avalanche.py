@@ -50,12 +50,18 @@ from hashaudit.stats import _hooks
 from hashaudit.stats._bitops import popcount
 from hashaudit.stats._hooks import Fingerprint, HashBatch
 from hashaudit.stats._lazy import special
+from hashaudit.stats.bits import _pair_z, _transpose64
 from hashaudit.stats.outcome import Effect, FitTest
 from hashaudit.stats.sample import DEFAULT_SAMPLE_SIZE, KeySample, _bottom_k, _key_compare
 from hashaudit.stats.tails import expected_max_abs_normal
 
 DEFAULT_MAX_BYTES = 16
 MIN_TRIALS_FOR_EFFECT = 30  # cells with fewer trials have too coarse a flip probability to enter the effect
+# Up to this many candidate flips the flips are kept with the keys at their two ends, and both tests take their null
+# law from simulated ideal hashes of those keys (FlipGraph): the chi-square laws need many flips, and few sample keys
+# close to each other (one-byte keys, say) share neighbours, whose flips are then not independent.
+EXACT_BELOW_FLIPS = 1024
+NULL_DRAWS = 999
 # Flips hashed at once: bounds memory for long keys (bytes) and keeps the bit columns of the pair counts in cache.
 FLIP_CHUNK_FLIPS = 1 << 16
 FLIP_CHUNK_BYTES = 1 << 25
@@ -192,6 +198,29 @@ def flip_batch(sample: KeyBatch, max_bytes: int = DEFAULT_MAX_BYTES) -> tuple[Ke
     return flips, input_bit
 
 
+@dataclass(frozen=True, eq=False)
+class FlipGraph:
+    """The counted flips of a small sample, with the keys at their two ends (kept up to ``EXACT_BELOW_FLIPS``).
+
+    Attributes
+    ----------
+    xors : numpy.ndarray of uint64, shape (flips, words)
+        The XOR of the two hashes of every counted flip (``words`` = 2 for 128-bit functions).
+    ends : numpy.ndarray of int64, shape (flips, 2)
+        The two keys of every flip, numbered 0 .. ``vertices`` − 1 (sample keys first, then the distinct flipped
+        keys that are not sample keys).
+    input_bit : numpy.ndarray of int64, shape (flips,)
+        The input bit each flip flipped.
+    vertices : int
+        Distinct keys at the ends of the flips.
+    """
+
+    xors: np.ndarray
+    ends: np.ndarray
+    input_bit: np.ndarray
+    vertices: int
+
+
 @dataclass(frozen=True)
 class AvalancheResult:
     """Flip counts of one hash function on one key sample.
@@ -220,6 +249,9 @@ class AvalancheResult:
     pair_counts : numpy.ndarray of int64, shape (w, w)
         Over all counted flips, how often output bits j and k both flipped (the diagonal: how often bit j
         flipped).
+    graph : FlipGraph or None
+        The flips and their keys, when there were at most ``EXACT_BELOW_FLIPS`` candidate flips (the tests then
+        simulate their null laws); None otherwise.
     """
 
     hash_name: str
@@ -233,6 +265,7 @@ class AvalancheResult:
     trials: np.ndarray
     flip_counts: np.ndarray
     pair_counts: np.ndarray
+    graph: FlipGraph | None = None
 
     def flip_probability(self) -> np.ndarray:
         """P(output bit j flips | input bit i flipped); NaN for input bits no key has."""
@@ -316,6 +349,8 @@ def avalanche_matrix(
     pair_counts = np.zeros((width, width), dtype=np.int64)
     trials = np.zeros(input_bits, dtype=np.int64)
     counted = skipped = 0
+    small = 0 < int(np.sum(8 * np.minimum(keys.lengths(), max_bytes))) <= EXACT_BELOW_FLIPS
+    kept_parts: list[tuple[np.ndarray, ...]] = []
     if len(keys):
         original = _as_words(hash_batch(keys, seed))
         fingerprints = member(keys)
@@ -328,6 +363,7 @@ def avalanche_matrix(
                 continue
             parent += start
             flip_fingerprints = member(flips)
+            position = np.searchsorted(member_sorted, flip_fingerprints, side="left").astype(np.int64)
             in_sample = np.empty(len(flips), dtype=np.bool_)
             _member_kernel(
                 keys.data,
@@ -337,7 +373,7 @@ def avalanche_matrix(
                 flips.data,
                 flips.offsets,
                 flip_fingerprints,
-                np.searchsorted(member_sorted, flip_fingerprints, side="left").astype(np.int64),
+                position,
                 in_sample,
             )
             # bit value of the flipped input bit in the original key: 1 means the neighbour owns the pair
@@ -351,6 +387,19 @@ def avalanche_matrix(
             trials += np.bincount(input_bit[keep], minlength=input_bits)
             counted += kept
             skipped += len(flips) - kept
+            if small:
+                # the sample key a flip lands on (a fingerprint match, confirmed bytewise above), or -1
+                landing = np.where(in_sample, member_order[np.minimum(position, len(keys) - 1)], -1)
+                kept_parts.append(
+                    (
+                        (original[parent] ^ flipped)[keep],
+                        parent[keep],
+                        landing[keep],
+                        flip_fingerprints[keep],
+                        input_bit[keep],
+                    )
+                )
+    graph = _flip_graph(kept_parts, len(keys), width) if small and kept_parts else None
     for array in (trials, flip_counts, pair_counts):
         array.setflags(write=False)
     return AvalancheResult(
@@ -365,7 +414,159 @@ def avalanche_matrix(
         trials,
         flip_counts,
         pair_counts,
+        graph,
     )
+
+
+def _flip_graph(parts: list[tuple[np.ndarray, ...]], sample_keys: int, width: int) -> FlipGraph:
+    """The counted flips of a small sample as a graph on keys: sample keys first, then the other flipped keys
+    (told apart by their 64-bit fingerprints)."""
+    xors, parent, landing, prints, input_bit = (np.concatenate(column) for column in zip(*parts, strict=True))
+    outside = landing < 0
+    distinct, number = np.unique(prints[outside], return_inverse=True)
+    other = landing.copy()
+    other[outside] = sample_keys + number
+    ends = np.stack([parent, other], axis=1).astype(np.int64)
+    words = np.ascontiguousarray(xors, dtype=np.uint64)
+    bits = input_bit.astype(np.int64)
+    for array in (words, ends, bits):
+        array.setflags(write=False)
+    return FlipGraph(words, ends, bits, sample_keys + len(distinct))
+
+
+@dataclass(frozen=True, eq=False)
+class _GraphNull:
+    """Both tests' statistics on the flips of a small sample, observed and under ``NULL_DRAWS`` ideal hashes."""
+
+    avalanche: float
+    avalanche_null: np.ndarray
+    pairs: float
+    pairs_null: np.ndarray
+    largest_z: float
+    largest_z_null: np.ndarray
+    draws: int
+    seed: int
+
+
+@njit(cache=True, nogil=True)
+def _flip_statistics_kernel(xors, cell, trials, width, planes, block, out):  # pragma: no cover - compiled
+    """The avalanche chi-square, Σ (N − 1)·φ² over the output-bit pairs and the largest |z| of one set of flips
+    (``xors``: uint64[N, words]; ``cell``: each flip's input-bit row in ``trials``), into ``out[0:3]``."""
+    n = xors.shape[0]
+    words = xors.shape[1]
+    blocks = (n + 63) // 64
+    counts = np.zeros((trials.shape[0], width), dtype=np.int64)
+    for f in range(n):
+        for w in range(words):
+            top = min(64, width - 64 * w)
+            value = xors[f, w]
+            for j in range(top):
+                if (value >> uint64(j)) & uint64(1):
+                    counts[cell[f], 64 * w + j] += 1
+    for b in range(blocks):
+        filled = min(64, n - 64 * b)
+        for w in range(words):
+            for k in range(filled):
+                block[k] = xors[64 * b + k, w]
+            for k in range(filled, 64):
+                block[k] = uint64(0)
+            _transpose64(block)
+            for c in range(64):
+                planes[64 * w + 63 - c, b] = block[c]
+    avalanche = 0.0
+    for r in range(trials.shape[0]):
+        for j in range(width):
+            d = 2.0 * counts[r, j] - trials[r]
+            avalanche += d * d / trials[r]
+    ones = np.zeros(width, dtype=np.int64)
+    for a in range(width):
+        total = 0
+        for b in range(blocks):
+            total += popcount(planes[a, b])
+        ones[a] = total
+    pairs = 0.0
+    largest = 0.0
+    scale = math.sqrt(n - 1.0) if n > 1 else 0.0
+    for a in range(width):
+        share_a = ones[a] / n
+        spread_a = share_a * (1.0 - share_a)
+        if spread_a <= 0.0:
+            continue
+        for c in range(a + 1, width):
+            share_c = ones[c] / n
+            spread_c = share_c * (1.0 - share_c)
+            if spread_c <= 0.0:
+                continue
+            both = 0
+            for b in range(blocks):
+                both += popcount(planes[a, b] & planes[c, b])
+            z = (both / n - share_a * share_c) / math.sqrt(spread_a * spread_c) * scale
+            pairs += z * z
+            largest = max(largest, abs(z))
+    out[0] = avalanche
+    out[1] = pairs
+    out[2] = largest
+
+
+@njit(cache=True, nogil=True)
+def _graph_null_kernel(values, ends, cell, trials, width, out):  # pragma: no cover - compiled
+    """``_flip_statistics_kernel`` for each draw of key values (``values``: uint64[draws, vertices, words]), a
+    flip's XOR being the XOR of the values of its two keys."""
+    n = ends.shape[0]
+    words = values.shape[2]
+    xors = np.empty((n, words), dtype=np.uint64)
+    planes = np.zeros((64 * words, (n + 63) // 64), dtype=np.uint64)
+    block = np.zeros(64, dtype=np.uint64)
+    for d in range(values.shape[0]):
+        for f in range(n):
+            for w in range(words):
+                xors[f, w] = values[d, ends[f, 0], w] ^ values[d, ends[f, 1], w]
+        _flip_statistics_kernel(xors, cell, trials, width, planes, block, out[d])
+
+
+def _graph_null(result: AvalancheResult) -> _GraphNull:
+    """Simulate ideal hashes of the keys of the flip graph: an independent uniform ``width``-bit value per key, a
+    flip's XOR the XOR of its two keys' values. This is the exact null law of both statistics, whatever keys
+    share neighbours (Davison & Hinkley 1997, §4.2, for the Monte Carlo p-values)."""
+    graph = result.graph
+    assert graph is not None
+    width = result.width
+    n = len(graph.input_bit)
+    rows, cell = np.unique(graph.input_bit, return_inverse=True)
+    trials = np.bincount(cell, minlength=len(rows)).astype(np.int64)
+    cell = cell.astype(np.int64)
+    seed = int(result.sample_seed or 0)
+    rng = np.random.default_rng([seed, n, graph.vertices, width, 0x5AC])
+    words = graph.xors.shape[1]
+    top = np.uint64(0xFFFF_FFFF) if width == 32 else np.uint64(0xFFFF_FFFF_FFFF_FFFF)
+    observed = np.zeros(3)
+    planes = np.zeros((64 * words, (n + 63) // 64), dtype=np.uint64)
+    _flip_statistics_kernel(graph.xors, cell, trials, width, planes, np.zeros(64, dtype=np.uint64), observed)
+    simulated = np.empty((NULL_DRAWS, 3))
+    step = max(1, (1 << 21) // max(1, graph.vertices * words))  # draws per block: about 16 MiB of key values
+    ends = np.ascontiguousarray(graph.ends)
+    for start in range(0, NULL_DRAWS, step):
+        stop = min(NULL_DRAWS, start + step)
+        values = rng.integers(0, 1 << 64, size=(stop - start, graph.vertices, words), dtype=np.uint64) & top
+        _graph_null_kernel(values, ends, cell, trials, width, simulated[start:stop])
+    return _GraphNull(
+        float(observed[0]),
+        simulated[:, 0],
+        float(observed[1]),
+        simulated[:, 1],
+        float(observed[2]),
+        simulated[:, 2],
+        NULL_DRAWS,
+        seed,
+    )
+
+
+def _monte_carlo_p(null: np.ndarray, observed: float) -> tuple[float, float]:
+    """Upper and lower Monte Carlo p-values, (1 + #as extreme) / (S + 1) (Davison & Hinkley 1997, §4.2)."""
+    tol = 1e-9 * max(1.0, abs(observed))
+    upper = (1 + int(np.count_nonzero(null >= observed - tol))) / (len(null) + 1)
+    lower = (1 + int(np.count_nonzero(null <= observed + tol))) / (len(null) + 1)
+    return upper, lower
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -414,14 +615,19 @@ def _binomial_two_sided(successes: np.ndarray, trials: np.ndarray) -> np.ndarray
     return np.minimum(1.0, 2.0 * np.minimum(lower, upper))
 
 
-def _avalanche_test(result: AvalancheResult) -> FitTest:
+def _avalanche_test(result: AvalancheResult, null: _GraphNull | None) -> FitTest:
     rows = np.flatnonzero(result.trials > 0)
     trials = result.trials[rows][:, None].astype(np.float64)
     counts = result.flip_counts[rows].astype(np.float64)
     cells = counts.size
     z_squared = (2.0 * counts - trials) ** 2 / trials
     chi2 = float(z_squared.sum())
-    p_chi = (float(special.chdtrc(cells, chi2)), float(special.chdtr(cells, chi2)))
+    if null is None:
+        p_chi = (float(special.chdtrc(cells, chi2)), float(special.chdtr(cells, chi2)))
+        aggregate = f"against chi-square with {cells} degrees of freedom"
+    else:
+        p_chi = _monte_carlo_p(null.avalanche_null, chi2)
+        aggregate = f"against its law under {null.draws} simulated ideal hashes of the same keys (seed {null.seed})"
     trials_grid = np.broadcast_to(result.trials[rows][:, None], counts.shape)
     cell_p = _binomial_two_sided(result.flip_counts[rows], trials_grid)
     worst = int(np.lexsort(((-z_squared).ravel(), cell_p.ravel()))[0])
@@ -453,7 +659,7 @@ def _avalanche_test(result: AvalancheResult) -> FitTest:
         **_common_details(result),
     }
     method = (
-        f"sum of z^2 over {cells} (input bit, output bit) cells against chi-square with {cells} degrees of freedom, "
+        f"sum of z^2 over {cells} (input bit, output bit) cells {aggregate}, "
         "and the worst cell by an exact two-sided binomial test with Bonferroni correction; p_upper is the smaller "
         "of the two p-values times 2 (Bonferroni)"
     )
@@ -461,7 +667,9 @@ def _avalanche_test(result: AvalancheResult) -> FitTest:
     return FitTest("avalanche", chi2, float(cells), chi2, p_upper, p_chi[1], method, effect, details)
 
 
-def _bit_independence_test(result: AvalancheResult) -> FitTest:
+def _bit_independence_test(result: AvalancheResult, null: _GraphNull | None) -> FitTest:
+    if null is not None:
+        return _bit_independence_simulated(result, null)
     n = float(result.flips)
     flipped = np.diag(result.pair_counts).astype(np.float64)
     j, k = np.triu_indices(result.width, 1)
@@ -504,6 +712,50 @@ def _bit_independence_test(result: AvalancheResult) -> FitTest:
     )
     p_upper = min(1.0, 2.0 * min(p_chi[0], worst_p))
     return FitTest("bit_independence", chi2, float(pairs), chi2, p_upper, p_chi[1], method, effect, details)
+
+
+def _bit_independence_simulated(result: AvalancheResult, null: _GraphNull) -> FitTest:
+    """``bit_independence`` on few flips: Σ (N − 1)·φ² (the "N − 1" chi-square of Campbell 2007, whose mean is
+    exact) and the largest |φ|, both against their simulated laws, so the worst pair needs no Bonferroni factor."""
+    n = result.flips
+    z, defined = _pair_z(np.diag(result.pair_counts), result.pair_counts, n)
+    pairs = int(np.count_nonzero(defined))
+    width = result.width
+    scale = math.sqrt(n - 1.0) if n > 1 else 1.0
+    if pairs:
+        flat = int(np.argmax(np.abs(z)))
+        j, k = divmod(flat, width)
+        phi = float(z[j, k]) / scale
+        p_chi = _monte_carlo_p(null.pairs_null, null.pairs)
+        worst_p = _monte_carlo_p(null.largest_z_null, null.largest_z)[0]
+    else:
+        j, k, phi, p_chi, worst_p = 0, 1, 0.0, (1.0, 1.0), 1.0
+    effect = Effect(
+        "bit_independence_max",
+        abs(phi),
+        abs(phi),
+        float(null.largest_z_null.mean()) / scale,
+        "largest |correlation| (phi) between the flips of two output bits",
+    )
+    details: dict[str, Any] = {
+        "pairs": pairs,
+        "degrees_of_freedom": pairs,
+        "degenerate_pairs": width * (width - 1) // 2 - pairs,
+        "chi_square_p_upper": p_chi[0],
+        "worst_output_bits": [j, k],
+        "worst_phi": phi,
+        "worst_p_bonferroni": worst_p,
+        "simulated_draws": null.draws,
+        **_common_details(result),
+    }
+    method = (
+        f"(N - 1) * phi^2 summed over {pairs} pairs of output bits, and the largest |phi|, each against its law "
+        f"under {null.draws} simulated ideal hashes of the same keys (seed {null.seed}); p_upper is the smaller of "
+        "the two p-values times 2 (Bonferroni)"
+    )
+    p_upper = min(1.0, 2.0 * min(p_chi[0], worst_p))
+    statistic = null.pairs
+    return FitTest("bit_independence", statistic, float(pairs), statistic, p_upper, p_chi[1], method, effect, details)
 
 
 def _common_details(result: AvalancheResult) -> dict[str, Any]:
@@ -553,13 +805,16 @@ def avalanche_tests(result: AvalancheResult) -> list[FitTest]:
     """
     if result.flips == 0:
         return []
-    return [_avalanche_test(result), _bit_independence_test(result)]
+    null = _graph_null(result) if result.graph is not None else None
+    return [_avalanche_test(result, null), _bit_independence_test(result, null)]
 
 
 __all__ = [
     "DEFAULT_MAX_BYTES",
     "DEFAULT_SAMPLE_SIZE",
+    "EXACT_BELOW_FLIPS",
     "AvalancheResult",
+    "FlipGraph",
     "KeySample",
     "avalanche_matrix",
     "avalanche_tests",

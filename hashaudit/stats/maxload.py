@@ -50,6 +50,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from functools import lru_cache
 
 import numpy as np
 from numpy.polynomial import hermite_e
@@ -598,6 +599,7 @@ def _log_point_edgeworth(
 # --------------------------------------------------------------------------------------------------------
 
 
+@lru_cache(maxsize=256)  # every hash function of an audit asks it for the same tables: compute each (m, n) once
 def _expected_max_load(m: int, n: int, step: int | None = None) -> float:
     """Σ_k P(max >= k) for m >= 2, n >= 1; ``step`` forces the grid spacing (None: automatic)."""
     p = 1.0 / m

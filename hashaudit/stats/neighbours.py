@@ -32,6 +32,17 @@ Families (every one returns distinct keys, none of them a sample key; generation
     (modulo 256) starting at ``(offset + i * v) mod 256``, so the values cycle through 0-255 across the sample;
     the offset is drawn from the seed.
 
+Integer keys (``--key-format int``, integer columns read as 8-byte little-endian words) have families of their own,
+made from the value rather than its bytes (a byte's ``+1`` in the last byte would be ``+2^56``); a key that is not
+8 bytes long gives none:
+
+``adjacent``
+    The value plus one and minus one (modulo 2^64): the next and the previous id.
+``stride``
+    The value plus and minus each of ``STRIDES`` (2, 8, 64, 1000, 1024): ids allocated in steps, blocks of ids.
+``bit_flip``
+    The value with one of its 64 bits flipped.
+
 A family generates at most ``CANDIDATE_BYTES`` (64 MiB) of candidate keys: when the sample keys are so long that
 their neighbours would need more, only the leading sample keys give neighbours (a ``KeySample`` lists its keys in
 random order, so these are a random subset). A family with more than ``target`` distinct new keys keeps a
@@ -79,14 +90,21 @@ from hashaudit.stats.outcome import FitTest
 from hashaudit.stats.sample import KeySample
 
 FAMILIES: tuple[str, ...] = ("counter", "one_char", "case", "shared_prefix", "appended_byte")
+INTEGER_FAMILIES: tuple[str, ...] = ("adjacent", "stride", "bit_flip")
+"""The families of integer keys (8-byte little-endian values), made from the value."""
+ALL_FAMILIES: tuple[str, ...] = FAMILIES + INTEGER_FAMILIES
+STRIDES: tuple[int, ...] = (2, 8, 64, 1000, 1024)
 FAMILY_DESCRIPTIONS: dict[str, str] = {
     "counter": "the next values of the last run of digits, same width, zero-padded",
     "one_char": "one byte plus or minus one, in the first and last positions",
     "case": "the case of one ASCII letter flipped, in the first and last positions",
     "shared_prefix": "a long fixed prefix followed by each key's tail after the sample's common prefix",
     "appended_byte": "one byte appended, values cycling through 0-255",
+    "adjacent": "the integer value plus or minus one",
+    "stride": "the integer value plus or minus " + ", ".join(f"{s:,}" for s in STRIDES),
+    "bit_flip": "one bit of the integer value flipped",
 }
-LENGTH_KEEPING: frozenset[str] = frozenset({"counter", "one_char", "case"})
+LENGTH_KEEPING: frozenset[str] = frozenset({"counter", "one_char", "case", *INTEGER_FAMILIES})
 """Families whose keys keep their sample key's length: the only ones that speak to a function of 8-byte integer
 keys (``identity``, ``fibonacci``), which reads 8 bytes whatever the length."""
 DEFAULT_TARGET = 50_000
@@ -125,7 +143,7 @@ def _new_keys(sample: KeyBatch, candidates: KeyBatch, fingerprint: Fingerprint) 
 
 
 def _rng(seed: int, family: str) -> np.random.Generator:
-    return np.random.default_rng([int(seed), FAMILY_DOMAIN, FAMILIES.index(family)])
+    return np.random.default_rng([int(seed), FAMILY_DOMAIN, ALL_FAMILIES.index(family)])
 
 
 def _cap(keys: KeyBatch, target: int, rng: np.random.Generator) -> KeyBatch:
@@ -229,12 +247,49 @@ def _shared_prefix(sample: KeyBatch, target: int, positions: int, rng: np.random
     return _run(prefix_kernel, sample, count, per_key_bytes, np.int64(len(common)), prefix, prefix_lengths)
 
 
+def _integer_values(sample: KeyBatch) -> np.ndarray:
+    """The values of the sample's 8-byte keys, read as little-endian unsigned integers."""
+    eight = np.flatnonzero(sample.lengths() == 8)
+    if len(eight) == 0:
+        return np.zeros(0, dtype=np.uint64)
+    starts = sample.offsets[eight]
+    rows = sample.data[starts[:, None] + np.arange(8)]
+    return np.ascontiguousarray(rows).view("<u8").ravel().astype(np.uint64)
+
+
+def _integer_family(values: np.ndarray, deltas: np.ndarray, xor: bool) -> tuple[KeyBatch, int]:
+    """Every value combined with every delta (added modulo 2^64, or XORed), value by value, as 8-byte keys."""
+    if len(values) == 0:
+        return _empty(), 0
+    with np.errstate(over="ignore"):
+        out = (values[:, None] ^ deltas[None, :]) if xor else (values[:, None] + deltas[None, :])
+    return KeyBatch.from_uint64(out.ravel()), len(values)
+
+
+def _adjacent(sample: KeyBatch, target: int, positions: int, rng: np.random.Generator) -> tuple[KeyBatch, int]:
+    deltas = np.array([1, (1 << 64) - 1], dtype=np.uint64)  # +1 and -1 modulo 2^64
+    return _integer_family(_integer_values(sample), deltas, xor=False)
+
+
+def _stride(sample: KeyBatch, target: int, positions: int, rng: np.random.Generator) -> tuple[KeyBatch, int]:
+    deltas = np.array([d for s in STRIDES for d in (s, (1 << 64) - s)], dtype=np.uint64)
+    return _integer_family(_integer_values(sample), deltas, xor=False)
+
+
+def _bit_flip(sample: KeyBatch, target: int, positions: int, rng: np.random.Generator) -> tuple[KeyBatch, int]:
+    deltas = np.left_shift(np.uint64(1), np.arange(64, dtype=np.uint64))
+    return _integer_family(_integer_values(sample), deltas, xor=True)
+
+
 _GENERATORS = {
     "counter": _counter,
     "one_char": _one_char,
     "case": _case,
     "shared_prefix": _shared_prefix,
     "appended_byte": _appended_byte,
+    "adjacent": _adjacent,
+    "stride": _stride,
+    "bit_flip": _bit_flip,
 }
 
 
@@ -245,7 +300,7 @@ class NeighbourFamily:
     Attributes
     ----------
     name : str
-        One of ``FAMILIES``.
+        One of ``FAMILIES`` or ``INTEGER_FAMILIES``.
     keys : KeyBatch
         Distinct keys, none of them a sample key, in generation order (may be empty).
     sample_keys : int
@@ -294,8 +349,8 @@ def _check_settings(seed: int, target: int, positions: int, names: Sequence[str]
     if int(positions) != positions or positions < 1:
         raise UsageError(f"the neighbour positions must be a positive integer, not {positions!r}")
     for name in names:
-        if name not in FAMILIES:
-            raise UsageError(f"unknown neighbour family {name!r}; choose from {', '.join(FAMILIES)}")
+        if name not in ALL_FAMILIES:
+            raise UsageError(f"unknown neighbour family {name!r}; choose from {', '.join(ALL_FAMILIES)}")
 
 
 def neighbour_family(
@@ -311,7 +366,8 @@ def neighbour_family(
 
     Parameters
     ----------
-    name : {"counter", "one_char", "case", "shared_prefix", "appended_byte"}
+    name : {"counter", "one_char", "case", "shared_prefix", "appended_byte", "adjacent", "stride", "bit_flip"}
+        The last three are the families of integer keys (8-byte little-endian values).
     sample : KeyBatch or KeySample
         The keys the neighbours are derived from; repeated keys count once.
     seed : int, default 0
@@ -352,13 +408,17 @@ def neighbour_families(
     seed: int = 0,
     target: int = DEFAULT_TARGET,
     positions: int = DEFAULT_POSITIONS,
-    names: Sequence[str] = FAMILIES,
+    names: Sequence[str] | None = None,
     fingerprint: Fingerprint | None = None,
+    integers: bool = False,
 ) -> list[NeighbourFamily]:
     """Every requested neighbour family of a key sample, in the order of ``names`` (empty ones included).
 
-    Parameters are those of :func:`neighbour_family`; ``names`` selects the families.
+    Parameters are those of :func:`neighbour_family`; ``names`` selects the families: by default ``FAMILIES``,
+    or ``INTEGER_FAMILIES`` when ``integers`` (the keys are 8-byte little-endian integers).
     """
+    if names is None:
+        names = INTEGER_FAMILIES if integers else FAMILIES
     _check_settings(seed, target, positions, names)
     dedup = _hooks.resolve(_hooks.DEDUP, fingerprint)
     distinct = _distinct_sample(sample, dedup)
@@ -505,10 +565,13 @@ def bonferroni(p_values: Sequence[float]) -> float:
 
 
 __all__ = [
+    "ALL_FAMILIES",
     "DEFAULT_POSITIONS",
     "DEFAULT_TARGET",
     "FAMILIES",
     "FAMILY_DESCRIPTIONS",
+    "INTEGER_FAMILIES",
+    "STRIDES",
     "NeighbourFamily",
     "bonferroni",
     "neighbour_families",

@@ -16,17 +16,11 @@ from hashaudit.stats.heavy import HeavyKeys
 from hashaudit.stats.outcome import Effect
 from hashaudit.stats.shards import attribute_load, rounded
 from hashaudit.verdict.findings import Finding
+from hashaudit.verdict.words import count
 
 
 def _pct(x: float) -> str:
     return f"{100 * x:.1f} %"
-
-
-def _points(points: float, excess: float) -> str:
-    """``12.3 of its 15.0 points``, or ``all of its 15.0 points`` when the keys explain more than the excess."""
-    if points >= excess:
-        return f"all of its {100 * excess:.1f} points"
-    return f"{100 * points:.1f} of its {100 * excess:.1f} points"
 
 
 def load_findings(
@@ -62,8 +56,17 @@ def _findings(hash_name: str, keys: int, a: dict, shard_imbalance: float) -> lis
     points = a["points_from_heavy_keys"]
     hot = excess / fair > shard_imbalance and points >= 0.5 * excess
     many = a["heavy_keys_on_shard"]
-    keys_word = f"{many} key" + ("" if many == 1 else "s")
-    verb = "makes" if many == 1 else "make"
+    keys_word = count(many, "key")
+    total = a["total_load"] or 1.0
+    without = a["share_without_heavy_keys"]
+    # every share below is of the whole load (or, "without", of the load the other keys carry), and every
+    # "points" is a difference of two such shares: the shard's share above its fair share
+    carried = (
+        f"that key alone carries {_pct(a['heaviest_key_share'])} of all load"
+        if many == 1
+        else f"those keys carry {_pct(a['heavy_load_on_shard'] / total)} of all load (the heaviest alone "
+        f"{_pct(a['heaviest_key_share'])})"
+    )
     hash_heavy = a["distinct_share"] > a["ideal_max_distinct_share"]
     hash_part = (
         f"by distinct keys it holds {_pct(a['distinct_share'])}, more than the {_pct(a['ideal_max_distinct_share'])} an "
@@ -72,19 +75,28 @@ def _findings(hash_name: str, keys: int, a: dict, shard_imbalance: float) -> lis
         else f"by distinct keys it holds {_pct(a['distinct_share'])} (an ideal hash gives its fullest shard up to "
         f"{_pct(a['ideal_max_distinct_share'])} in 99 cases out of 100): the hash itself is balanced"
     )
+    above = f"{100 * excess:.1f} points above"
     sentence = (
-        f"shard {shard} carries {_pct(share)} of the load against a fair {_pct(fair)}; "
+        f"shard {shard} carries {_pct(share)} of the load against a fair {_pct(fair)} ({above}); "
         + (
-            f"{100 * points:.1f} points of that are {keys_word}; "
+            f"{count(many, 'heavy key')} there: {carried}, and without {'it' if many == 1 else 'them'} the shard would carry "
+            f"{_pct(without)} of the rest; "
             if many
             else "no key there carries even 1 % of a shard's fair load; "
         )
         + hash_part
     )
+    left = without - fair
+    gone = (
+        "all of the excess goes"
+        if left <= 0
+        else f"{100 * left:.1f} of the {100 * excess:.1f} points above a fair share stay"
+    )
     hot_sentence = (
-        f"{keys_word} {verb} shard {shard} hot: {_points(points, excess)} above a fair share "
-        f"(the heaviest alone {_pct(a['heaviest_key_share'])} of all load) — split or cache {'that key' if many == 1 else 'those keys'}; the hash is "
-        "not to blame"
+        f"{keys_word} {'makes' if many == 1 else 'make'} shard {shard} hot ({_pct(share)} of the load against a fair "
+        f"{_pct(fair)}): {carried}; without {'it' if many == 1 else 'them'} the shard would carry {_pct(without)} "
+        f"of the rest, so {gone} — split or cache {'that key' if many == 1 else 'those keys'}; the hash is not to "
+        "blame"
         if hot
         else f"no few keys explain shard {shard}'s load ({_pct(share)} against a fair {_pct(fair)})"
     )
@@ -114,7 +126,11 @@ def _findings(hash_name: str, keys: int, a: dict, shard_imbalance: float) -> lis
         )
 
     hot_effect = Effect(
-        "hot_key_share", points, points, 0.0, "points of the hottest shard's load share from its heaviest keys"
+        "hot_key_share",
+        points,
+        points,
+        0.0,
+        "how far the hottest shard's share of the load falls without its heaviest keys (a difference of shares)",
     )
     load_effect = Effect(
         "load_excess",

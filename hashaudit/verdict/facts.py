@@ -7,6 +7,7 @@ import math
 
 from hashaudit.stats.outcome import Effect
 from hashaudit.verdict.findings import Finding
+from hashaudit.verdict.words import count
 
 
 def duplicate_finding(hash_name: str, distinct: int, occurrences: int) -> Finding:
@@ -19,7 +20,7 @@ def duplicate_finding(hash_name: str, distinct: int, occurrences: int) -> Findin
         f"{repeats:,} of {occurrences:,} keys repeat an earlier key ({100 * share:.1f} %); every check counts each "
         "distinct key once — repeats are not the hash's fault"
         if repeats
-        else f"no key repeats: {occurrences:,} distinct keys"
+        else f"no key repeats: {count(occurrences, 'distinct key', exact=True)}"
     )
     return Finding(
         hash_name,

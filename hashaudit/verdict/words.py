@@ -18,6 +18,13 @@ def num(x: float) -> str:
     return f"{x:.3g}"
 
 
+def count(n: float, noun: str, plural: str | None = None, *, exact: bool = False) -> str:
+    """``1 probe``, ``2.04 probes``, ``12,000 keys``: a number (as :func:`num` writes it, or every digit with
+    ``exact``) and its noun, singular only when the number reads as 1; ``plural`` for nouns that take no ``s``."""
+    text = f"{n:,}" if exact else num(n)
+    return f"{text} {noun if text == '1' else plural or noun + 's'}"
+
+
 def pct(fraction: float) -> str:
     """A fraction as a percentage, with two decimals when small or near one."""
     return f"{100 * fraction:.2f} %" if 0 < abs(fraction) < 0.1 or abs(fraction) > 0.999 else f"{100 * fraction:.1f} %"

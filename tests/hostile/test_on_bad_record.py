@@ -46,8 +46,14 @@ def numbered(path: Path, **options) -> list[tuple[int, bytes]]:
     normaliser = Normaliser(settings_)
     with open(path, "rb") as stream:
         if settings_.field:
-            batches = read_jsonl(
-                stream, path.name, settings_.field, stats, weight=settings_.weight_column, skip_bad=True
+            batches = read_jsonl(  # the lines mix strings and objects on purpose: their text is the key
+                stream,
+                path.name,
+                settings_.field,
+                stats,
+                weight=settings_.weight_column,
+                skip_bad=True,
+                json_values="text",
             )
         else:
             batches = lines_module.read_lines(stream, path.name, skip_bad=True, stats=stats)
@@ -220,7 +226,7 @@ def test_json_lines_skip(tmp_path):
     path.write_bytes(EVENTS)
     pairs = numbered(path, field="k", weight_column="w")
     assert pairs == [(1, b"a"), (6, b"d"), (13, b'{"a":1}')]
-    stream = open_keys(path, SourceOptions(field="k", weight_column="w", on_bad_record=SKIP))
+    stream = open_keys(path, SourceOptions(field="k", weight_column="w", on_bad_record=SKIP, json_values="text"))
     weights = np.concatenate([b.weights for b in stream])
     assert weights.tolist() == [1.0, 2.5, 3.0]
     assert stream.stats.skipped == {
@@ -435,6 +441,7 @@ def test_command_line_report_counts_the_skipped_records(tmp_path):
     path.write_bytes(EVENTS + b"".join(b'{"k":"key-%d","w":1}\n' % i for i in range(500)))
     report = tmp_path / "r.json"
     args = ["audit", str(path), *QUICK, "-f", "k", "--weight-column", "w", "--shards", "4", "--json", str(report)]
+    args += ["--json-values", "text"]  # the lines mix strings and objects on purpose
     code, line = expect_clean(run(args), names=str(path))
     assert code == 2
     assert line.endswith("line 7: not valid UTF-8 (at byte 7 of the line)")  # a block is checked first

@@ -77,6 +77,7 @@ def test_description_is_json_and_complete(tmp_path):
         "raw_bytes": False,
         "on_bad_record": "fail",
         "max_key_bytes": 16 << 20,
+        "json_values": None,
     }
     assert stream.size_bytes == 8
 

@@ -68,7 +68,7 @@ def test_a_worse_verdict_and_a_grown_effect_regress_first():
     assert [r["regressed"] for r in rows[:2]] == [True, True] and not any(r["regressed"] for r in rows[2:])
     by_table = _rows_by_table(rows)
     assert by_table["chi_square", "mod 65521"]["reason"] == "verdict pass → warn"
-    assert by_table["chi_square", "mask 2^16"]["reason"].startswith("effect 0.01 → 0.11")
+    assert by_table["chi_square", "mask 2^16"]["reason"] == "effect grew by 0.1, more than the tolerance 0.05"
     assert Comparison("base.json", rows).regressed
 
 
@@ -112,7 +112,7 @@ def test_the_json_block_and_the_terminal_text():
     comparison = Comparison("reports/base.json", rows)
     assert comparison.to_dict() == {"file": "reports/base.json", "regressed": True, "checks": rows}
     text = comparison_text(rows)
-    assert text.splitlines()[0] == "against the baseline: 1 regressed, 5 unchanged checks"
+    assert text.splitlines()[0] == "against the baseline: 6 checks compared, 1 regressed, 5 unchanged"
     assert len(text.splitlines()) == 2 and "REGRESSED" in text and "mod 65521" in text
 
 

@@ -228,7 +228,7 @@ def test_junit_escapes_markup_and_survives_a_round_trip(schema, failing):
 
 
 def test_markdown_of_a_failing_audit(failing):
-    text = render_markdown(failing)
+    text = render_markdown(failing, detail="full")
     assert text.splitlines()[0] == "## hashaudit: FAIL"
     assert "20,000 keys read, 20,000 distinct" in text
     assert "identity (fail), murmur3\\_32 (pass)" in text
@@ -245,7 +245,7 @@ def test_markdown_of_a_failing_audit(failing):
 
 
 def test_markdown_of_a_passing_audit(passing):
-    text = render_markdown(passing)
+    text = render_markdown(passing, detail="full")
     assert text.splitlines()[0] == "## hashaudit: PASS"
     assert "No check failed or warned." in text and "### Failing and warning checks" not in text
     counts = passing.to_dict()["summary"]["checks"]
@@ -255,7 +255,7 @@ def test_markdown_of_a_passing_audit(passing):
 
 
 def test_markdown_lists_failures_before_warnings(orders):
-    text = render_markdown(orders)
+    text = render_markdown(orders, detail="full")
     counts = orders.to_dict()["summary"]["checks"]
     flagged = _table_rows(text, f"### Failing and warning checks ({counts['fail'] + counts['warn']})")
     verdicts = [row.split(" | ")[3] for row in flagged]
@@ -263,7 +263,7 @@ def test_markdown_lists_failures_before_warnings(orders):
 
 
 def test_markdown_with_a_baseline_comparison(failing):
-    text = render_markdown(failing, comparison=COMPARISON)
+    text = render_markdown(failing, comparison=COMPARISON, detail="full")
     assert "1 of 2 compared checks regressed." in text
     rows = _table_rows(text, "### Against the baseline")
     assert rows == [
@@ -275,7 +275,7 @@ def test_markdown_with_a_baseline_comparison(failing):
 
 
 def test_markdown_escapes_table_and_html_metacharacters(failing):
-    text = render_markdown(_with_message(failing, HOSTILE, hash_name="h|x"))
+    text = render_markdown(_with_message(failing, HOSTILE, hash_name="h|x"), detail="full")
     assert "<script>" not in text and '&lt;script&gt;alert("x")&lt;/script&gt;' in text
     assert "a\\|b" in text and "&#96;code&#96;" in text and '&amp; &lt;&amp;&gt;"' in text
     assert "\\\\\\| end<br>second line" in text  # a backslash and a pipe both escaped; the line break kept in its cell

@@ -442,3 +442,53 @@ class TestKeyFunctions:
         with pytest.raises(MergeError, match="different functions"):
             KeySample(2, 0).merge(sample)
         assert KeySample(2, 0) != KeySample(2, 0, priority=by_length)
+
+
+class TestFewFlips:
+    """Up to EXACT_BELOW_FLIPS candidate flips the tests simulate their null laws on the keys' own flip graph."""
+
+    def test_two_keys_sharing_neighbours(self):
+        from hashaudit.stats.avalanche import EXACT_BELOW_FLIPS
+
+        spec = get_hash("xxh3_64")
+        result = avalanche_matrix(spec.hash_batch, spec.width, KeyBatch.from_keys([b"a", b"b"]))
+        graph = result.graph
+        assert graph is not None and result.flips == 16 <= EXACT_BELOW_FLIPS
+        # 'a' ^ 0x03 == 'b': flipping bit 0 of one and bit 1 of the other reach the same key ('`' and 'c')
+        assert graph.vertices == 2 + 14
+        assert sorted(np.bincount(graph.ends.ravel(), minlength=graph.vertices)[2:].tolist()) == [1] * 12 + [2, 2]
+        np.testing.assert_array_equal(graph.input_bit, np.tile(np.arange(8), 2))
+        tests = {t.name: t for t in avalanche_tests(result)}
+        independence = tests["bit_independence"]
+        assert "simulated ideal hashes" in independence.method
+        assert independence.p_upper > 0.01  # once p = 9.6e-06 from chi-square laws that need many flips
+        assert 0 < independence.effect.ideal <= 1.0  # the expected largest |phi| is a correlation
+        assert "simulated ideal hashes" in tests["avalanche"].method
+
+    def test_many_flips_keep_the_chi_square_laws(self):
+        spec = get_hash("xxh3_64")
+        result = avalanche_matrix(spec.hash_batch, spec.width, KeyBatch.from_keys(SMALL_KEYS))
+        assert result.graph is None
+        assert all("chi-square" in t.method for t in avalanche_tests(result))
+
+    def test_graph_flips_agree_with_the_counts(self):
+        spec = get_hash("murmur3_128")
+        keys = KeyBatch.from_keys([b"k1", b"k3", b"zz"])
+        result = avalanche_matrix(spec.hash_batch, spec.width, keys, 4)
+        graph = result.graph
+        assert graph is not None and len(graph.xors) == result.flips
+        np.testing.assert_array_equal(np.bincount(graph.input_bit, minlength=128), result.trials)
+        bits = np.unpackbits(graph.xors.astype("<u8").view(np.uint8), axis=1, bitorder="little")
+        np.testing.assert_array_equal(bits.T.astype(np.int64) @ bits.astype(np.int64), result.pair_counts)
+
+    def test_the_simulated_null_is_calibrated(self):
+        # 200 sets of three random 4-byte keys through siphash24 (an ideal hash): p-values not too small
+        spec = get_hash("siphash24")
+        rng = np.random.default_rng(47)
+        p = []
+        for run in range(200):
+            keys = KeyBatch.from_keys([rng.bytes(4) for _ in range(3)])
+            result = avalanche_matrix(spec.hash_batch, spec.width, keys, run)
+            p.append([t.details["chi_square_p_upper"] for t in avalanche_tests(result)])
+        share = (np.array(p) <= 0.05).mean(axis=0)
+        assert (share <= 0.05 + 3 * np.sqrt(0.05 * 0.95 / 200)).all(), share

@@ -406,3 +406,63 @@ def test_families_take_their_repeat_fingerprint_as_a_function():
     assert [f.keys.to_list() for f in constant] == [
         f.keys.to_list() for f in neighbour_families(REALISTIC.slice(0, 200), seed=2, target=500)
     ]
+
+
+# ---------------------------------------------------------------------------------------------------------
+# Integer keys: families made from the value
+
+
+def test_integer_families_are_made_from_the_value():
+    from hashaudit.stats.neighbours import INTEGER_FAMILIES, STRIDES
+
+    values = np.array([1000, 2**40 + 5], dtype=np.uint64)
+    families = neighbour_families(KeyBatch.from_uint64(values), integers=True)
+    assert [f.name for f in families] == list(INTEGER_FAMILIES)
+    got = {f.name: set(np.frombuffer(f.keys.data.tobytes(), dtype="<u8").tolist()) for f in families}
+    assert all(len(k) == 8 for f in families for k in f.keys.to_list())
+    assert got["adjacent"] == {999, 1001, 2**40 + 4, 2**40 + 6}
+    assert got["stride"] == {(int(v) + sign * s) % 2**64 for v in values for s in STRIDES for sign in (1, -1)}
+    assert got["bit_flip"] == {int(v) ^ (1 << b) for v in values for b in range(64)}
+    # a byte family would change the last byte: +1 there is +2^56, never a neighbouring id
+    assert 1000 + 2**56 not in got["adjacent"] | got["stride"]
+
+
+def test_integer_families_wrap_and_leave_out_sample_keys():
+    values = np.array([0, 1, 2**64 - 1], dtype=np.uint64)
+    (adjacent,) = neighbour_families(KeyBatch.from_uint64(values), integers=True, names=["adjacent"])
+    assert set(np.frombuffer(adjacent.keys.data.tobytes(), dtype="<u8").tolist()) == {2, 2**64 - 2}
+
+
+def test_plus_minus_one_catches_a_hash_weak_for_consecutive_integers():
+    # identity with the high bits as the bucket (the "high" scheme): x - 1 and x + 1 share x's bucket unless a
+    # multiple of 2^48 lies between them, so each sample key gives one colliding pair, about 4,000 against the
+    # ~500 of C(8192, 2) / 2^16. xxh3_64 spreads the same neighbours like random values.
+    rng = np.random.default_rng(41)
+    sample = KeyBatch.from_uint64(rng.integers(0, 2**63, 4096, dtype=np.uint64))
+    families = neighbour_families(sample, seed=1, integers=True)
+    tables = [("high", 1 << 16), ("mask", 1 << 16), ("mod", 65521)]
+    weak = dict(spec_tests(get_hash("identity"), families, tables))
+    assert weak["adjacent"].details["worst"] == "high 2^16"
+    assert weak["adjacent"].observed > 5 * weak["adjacent"].expected and weak["adjacent"].p_upper < 1e-100
+    assert component(weak["adjacent"], "mask 2^16")["p_upper"] > 1e-3  # consecutive ids are even in a mask table
+    # in a mask table identity keeps only the low bits: one flipped high bit stays in the key's bucket
+    assert component(weak["bit_flip"], "mask 2^16")["p_upper"] < 1e-100
+    assert verdicts("identity", list(weak.items()))["neighbour_adjacent"] == "fail"
+    strong = spec_tests(get_hash("xxh3_64"), families, tables)
+    assert [name for name, _ in strong] == ["adjacent", "stride", "bit_flip"]
+    assert set(verdicts("xxh3_64", strong).values()) == {"pass"}
+
+
+def test_the_plan_setting_picks_integer_families():
+    from hashaudit import AuditPlan, audit_batches
+
+    rng = np.random.default_rng(43)
+    batch = KeyBatch.from_uint64(rng.integers(0, 2**63, 3000, dtype=np.uint64))
+    for setting, names in (("integers", {"adjacent", "stride", "bit_flip"}), ("bytes", set(FAMILIES))):
+        plan = AuditPlan(hashes=("xxh3_64",), checks=("buckets", "neighbours"), neighbour_keys=setting)
+        result = audit_batches([batch], plan, keys=len(batch), threads=1)
+        checks = {f.check for f in result.findings if f.check.startswith("neighbour_")}
+        assert {c.removeprefix("neighbour_") for c in checks} <= names
+        if setting == "integers":
+            assert checks == {f"neighbour_{n}" for n in names}
+        assert all(f.verdict == "pass" for f in result.findings if f.check in checks)

@@ -21,6 +21,7 @@ from hashaudit.calibration import (
     FACT_CHECKS,
     NULL_LAW,
     NULL_LAW_KINDS,
+    TINY_KEY_COUNTS,
     biased_bit,
     calibration,
     clopper_pearson,
@@ -59,7 +60,7 @@ def test_every_check_has_a_known_null_law_kind() -> None:
     assert set(NULL_LAW.values()) <= set(NULL_LAW_KINDS)
     # the combined checks are conservative by design; repeated and heavy keys are facts, outside Holm's family
     assert COMBINED_CHECKS == ("avalanche", "bit_independence", "probe_cost")
-    assert FACT_CHECKS == ("duplicate_keys", "hot_keys", "load_attribution")
+    assert FACT_CHECKS == ("duplicate_keys", "hot_keys", "load_attribution", "placement_agreement", "hash_tag_pinning")
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -222,6 +223,44 @@ def test_null_p_values_are_calibrated(fast_null: dict) -> None:
 
 def test_null_audits_with_every_default_check_do_not_fail(fast_null: dict) -> None:
     assert fast_null["audits"]["all"]["fail"]["consistent"]
+
+
+TINY_NULL_RUNS = 30  # each of TINY_KEY_COUNTS with each null hash and key kind once
+TINY_STUDY_SEED = 2024
+
+
+@pytest.fixture(scope="module")
+def tiny_null() -> dict:
+    return calibration(TINY_NULL_RUNS, FAST_SEED, key_counts=TINY_KEY_COUNTS, avalanche_keys=128)
+
+
+def test_tiny_null_audits_cover_every_size(tiny_null: dict) -> None:
+    runs = tiny_null["runs"]
+    assert sorted({r["keys"] for r in runs}) == list(TINY_KEY_COUNTS)
+    assert {(r["keys"], r["hash"], r["key_kind"]) for r in runs} == {
+        (k, h, kind) for k in TINY_KEY_COUNTS for h in ("siphash24", "xxh3_64", "siphash24_low32")
+        for kind in ("bytes", "uint64")
+    }  # fmt: skip
+
+
+def test_tiny_null_audits_do_not_fail(tiny_null: dict) -> None:
+    for family in ("all", "without probe_cost"):
+        audits = tiny_null["audits"][family]
+        assert audits["fail"]["count"] == 0 and audits["upper"]["consistent"] and audits["lower"]["consistent"]
+    for row in tiny_null["checks"]:
+        assert row["runs"] == TINY_NULL_RUNS, row["check"]  # no simulated table at these sizes: no probe_cost
+        assert row["status"] != "too many small p-values", (row["check"], row["summary"])
+
+
+@pytest.mark.slow
+def test_tiny_null_study() -> None:
+    """600 tiny null audits: the false-failure and false-warning rates stay at or below alpha."""
+    result = calibration(600, TINY_STUDY_SEED, key_counts=TINY_KEY_COUNTS, avalanche_keys=128)
+    for family in ("all", "without probe_cost"):
+        audits = result["audits"][family]
+        assert audits["fail"]["consistent"] and audits["upper"]["consistent"] and audits["lower"]["consistent"]
+    for row in result["checks"]:
+        assert row["status"] != "too many small p-values", (row["check"], row["summary"])
 
 
 def test_probe_cost_small_linear_tables() -> None:
