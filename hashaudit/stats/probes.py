@@ -33,7 +33,6 @@ from hashaudit.stats.outcome import Effect, FitTest
 from hashaudit.tables.growth import GrowthPolicy, GrowthResult, insertion_orders, replay_growth
 from hashaudit.tables.simulate import ProbeCell, simulate
 
-
 MIN_MOMENT_SLOTS = 1 << 10
 THEORY_KIND = {"chaining": "chaining", "linear": "linear", "quadratic": "quadratic", "double": "double"}
 
