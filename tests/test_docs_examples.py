@@ -134,3 +134,19 @@ def test_the_matcher_reads_elisions():
     assert not _matches("a … c", "a b d")
     assert missing_lines(("one", "...", "three"), ["one", "two", "three"]) == []
     assert missing_lines(("three", "one"), ["one", "two", "three"]) == ["one"]
+
+
+def test_every_relative_link_of_the_docs_points_to_a_file():
+    broken = []
+    for doc in DOCS:
+        for target in re.findall(r"\]\(([^)#\s]+)(?:#[^)]*)?\)", doc.read_text(encoding="utf-8")):
+            if "://" not in target and not (doc.parent / target).exists():
+                broken.append(f"{doc.name}: {target}")
+    assert broken == []
+
+
+def test_the_readme_stays_a_front_page():
+    """The reference lives in docs/: the README keeps the job, the two commands, a first audit, recipes, links."""
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    assert len(readme.encode()) < 20_000
+    assert "make demo" in readme and "make test" in readme

@@ -155,13 +155,13 @@ def test_placements_appear_in_every_report(tmp_path):
     assert json.loads(out["json"].read_text())["settings"]["placements"] == ["kafka:partitions=8"]
 
 
-def test_the_readme_placement_example_is_what_the_command_prints():
-    """README.md quotes this audit's output: every quoted line must be printed as it stands."""
+def test_the_documented_placement_example_is_what_the_command_prints():
+    """docs/checks.md quotes this audit's output: every quoted line must be printed as it stands."""
     import pathlib
     import re
     import shlex
 
-    readme = (pathlib.Path(__file__).parents[2] / "README.md").read_text(encoding="utf-8")
+    readme = (pathlib.Path(__file__).parents[2] / "docs" / "checks.md").read_text(encoding="utf-8")
     blocks = re.findall(r"^```[a-z]*\n(.*?)^```$", readme, re.S | re.M)
     block = next(b for b in blocks if "--placement kafka:partitions=16" in b)
     lines = block.splitlines()
