@@ -30,12 +30,13 @@ MIN_DISTINCT = 4 << 20
 MIN_COLLISIONS = 1 << 20
 
 
-def machine_memory() -> int | None:
-    """The machine's memory in bytes (``MemTotal``), or None when the system does not say."""
+def meminfo(field: str = "MemTotal") -> int | None:
+    """A field of ``/proc/meminfo`` in bytes (``MemTotal``, ``MemAvailable``); elsewhere the physical memory, or None
+    when the system does not say."""
     try:
         with open("/proc/meminfo", encoding="ascii") as f:
             for line in f:
-                if line.startswith("MemTotal:"):
+                if line.startswith(f"{field}:"):
                     return int(line.split()[1]) * 1024
     except (OSError, ValueError, IndexError):
         pass
@@ -43,6 +44,11 @@ def machine_memory() -> int | None:
         return os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
     except (ValueError, OSError, AttributeError):
         return None
+
+
+def machine_memory() -> int | None:
+    """The machine's memory in bytes (``MemTotal``), or None when the system does not say."""
+    return meminfo("MemTotal")
 
 
 def default_memory() -> int:

@@ -18,6 +18,7 @@ import numpy as np
 
 from hashaudit.engine._malloc import fix_mmap_threshold
 from hashaudit.engine.conclude import conclude
+from hashaudit.engine.memory import meminfo
 from hashaudit.engine.plan import AuditPlan
 from hashaudit.engine.prefetch import prefetch
 from hashaudit.engine.state import HashState
@@ -290,17 +291,7 @@ def _more_parts(full: DistinctBudgetError, estimate: int | None, budget: int) ->
 
 
 def _available_memory_bytes() -> int | None:
-    try:
-        with open("/proc/meminfo", encoding="ascii") as f:
-            for line in f:
-                if line.startswith("MemAvailable:"):
-                    return int(line.split()[1]) * 1024
-    except (OSError, ValueError, IndexError):
-        pass
-    try:
-        return os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
-    except (ValueError, OSError, AttributeError):
-        return None
+    return meminfo("MemAvailable")
 
 
 def _check_memory(needed: int, pairs: list[tuple[str, int]]) -> None:
