@@ -15,6 +15,16 @@ identifiers of the kinds its systems hash into tables and shards:
                           ``mod`` puts every slot on one shard of 8)
 ``tracking_lookups.sqlite`` and ``tracking_lookups.parquet``  the same lookups as an SQLite table ``lookups`` and as
                           a Parquet file (berth slots as 64-bit integers), for the database and columnar sources
+``scan_topic_keys.csv``   an hour of the ``depot-scans`` message topic (12 partitions), summed by record key: the key
+                          (``t0417/kelp-yard``, tenant and depot) and its messages. Three shipping tenants carry most of
+                          the messages; and the customs bridge (tenant ``t0100``) keys its declaration lanes
+                          ``t0100/lane-0008`` …, handing out only lane numbers that the broker's partitioner (murmur2,
+                          sign bit cleared, modulo 12) sends to partition 5, so that one consumer reads every lane in
+                          order: a key family pinned to one partition by design, found by search below
+``cache_keys.txt``        the keys of the cache cluster, one per line: parcel records grouped by a hash tag per parcel
+                          (``parcel:{MF-P-1234567}:eta``), untagged sessions and rate counters, and the harbour
+                          berth board, whose keys all share the tag ``{berth-board}`` so that one script can update
+                          them together (the large tag family: it pins them all to one slot)
 
 Run ``python sample_keys/generate.py``; the output is byte-identical on every run.
 """
@@ -122,6 +132,79 @@ def lookups_as_tables(csv_text: str) -> None:
     pq.write_table(table, HERE / "tracking_lookups.parquet", row_group_size=20_000)
 
 
+LANE_PARTITION = 5  # the partition the customs bridge pins its lanes to
+TOPIC_PARTITIONS = 12
+
+
+def murmur2(data: bytes) -> int:
+    """MurmurHash2 (32-bit) with the seed ``0x9747B28C``, as the message broker's producer hashes a record key.
+
+    References: Appleby, MurmurHash2 (``MurmurHash2.cpp``); the seed is the broker client's (its ``Utils.murmur2``).
+    """
+    m, mask = 0x5BD1E995, 0xFFFFFFFF
+    h = 0x9747B28C ^ len(data)
+    whole = len(data) - len(data) % 4
+    for i in range(0, whole, 4):
+        k = int.from_bytes(data[i : i + 4], "little") * m & mask
+        k = (k ^ (k >> 24)) * m & mask
+        h = (h * m & mask) ^ k
+    tail = data[whole:]
+    if tail:
+        h ^= int.from_bytes(tail, "little")
+        h = h * m & mask
+    h = (h ^ (h >> 13)) * m & mask
+    return h ^ (h >> 15)
+
+
+def broker_partition(key: str, partitions: int) -> int:
+    """The partition of a keyed record: murmur2 of the key bytes, sign bit cleared, modulo the partitions."""
+    return (murmur2(key.encode()) & 0x7FFFFFFF) % partitions
+
+
+def customs_lanes(count: int) -> list[str]:
+    """The customs bridge's lane keys: the first ``count`` lane numbers whose key lands on ``LANE_PARTITION``."""
+    lanes: list[str] = []
+    number = 0
+    while len(lanes) < count:
+        number += 1
+        key = f"t0100/lane-{number:04d}"
+        if broker_partition(key, TOPIC_PARTITIONS) == LANE_PARTITION:
+            lanes.append(key)
+    return lanes
+
+
+def scan_topic_keys(rng: np.random.Generator) -> str:
+    tenants = [int(t) for t in rng.choice(np.arange(101, 10_000), size=900, replace=False)]
+    heavy = tenants[:3]  # the three big shippers, each at one or two depots
+    rows = []
+    for tenant in tenants:
+        depots = rng.choice(len(DEPOTS), size=int(rng.integers(1, 3 if tenant in heavy else 6)), replace=False)
+        for depot in sorted(int(d) for d in depots):
+            if tenant in heavy:
+                messages = int(rng.integers(90_000, 240_000))
+            else:
+                messages = 1 + int(rng.gamma(1.2, 110.0))
+            rows.append((f"t{tenant:04d}/{DEPOTS[depot].lower()}", messages))
+    rows += [(lane, 1 + int(rng.gamma(2.0, 30.0))) for lane in customs_lanes(300)]
+    order = rng.permutation(len(rows))
+    return "key,messages\n" + "".join(f"{rows[i][0]},{rows[i][1]}\n" for i in order)
+
+
+def cache_keys(rng: np.random.Generator) -> str:
+    parcels = [f"MF-P-{int(x):07d}" for x in rng.choice(np.arange(1, 10_000_000), size=6_000, replace=False)]
+    keys = []
+    for parcel in parcels:  # one tag per parcel: its records live on one slot, for multi-key reads
+        fields = rng.choice(["status", "eta", "route", "photo", "sig"], size=int(rng.integers(1, 4)), replace=False)
+        keys += [f"parcel:{{{parcel}}}:{field}" for field in fields]
+    keys += [f"session:{int(x):016x}" for x in rng.integers(0, 1 << 63, size=5_000)]
+    keys += [f"rate:{depot.lower()}:{minute:04d}" for depot in DEPOTS for minute in range(0, 1440, 2)]
+    board = [f"{{berth-board}}:berth:{n:03d}" for n in range(1, 641)]
+    board += [f"{{berth-board}}:tile:{x:02d}-{y:02d}" for x in range(40) for y in range(40)]
+    keys += board
+    keys = list(dict.fromkeys(keys))
+    return "\n".join(keys[i] for i in rng.permutation(len(keys))) + "\n"
+
+
 def main() -> None:
     rng = np.random.default_rng(SEED)
     (HERE / "orders.txt").write_text("\n".join(orders(rng)) + "\n", encoding="ascii")
@@ -132,6 +215,9 @@ def main() -> None:
     lookups = tracking_lookups(rng)
     (HERE / "tracking_lookups.csv").write_text(lookups, encoding="ascii")
     lookups_as_tables(lookups)
+    # the placement samples come last, so that every file above keeps its bytes
+    (HERE / "scan_topic_keys.csv").write_text(scan_topic_keys(rng), encoding="ascii")
+    (HERE / "cache_keys.txt").write_text(cache_keys(rng), encoding="ascii")
 
 
 if __name__ == "__main__":

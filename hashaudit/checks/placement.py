@@ -32,8 +32,8 @@ def _balance(test: Any) -> str:
 def _movement(test: Any) -> str:
     d, e = test.details, test.effect
     return (
-        f"adding a {d.get('unit', 'unit')} ({d.get('shards')} to {d.get('shards', 0) + 1}) moves {pct(e.observed)} of "
-        f"the keys against {pct(e.ideal)} for an ideal hash under the same rule"
+        f"growing from {count(d.get('shards', 0), d.get('unit', 'unit'))} to {num(d.get('grown_to', d.get('shards', 0) + 1))} "
+        f"moves {pct(e.observed)} of the keys against {pct(e.ideal)} for an ideal hash under the same rule"
     )
 
 
@@ -69,7 +69,7 @@ def _accumulators(subject: Any, plan: Any, tables: list, lanes: int) -> dict:
 
 
 def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
-    from hashaudit.stats.shards import balance_tests, movement_tests
+    from hashaudit.stats.shards import LISTED_SHARDS, balance_tests, movement_tests
 
     unit = state.spec.unit
     for counts in state.get("units"):
@@ -77,9 +77,19 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
         named = {"shard_balance": "placement_balance", "shard_movement": "placement_movement"}
         for test in [*balance_tests(counts), *movement_tests(counts)]:
             details = {**test.details, "unit": unit, "rule": state.spec.rule, "placement": state.spec.name}
-            if "keys_per_shard" not in details:
-                details["keys_per_shard"] = counts.distinct_.tolist()
-            details["load_per_shard"] = [round(float(x), 6) for x in counts.load_]
+            units = counts.layout.shards
+            if (
+                units <= LISTED_SHARDS
+            ):  # a table of 2^18 buckets would make every report heavy: counts listed up to this
+                if "keys_per_shard" not in details:
+                    details["keys_per_shard"] = counts.distinct_.tolist()
+                details["load_per_shard"] = [round(float(x), 6) for x in counts.load_]
+            else:
+                details.pop("keys_per_shard", None)
+                details.pop("load_per_shard", None)
+            resized = getattr(counts.layout, "resized", None)
+            if test.name == "shard_movement" and resized is not None:
+                details["grown_to"] = resized(units + 1).shards  # how the system grows: a unit more, or a doubling
             yield None, None, keys, replace(test, name=named[test.name], details=details)
 
 
@@ -288,7 +298,8 @@ GROUP = CheckGroup(
             "placements",
             "checks",
             "A system's placement rule with its parameters (repeatable): kafka:partitions=N, "
-            "librdkafka:partitions=N[,partitioner=…], jvm-hashcode-mod:n=N, redis-cluster:nodes=N, cassandra:nodes=N, ketama:servers=N "
+            "librdkafka:partitions=N[,partitioner=…], jvm-hashcode-mod:n=N, redis-cluster:nodes=N, cassandra:nodes=N, "
+            "ketama:servers=N, postgres-hash:modulus=N, java-hashmap:entries=N "
             "(hashaudit placements lists them).",
             default=(),
             kind="text",

@@ -68,6 +68,7 @@ def conclude(
         Told the step under way (``"avalanche checks of xxh3_64"``) before each one, for a progress line.
     """
     cut = 0
+    whole_sample = sample.keys() if sample is not None else None  # the input's key lengths, for the kernel timings
     if sample is not None:
         sample, cut = sample.cut_long_keys()
     ctx = Conclusion(plan, states, tables, keys, occurrences, sample, heavy, figures=figures)
@@ -102,6 +103,14 @@ def conclude(
         verdict = worst_verdict([f.verdict for f in own])
         hash_audits.append(HashAudit(spec.name, spec.width, spec.seeded, plan.seed, spec.path, verdict, own, summaries))
     overall = "fail" if any(h.verdict == "fail" for h in hash_audits) else "pass"
+    candidates = [state.spec for state in states if state.spec.path != "placement"]
+    speeds: dict = {}
+    if len(candidates) >= 2 and whole_sample is not None:  # the ranking of candidates compares their kernels' speed
+        if phase is not None:
+            phase("timing the hash kernels on the sampled keys")
+        from hashaudit.verdict.ranking import measure_speeds
+
+        speeds = measure_speeds(candidates, whole_sample, plan.seed)
     seconds = time.perf_counter() - (started if started is not None else time.perf_counter())
     run = {
         "hashaudit_version": _version(),
@@ -111,6 +120,7 @@ def conclude(
         # records read per second (every occurrence, whatever the checks counted); the distinct keys are in summary
         "records_per_second": round(occurrences / seconds) if seconds > 0 else None,
         "hash_seconds": {k: round(v, 3) for k, v in (hash_seconds or {}).items()},
+        **({"hash_speed": speeds} if speeds else {}),
         # reads of the input: more when the distinct keys outgrew distinct_memory or to settle the heavy keys
         "passes": passes,
         "platform": sys.platform,

@@ -386,6 +386,41 @@ def _ketama_values(batch: Any) -> np.ndarray:
     return key_hash(batch).astype(np.uint64)
 
 
+def _postgres_values(batch: Any) -> np.ndarray:
+    from hashaudit.placements.postgres import partition_hash
+
+    return partition_hash(batch)
+
+
+def _hashmap_values(batch: Any) -> np.ndarray:
+    from hashaudit.placements.jvm import hashmap_spread
+
+    return hashmap_spread(batch).astype(np.uint64)
+
+
+def _hashmap_layout(params: dict[str, Any]) -> Any:
+    from hashaudit.placements.java_hashmap import HashMapLayout, table_size_after
+
+    return HashMapLayout(table_size_after(params["entries"], params["capacity"]))
+
+
+# the placement checks keep a few arrays of a count per bucket (they list them only up to 1,024 units)
+HASHMAP_MOST_BUCKETS = 1 << 22
+
+
+def _hashmap_check(params: dict[str, Any]) -> str | None:
+    from hashaudit.placements.java_hashmap import table_size_after
+
+    size = table_size_after(params["entries"], params["capacity"])
+    if size > HASHMAP_MOST_BUCKETS:
+        return (
+            f"a map of {params['entries']:,} entries from capacity {params['capacity']:,} has a table of {size:,} "
+            f"buckets; the placement checks take tables of up to {HASHMAP_MOST_BUCKETS:,} buckets (up to "
+            f"{HASHMAP_MOST_BUCKETS * 3 // 4:,} entries)"
+        )
+    return None
+
+
 def _ketama_check(params: dict[str, Any]) -> str | None:
     from hashaudit.placements.ketama import labels_per_server
 
@@ -484,6 +519,34 @@ RULES: dict[str, PlacementRule] = {
             _ketama_values,
             lambda p: KetamaLayout(p["servers"], p.get("weights", ())),
             _ketama_check,
+        ),
+        PlacementRule(
+            "postgres-hash",
+            "PostgreSQL hash partitioning by one text key: hashtextextended (lookup3 of the key bytes) with the "
+            "partitioning seed, hash_combine64, modulo the modulus; keys that cannot be text hashed as their bytes, "
+            "as a bytea key",
+            "a PostgreSQL server: each key's partition (tableoid) in a table PARTITION BY HASH, and hashtextextended",
+            (Param("modulus", "the partitions' modulus (one partition per remainder)"),),
+            "partition",
+            64,
+            _postgres_values,
+            lambda p: ModLayout(p["modulus"]),
+        ),
+        PlacementRule(
+            "java-hashmap",
+            "java.util.HashMap of string keys: String.hashCode over UTF-16 units, spread h ^ (h >>> 16), bucket "
+            "(n - 1) & hash in the table new HashMap<>(capacity) has after the puts of entries keys (doubling when "
+            "the size exceeds 0.75 n); bins turning into trees change lookups, not buckets, and are not modelled",
+            "published String.hashCode values and a plain-Python model of HashMap's spread and resize rule",
+            (
+                Param("capacity", "initial capacity given to new HashMap<>(capacity) (default 16)", 0, default=16),
+                Param("entries", "distinct keys put into the map: its table grows by the resize rule to hold them"),
+            ),
+            "bucket",
+            32,
+            _hashmap_values,
+            _hashmap_layout,
+            _hashmap_check,
         ),
     )
 }

@@ -2,12 +2,13 @@
 
 Two levels of detail. ``summary`` (the default) fits a comment (GitHub's limit is 65,536 characters; the summary aims
 at :data:`SUMMARY_BYTES`): a title line with the verdict, one summary paragraph, a table of the hash functions and
-their verdicts, then for each hash that failed or warned a table of its tables, one row per table with the finding
-that speaks for it and the table's other failing and warning checks named, so that every fail and warn is listed;
-against a baseline, only the checks that regressed, are new or are no longer run. ``full`` adds nothing to be
-skipped: a table of the failing and warning checks, every check in a collapsible ``<details>`` block, the whole
-"Against the baseline" table. Both end with a caution paragraph. Every piece
-of interpolated text is escaped for GitHub-flavoured Markdown tables and for the HTML that comment renderers allow.
+their verdicts, with two or more of them their ranking (best first, with each kernel's speed on the sampled keys),
+then for each hash that failed or warned a table of its tables, one row per table with the finding that speaks for
+it and the table's other failing and warning checks named, so that every fail and warn is listed; against a
+baseline, only the checks that regressed, are new or are no longer run. ``full`` adds nothing to be skipped: a
+table of the failing and warning checks, every check in a collapsible ``<details>`` block, the whole "Against the
+baseline" table. Both end with a caution paragraph. Every piece of interpolated text is escaped for
+GitHub-flavoured Markdown tables and for the HTML that comment renderers allow.
 The report shows no key: ``Finding.details`` (where ``--show-keys`` puts sample keys) is never rendered.
 """
 
@@ -16,7 +17,13 @@ from __future__ import annotations
 import math
 import re
 
-from hashaudit.report.terminal import HASH_FLOODING_NOTE, findings_by_table, speaking_finding
+from hashaudit.report.terminal import (
+    HASH_FLOODING_NOTE,
+    findings_by_table,
+    ranking_cells,
+    speaking_finding,
+    speed_note,
+)
 from hashaudit.verdict.findings import Finding
 from hashaudit.verdict.result import AuditResult
 from hashaudit.verdict.words import count
@@ -27,6 +34,16 @@ SUMMARY_BYTES = 20_000
 """What the summary aims to stay under; past it, its rows leave out the sentences (the checks stay named)."""
 _VERDICTS = ("fail", "warn", "info", "pass")
 _HASH_HEADER = ("Hash", "Width", "Verdict", "Fail", "Warn", "Info", "Pass")
+_RANKING_HEADER = (
+    "#",
+    "Verdict",
+    "Hash",
+    "Extra probes/lookup",
+    "Hottest/expected",
+    "Failing groups",
+    "Keys/s",
+    "ns/key",
+)
 _FINDING_HEADER = ("Hash", "Check", "Table", "Verdict", "Effect", "Message")
 _BASELINE_HEADER = (
     "Hash",
@@ -154,6 +171,24 @@ def _hash_rows(result: AuditResult) -> list[list[str]]:
     return rows
 
 
+def _ranking(result: AuditResult) -> list[str]:
+    """The ranking of two or more hash functions, best first, with where its costs and speeds come from."""
+    ranking = result.ranking
+    if not ranking:
+        return []
+    rows = []
+    for i, row in enumerate(ranking, 1):
+        verdict = f"**{row.verdict.upper()}**" if row.verdict == "fail" else row.verdict.upper()
+        rows.append([str(i), verdict, escape(row.hash_name), *(escape(cell) for cell in ranking_cells(row))])
+    note = speed_note(result).replace("\n", " ") or "speed: not measured (no check kept a key sample)"
+    said = (
+        "Best first: by verdict, then the most extra probes per lookup and the hottest bucket or shard over its "
+        "expected load, each only where a check found it significant (with the table it was measured on), then "
+        f"speed. {note[0].upper()}{note[1:]}."
+    )
+    return ["### Ranking", "", *_table(_RANKING_HEADER, rows), "", escape(said, in_table=False), ""]
+
+
 def _also(speaker: Finding, members: list[Finding]) -> str:
     """The table's other failing and warning checks, by verdict (``fail: g_test; warn: max_load``)."""
     parts = []
@@ -203,6 +238,7 @@ def _summary_report(
     lines = [f"## hashaudit: {result.verdict.upper()}", "", _summary(result, counts), ""]
     lines += _table(_HASH_HEADER, _hash_rows(result))
     lines.append("")
+    lines += _ranking(result)
     flagged = counts["fail"] + counts["warn"]
     if flagged:
         lines.append(
@@ -223,6 +259,7 @@ def _summary_report(
 def _full_report(result: AuditResult, counts: dict[str, int], comparison: list[dict] | None) -> list[str]:
     findings = result.findings
     lines = [f"## hashaudit: {result.verdict.upper()}", "", _summary(result, counts), ""]
+    lines += _ranking(result)
     flagged = [f for f in findings if f.verdict in ("fail", "warn")]
     if flagged:
         lines.append(f"### Failing and warning checks ({len(flagged)})")

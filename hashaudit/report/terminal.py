@@ -1,6 +1,7 @@
 """The terminal report: a ranked table, worst first, one line per table with the check that speaks for it and its
 plain-language sentence, then the table's other findings that did not pass, named by verdict or counted, so that
-every fail, warn and info is on the screen (``--all``: one line per check)."""
+every fail, warn and info is on the screen (``--all``: one line per check); then a line per hash function and, with
+two or more, their ranking (``hashaudit.verdict.ranking``)."""
 
 from __future__ import annotations
 
@@ -11,8 +12,9 @@ import click
 from hashaudit.checks import CHECKS
 from hashaudit.settings import DEFAULT_HASHES
 from hashaudit.verdict.findings import VERDICT_ORDER, Finding
+from hashaudit.verdict.ranking import RankingRow
 from hashaudit.verdict.result import AuditResult
-from hashaudit.verdict.words import count
+from hashaudit.verdict.words import count, num
 
 _COLOURS = {"fail": "red", "warn": "yellow", "info": "cyan", "pass": "green"}
 HASH_FLOODING_NOTE = (
@@ -78,6 +80,80 @@ def _collision_keys(result: AuditResult, hash_name: str) -> list[str]:
                 shown = ", ".join(repr(k) for k in keys)
                 out.append(f"        {group['hash']} is shared by {group['keys']:,} keys, e.g. {shown}")
     return out
+
+
+RANKING_HEADER = (
+    "#",
+    "verdict",
+    "hash",
+    "extra probes/lookup",
+    "hottest/expected",
+    "failing groups",
+    "keys/s",
+    "ns/key",
+)
+RANKING_TITLE = "ranking, best first (by verdict, then the costs that checks found significant, then speed)"
+
+
+def ranking_cells(row: RankingRow) -> tuple[str, str, str, str, str]:
+    """A ranking row's cells as words: extra probes with their table, hottest ratio with its table, failing groups,
+    keys per second and nanoseconds per key (``none`` where no check found a cost, ``not checked`` where none
+    measured it, a dash for a speed not measured)."""
+    probes = hottest = "not checked"
+    if row.extra_probes is not None:
+        extra = row.extra_probes.value
+        probes = f"{'+' if extra >= 0 else '−'}{num(abs(extra))} ({row.extra_probes.table})"
+    elif row.probes_checked:
+        probes = "none"
+    if row.hottest is not None:
+        hottest = f"{num(row.hottest.value)}× ({row.hottest.table})"
+    elif row.hottest_checked:
+        hottest = "none"
+    failing = ", ".join(row.failing_groups) or "—"
+    speed = row.speed
+    keys_per_second = num(speed.keys_per_second) if speed is not None else "—"
+    ns_per_key = f"{speed.ns_per_key:#.3g}" if speed is not None else "—"
+    return probes, hottest, failing, keys_per_second, ns_per_key
+
+
+def speed_note(result: AuditResult) -> str:
+    """Where the speeds come from, in a line (empty when none was measured)."""
+    block = result.run.get("hash_speed") or {}
+    if not block:
+        return ""
+    return (
+        f"speed: each kernel alone on {count(block['keys'], 'sampled key', exact=True)} "
+        f"({num(block['mean_key_bytes'])} bytes on average), best of {block['rounds']} rounds of "
+        f"{num(1000 * block['seconds_per_round'])} ms;\na production implementation's speed may differ"
+    )
+
+
+def _ranking(result: AuditResult, colour: bool) -> list[str]:
+    """The ranking table of two or more hash functions (nothing for fewer)."""
+    ranking = result.ranking
+    if not ranking:
+        return []
+    rows = [(str(i), row.verdict.upper(), row.hash_name, *ranking_cells(row)) for i, row in enumerate(ranking, 1)]
+    widths = [max(len(cells[c]) for cells in [RANKING_HEADER, *rows]) for c in range(len(RANKING_HEADER))]
+    right = {0, 6, 7}  # the position and the speeds line up on the right
+
+    def line(cells: tuple[str, ...], verdict: str | None = None) -> str:
+        out = []
+        for c, (text, width) in enumerate(zip(cells, widths, strict=True)):
+            padded = text.rjust(width) if c in right else text.ljust(width)
+            if c == 1 and verdict is not None:
+                padded = _tag(verdict, colour) + " " * (width - 4)
+            out.append(padded)
+        return "  " + "  ".join(out).rstrip()
+
+    lines = [RANKING_TITLE + ":", line(RANKING_HEADER)]
+    lines += [line(cells, row.verdict) for cells, row in zip(rows, ranking, strict=True)]
+    note = speed_note(result)
+    if note:
+        lines += [f"  {part}" for part in note.splitlines()]
+    else:
+        lines.append("  speed: not measured (no check kept a key sample; the avalanche checks keep one)")
+    return ["", *lines]
 
 
 def render(result: AuditResult, *, show_all: bool = False, colour: bool = False) -> str:
@@ -157,6 +233,7 @@ def render(result: AuditResult, *, show_all: bool = False, colour: bool = False)
         tally = {v: sum(1 for f in h.findings if f.verdict == v) for v in ("fail", "warn", "info", "pass")}
         spread = ", ".join(f"{count} {verdict}" for verdict, count in tally.items() if count)
         lines.append(f"  {_tag(h.verdict, colour)}  {h.name:<14} {h.width:>3}-bit  {h.path:<7}  checks: {spread}")
+    lines.extend(_ranking(result, colour))
     lines.append("")
     lines.append(HASH_FLOODING_NOTE)
     return "\n".join(lines)

@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from hashaudit.verdict.findings import VERDICT_ORDER, Finding
+from hashaudit.verdict.ranking import RankingRow, deterministic_order, rank, speeds_from_run
 
 SCHEMA = "hashaudit.audit/1"
 
@@ -102,6 +103,12 @@ class AuditResult:
         return sorted(every, key=lambda f: (VERDICT_ORDER[f.verdict], f.p_adjusted, -f.effect.value))
 
     @property
+    def ranking(self) -> list[RankingRow]:
+        """With two or more hash functions, one row per function, best first: verdict, worst significant cost,
+        failing groups, then the kernel speed measured on the sampled keys (``hashaudit.verdict.ranking``)."""
+        return rank(self.hashes, speeds_from_run(self.run))
+
+    @property
     def exit_code(self) -> int:
         """0 when every check passed, 1 when at least one failed."""
         return 1 if self.verdict == "fail" else 0
@@ -131,6 +138,11 @@ class AuditResult:
             from hashaudit.stats.sample import LONG_KEY_END_BYTES
 
             summary["sampled_keys_cut"] = {"keys": self.sampled_keys_cut, "end_bytes_kept": LONG_KEY_END_BYTES}
+        ranking = self.ranking
+        run = self.run
+        if ranking:  # the rows without timings, in an order that does not depend on them; the timed order in run
+            names = [h.name for h in self.hashes]
+            run = {**run, "ranking_order": [row.hash_name for row in ranking]}
         return {
             "schema": SCHEMA,
             "verdict": self.verdict,
@@ -139,7 +151,8 @@ class AuditResult:
             "tables": [{"scheme": scheme, "buckets": buckets} for scheme, buckets in self.tables],
             "sources": list(self.sources),
             "hashes": [h.to_dict() for h in self.hashes],
-            "run": self.run,
+            **({"ranking": [row.to_dict() for row in deterministic_order(ranking, names)]} if ranking else {}),
+            "run": run,
         }
 
     def to_dataframe(self):  # type: ignore[no-untyped-def]
