@@ -7,9 +7,12 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+
 SCRIPT = Path(__file__).parents[1] / "bench" / "speed_table.py"
 
 
+@pytest.mark.slow  # a smoke run of the benchmark (a dozen seconds): with the slow tests
 def test_quick_run_of_row_3_prints_the_row_with_its_seconds(tmp_path):
     proc = subprocess.run(
         [sys.executable, str(SCRIPT), "--quick", "--rows", "3", "--workdir", str(tmp_path)],

@@ -118,7 +118,14 @@ def test_the_docs_quote_examples():
     assert len(EXAMPLES) >= 5, [e.command for e in EXAMPLES]
 
 
-@pytest.mark.parametrize("example", EXAMPLES, ids=[f"{e.doc}:{e.line}" for e in EXAMPLES])
+SLOW_EXAMPLE = "--checks tables,growth"  # the growth and order replays of the worked example take half a minute
+
+
+def _marked(example: Example) -> object:
+    return pytest.param(example, marks=pytest.mark.slow) if SLOW_EXAMPLE in example.command else example
+
+
+@pytest.mark.parametrize("example", [_marked(e) for e in EXAMPLES], ids=[f"{e.doc}:{e.line}" for e in EXAMPLES])
 def test_every_quoted_line_is_what_the_command_prints(example: Example):
     args = shlex.split(example.command)[1:]
     args = [str(ROOT / a) if a.startswith("sample_keys/") else a for a in args]

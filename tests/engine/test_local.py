@@ -33,7 +33,8 @@ def stable(result) -> str:
     return json.dumps(doc, sort_keys=True)
 
 
-@pytest.mark.parametrize("size", [1, 2, 50, len(KEYS), len(KEYS) + 42])
+# batches of one key are slow by nature (a dozen seconds): with the slow tests; two keys cover the same edge
+@pytest.mark.parametrize("size", [pytest.param(1, marks=pytest.mark.slow), 2, 50, len(KEYS), len(KEYS) + 42])
 def test_result_does_not_depend_on_batch_size(size):
     reference = stable(audit_batches(batches_of(1000), PLAN))
     assert stable(audit_batches(batches_of(size), PLAN)) == reference

@@ -118,6 +118,7 @@ print(keys, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss - base)
 """
 
 
+@pytest.mark.slow  # a scale run: a big table through both drivers
 @pytest.mark.parametrize("driver", ["sqlalchemy", "adbc"])
 def test_reading_a_big_table_keeps_memory_flat(postgres, driver):
     """A server-side cursor read with Result.yield_per (SQLAlchemy ignores the yield_per option for text()

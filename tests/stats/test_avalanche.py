@@ -481,6 +481,7 @@ class TestFewFlips:
         bits = np.unpackbits(graph.xors.astype("<u8").view(np.uint8), axis=1, bitorder="little")
         np.testing.assert_array_equal(bits.T.astype(np.int64) @ bits.astype(np.int64), result.pair_counts)
 
+    @pytest.mark.slow
     def test_the_simulated_null_is_calibrated(self):
         # 200 sets of three random 4-byte keys through siphash24 (an ideal hash): p-values not too small
         spec = get_hash("siphash24")
