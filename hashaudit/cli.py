@@ -140,6 +140,7 @@ def audit(sources, databases, show_keys, show_all, quiet, color, debug, engine, 
     SQLite file or - for standard input. Exit code 0: every check passed; 1: a check failed; 2: bad usage or input.
     """
     from hashaudit.checks import Thresholds, plan_settings, threshold_settings
+    from hashaudit.checks.neighbours import neighbour_keys_for
     from hashaudit.engine.plan import AuditPlan
     from hashaudit.report.writers import write_reports
 
@@ -152,9 +153,8 @@ def audit(sources, databases, show_keys, show_all, quiet, color, debug, engine, 
     options_ = _source_options(values)
     thresholds = Thresholds(**_take(values, threshold_settings()))
     planned = _take(values, plan_settings())
-    given = click.get_current_context().get_parameter_source("neighbour_keys") != ParameterSource.DEFAULT
-    if not given and options_.key_format == "int":
-        planned["neighbour_keys"] = "integers"  # integer keys get integer neighbours (value ± 1, strides, one bit)
+    if click.get_current_context().get_parameter_source("neighbour_keys") == ParameterSource.DEFAULT:
+        planned["neighbour_keys"] = neighbour_keys_for(options_)  # integer keys get integer neighbours
     plan = AuditPlan(thresholds=thresholds, **planned)
     if values:
         raise UsageError(f"options not handled: {', '.join(values)}")  # a declared setting nothing reads: a bug

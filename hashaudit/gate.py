@@ -168,8 +168,10 @@ def load_config(explicit: str | None) -> GateConfig:
         top.pop(name, None)
     if "alpha" in top:
         limits.setdefault("alpha", top.pop("alpha"))
-    if top.get("neighbour_keys") is None and options and all(o.key_format == "int" for o in options):
-        top["neighbour_keys"] = "integers"  # integer keys get integer neighbours, as on the command line
+    if top.get("neighbour_keys") is None:
+        from hashaudit.checks.neighbours import neighbour_keys_for
+
+        top["neighbour_keys"] = neighbour_keys_for(options)  # as on the command line
     try:
         plan = AuditPlan(thresholds=Thresholds(**limits), **top)
     except SettingError as exc:

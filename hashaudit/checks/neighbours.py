@@ -34,6 +34,13 @@ def _sentence(test: Any) -> str:
     return f"{family}: {count(test.observed, 'full-value colliding pair')} against {test.expected:.3g} expected"
 
 
+def neighbour_keys_for(options: Any) -> str:
+    """The ``neighbour_keys`` a plan gets when the user did not say: ``integers`` when every source reads its keys as
+    integers (``key_format`` int), else ``bytes``. The one rule for the command line and the gate."""
+    listed = options if isinstance(options, list | tuple) else [options]
+    return "integers" if listed and all(o.key_format == "int" for o in listed) else "bytes"
+
+
 def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
     from hashaudit.stats.neighbours import neighbour_families, neighbour_tests
 

@@ -297,10 +297,8 @@ GROUP = CheckGroup(
         Setting(
             "placements",
             "checks",
-            "A system's placement rule with its parameters (repeatable): kafka:partitions=N, "
-            "librdkafka:partitions=N[,partitioner=…], jvm-hashcode-mod:n=N, redis-cluster:nodes=N, cassandra:nodes=N, "
-            "ketama:servers=N, postgres-hash:modulus=N, java-hashmap:entries=N "
-            "(hashaudit placements lists them).",
+            "A system's placement rule with its parameters (repeatable), e.g. kafka:partitions=12; "
+            "hashaudit placements lists every rule and its parameters.",
             default=(),
             kind="text",
             parse=_parse,
