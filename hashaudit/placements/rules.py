@@ -421,6 +421,37 @@ def _hashmap_check(params: dict[str, Any]) -> str | None:
     return None
 
 
+def _python_dict_variant(params: dict[str, Any]) -> tuple[int, Callable[[Any], np.ndarray]]:
+    from hashaudit.placements.python_dict import str_hash
+
+    seed = int(params.get("seed", 0))
+    return 64, lambda batch: str_hash(batch, seed).view(np.uint64)
+
+
+def _python_dict_values(batch: Any) -> np.ndarray:
+    from hashaudit.placements.python_dict import str_hash
+
+    return str_hash(batch, 0).view(np.uint64)
+
+
+def _python_dict_layout(params: dict[str, Any]) -> Any:
+    from hashaudit.placements.python_dict import DictLayout, table_size_after
+
+    return DictLayout(table_size_after(params["entries"]))
+
+
+def _python_dict_check(params: dict[str, Any]) -> str | None:
+    from hashaudit.placements.python_dict import table_size_after, usable_fraction
+
+    size = table_size_after(params["entries"])
+    if size > HASHMAP_MOST_BUCKETS:
+        return (
+            f"a dict of {params['entries']:,} entries has a table of {size:,} slots; the placement checks take "
+            f"tables of up to {HASHMAP_MOST_BUCKETS:,} slots (up to {usable_fraction(HASHMAP_MOST_BUCKETS):,} entries)"
+        )
+    return None
+
+
 def _ketama_check(params: dict[str, Any]) -> str | None:
     from hashaudit.placements.ketama import labels_per_server
 
@@ -547,6 +578,30 @@ RULES: dict[str, PlacementRule] = {
             _hashmap_values,
             _hashmap_layout,
             _hashmap_check,
+        ),
+        PlacementRule(
+            "python-dict",
+            "CPython's dict of string keys: hash() of the key as a str (SipHash-1-3 over its 1-, 2- or 4-byte "
+            "code points, keyed by the PYTHONHASHSEED secret; keys that are not UTF-8 as bytes), home slot hash & "
+            "(n - 1) in the index table a dict has after entries insertions (8 slots, doubling past 2n/3 entries)",
+            "CPython itself: hash() of every key in an interpreter started with PYTHONHASHSEED set, and the index "
+            "table of a dict the keys are inserted into",
+            (
+                Param("entries", "distinct keys inserted into the dict: its table grows to hold them"),
+                Param(
+                    "seed",
+                    "the interpreter's PYTHONHASHSEED (default 0)",
+                    minimum=0,
+                    maximum=(1 << 32) - 1,
+                    default=0,
+                ),
+            ),
+            "slot",
+            64,
+            _python_dict_values,
+            _python_dict_layout,
+            _python_dict_check,
+            _python_dict_variant,
         ),
     )
 }
