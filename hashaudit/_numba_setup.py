@@ -1,15 +1,28 @@
-"""Point numba's compile cache at a writable folder before any kernel module is imported.
+"""Where numba keeps hashaudit's compiled kernels: one folder per machine user, shared by every install.
 
-numba writes its cache beside the module (``__pycache__``); when the package is installed read-only and
-``~/.cache`` is not writable either, ``@njit(cache=True)`` makes the *import* fail. We choose the folder
-ourselves: the package folder when writable, else ``$HASHAUDIT_CACHE_DIR`` or ``$XDG_CACHE_HOME/hashaudit``.
+numba's own choice is the ``__pycache__`` folder beside each module, or a folder named after the module's absolute
+path: either way a new virtualenv, a reinstall or a second checkout compiles every kernel again (about 20 s for a
+default audit), and a read-only install cannot cache at all. hashaudit's kernels go instead to
+
+    $HASHAUDIT_CACHE_DIR/numba/py<X.Y>-numba<version>/hashaudit/<subpackage>/
+
+(``$HASHAUDIT_CACHE_DIR`` defaults to ``$XDG_CACHE_HOME/hashaudit``, that is ``~/.cache/hashaudit``; a temporary
+folder of the user's when that cannot be written), named by the module's place *inside* the package rather than by
+where the package is installed. numba stamps each cached kernel with a hash of its module's source and the CPU it
+was compiled for, so any install of the same source on the same machine loads the kernels the first one compiled,
+and a changed module compiles anew. Kernels of other packages keep numba's usual folders; a ``NUMBA_CACHE_DIR``
+set by the user wins for every package, ours included.
 """
 
 from __future__ import annotations
 
 import os
+import sys
 import tempfile
 from pathlib import Path
+from typing import Any
+
+PACKAGE = Path(__file__).resolve().parent
 
 
 def _writable(path: Path) -> bool:
@@ -22,28 +35,71 @@ def _writable(path: Path) -> bool:
         return False
 
 
-def configure_numba_cache() -> str | None:
-    """Set ``NUMBA_CACHE_DIR`` when the package folder cannot hold the cache; return the folder chosen."""
-    if os.environ.get("NUMBA_CACHE_DIR"):
-        return os.environ["NUMBA_CACHE_DIR"]
-    package_cache = Path(__file__).parent / "hashes" / "__pycache__"
-    if os.environ.get("HASHAUDIT_CACHE_DIR") is None and _writable(package_cache):
-        return None
+def cache_base() -> Path | None:
+    """The folder that holds the kernel cache: ``$HASHAUDIT_CACHE_DIR/numba`` (default
+    ``$XDG_CACHE_HOME/hashaudit/numba``), else a temporary folder of the user's; None when neither can be written."""
     base = os.environ.get("HASHAUDIT_CACHE_DIR") or os.path.join(
         os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache"), "hashaudit"
     )
     for candidate in (Path(base) / "numba", Path(tempfile.gettempdir()) / f"hashaudit-numba-{os.getuid()}"):
         if _writable(candidate):
-            os.environ["NUMBA_CACHE_DIR"] = str(candidate)
-            try:  # numba already imported by the host program: set the live config too
-                import sys
-
-                if "numba" in sys.modules:
-                    sys.modules["numba"].config.CACHE_DIR = str(candidate)
-            except Exception:  # pragma: no cover - defensive
-                pass
-            return str(candidate)
+            return candidate
     return None
+
+
+def _versions() -> str:
+    import numba
+
+    return f"py{sys.version_info[0]}.{sys.version_info[1]}-numba{numba.__version__}"
+
+
+def _locator_class(base: Path) -> Any:
+    """A numba cache locator for the modules of this package, rooted at ``base``."""
+    from numba.core import caching
+
+    root = base / _versions()
+
+    class PackageCacheLocator(caching._SourceFileBackedLocatorMixin, caching._CacheLocator):  # type: ignore[misc,name-defined]
+        """Caches a hashaudit kernel under ``root`` by its module's path inside the package."""
+
+        def __init__(self, py_func: Any, py_file: str) -> None:
+            self._py_file = py_file
+            self._lineno = py_func.__code__.co_firstlineno
+            inside = Path(py_file).resolve().parent.relative_to(PACKAGE.parent)
+            self._cache_path = str(root.joinpath(*inside.parts))
+
+        def get_cache_path(self) -> str:
+            return self._cache_path
+
+        @classmethod
+        def from_function(cls, py_func: Any, py_file: str) -> Any:
+            try:
+                Path(py_file).resolve().relative_to(PACKAGE)
+            except (ValueError, OSError):
+                return None  # not one of ours: numba's own locators decide
+            return super().from_function(py_func, py_file)
+
+    return PackageCacheLocator
+
+
+def configure_numba_cache() -> str | None:
+    """Send hashaudit's kernels to the per-user cache folder (see the module's text); returns the folder, or
+    ``NUMBA_CACHE_DIR`` when the user set it, or None when no folder can be written (kernels then compile in
+    every process)."""
+    if os.environ.get("NUMBA_CACHE_DIR"):
+        return os.environ["NUMBA_CACHE_DIR"]
+    base = cache_base()
+    if base is None:
+        return None
+    from numba.core import caching
+
+    impl = getattr(caching, "CacheImpl", None) or getattr(caching, "_CacheImpl", None)  # renamed in numba 0.61
+    classes = getattr(impl, "_locator_classes", None)
+    if not isinstance(classes, list):  # a numba that locates caches some other way: its own folders then
+        return None
+    classes[:] = [c for c in classes if getattr(c, "__name__", "") != "PackageCacheLocator"]
+    classes.insert(0, _locator_class(base))
+    return str(base / _versions())
 
 
 configure_numba_cache()
