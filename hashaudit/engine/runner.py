@@ -138,7 +138,14 @@ def audit_batches(
         and among them only the keys of its part); returns the number of keys read."""
         read = 0
         loading[0] = sampling
-        for batch in prefetch(stream) if read_ahead else stream:
+        # the fingerprints that tell repeats apart are taken on the reading thread, beside the reading itself,
+        # while this thread inserts the previous batch's
+        printed: Iterable[tuple[KeyBatch, np.ndarray | None]] = (
+            ((b, distinct.fingerprint(b) if len(b) else None) for b in stream)
+            if distinct is not None
+            else ((b, None) for b in stream)
+        )
+        for batch, prints in prefetch(printed) if read_ahead else printed:
             n = len(batch)
             if n == 0:
                 continue
@@ -156,7 +163,7 @@ def audit_batches(
                 heavy.update(batch, batch.weights)
             if counting[0] is not None:
                 counting[0].update(batch, batch.weights)
-            first = distinct.update(batch) if distinct is not None else None
+            first = distinct.update(batch, prints) if distinct is not None else None
             if first is not None and first.all():
                 first = None  # nothing to drop: skip the copy
             if pool is None:

@@ -243,9 +243,15 @@ class DistinctKeys:
                     break
             self._grow(max(int(self.slots_ * _GROWTH), self.slots_ + 1024))
 
-    def update(self, batch: KeyBatch) -> np.ndarray:
-        """Mark the keys of ``batch`` seen for the first time (in stream order); returns a bool array."""
-        prints = self.fingerprint(batch)
+    def update(self, batch: KeyBatch, prints: np.ndarray | None = None) -> np.ndarray:
+        """Mark the keys of ``batch`` seen for the first time (in stream order); returns a bool array.
+
+        ``prints``, when given, are the batch's fingerprints, ``self.fingerprint(batch)``, already taken (on
+        another thread, say)."""
+        if prints is None:
+            prints = self.fingerprint(batch)
+        elif prints.shape != (len(batch), 2):
+            raise UsageError(f"{prints.shape} fingerprints for a batch of {len(batch)} keys")
         if self.parts == 1:
             first = np.empty(len(prints), dtype=np.bool_)
             self._insert(prints, first)

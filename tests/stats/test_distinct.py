@@ -108,3 +108,17 @@ def test_parts_split_the_distinct_keys_without_overlap():
     assert all(0.2 < m.sum() / whole.sum() < 0.3 for m in marks)  # about a quarter each
     with pytest.raises(UsageError, match="power of two"):
         DistinctKeys(part=0, parts=3)
+
+
+def test_fingerprints_taken_elsewhere_give_the_same_marks():
+    # the engine takes a batch's fingerprints on its reading thread and hands them in
+    rng = np.random.default_rng(5)
+    values = rng.integers(0, 5_000, size=20_000, dtype=np.uint64)
+    batches = [KeyBatch.from_uint64(values[i : i + 4_000]) for i in range(0, len(values), 4_000)]
+    plain, given = DistinctKeys(), DistinctKeys()
+    for batch in batches:
+        expected = plain.update(batch)
+        assert np.array_equal(given.update(batch, given.fingerprint(batch)), expected)
+    assert given.distinct_ == plain.distinct_ == len(np.unique(values))
+    with pytest.raises(UsageError, match="fingerprints for a batch of"):
+        given.update(batches[0], given.fingerprint(batches[1])[:10])
