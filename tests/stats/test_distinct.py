@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+import hashaudit.hashes  # noqa: F401  (provides the default fingerprint functions)
 from hashaudit.errors import UsageError
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.stats.distinct import DistinctKeys
