@@ -43,6 +43,7 @@ from hashaudit.stats import maxload, theory
 from hashaudit.stats.buckets import BucketCountsResult
 from hashaudit.stats.outcome import Effect, FitTest
 from hashaudit.stats.tails import poisson_tails
+from hashaudit.tables.schemes import bucket_index
 
 SIMULATION_DRAWS = 9999
 SPARSE_LOAD = 5.0
@@ -160,10 +161,25 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0, *, with_max_load: bo
     with_max_load : bool
         Include ``max_load`` (its distribution is the costly part; callers that only need the other tests skip it).
     """
-    n, m = result.keys, result.buckets
+    # every statistic needs only the occupied buckets (n of them at most)
+    return occupied_bucket_tests(
+        result.counts[result.counts > 0], result.keys, result.buckets, seed, with_max_load=with_max_load
+    )
+
+
+def occupied_counts(hashes: np.ndarray, scheme: str, buckets: int, width: int) -> np.ndarray:
+    """The keys of every occupied bucket, in bucket order, without a count per bucket: for a few keys in a large
+    table (``result.counts[result.counts > 0]`` of the same keys, in time and memory that follow the keys, not m)."""
+    return np.unique(bucket_index(hashes, scheme, buckets, width), return_counts=True)[1]
+
+
+def occupied_bucket_tests(
+    counts: np.ndarray, n: int, m: int, seed: int = 0, *, with_max_load: bool = True
+) -> list[FitTest]:
+    """:func:`bucket_tests` from the counts of the occupied buckets only (in bucket order), with n keys in m
+    buckets."""
     if n == 0:
         return []
-    counts = result.counts[result.counts > 0]  # every statistic needs only the occupied buckets (n of them at most)
     lam = n / m
     pairs = _colliding_pairs(counts)
     ideal_cost = 1.0 + (n - 1) / (2.0 * m)

@@ -115,6 +115,7 @@ PREFIX_LENGTHS: tuple[int, ...] = (16, 32, 64, 128, 256, 512, 1024)
 CANDIDATE_BYTES = 64 << 20
 # Mixed into the seed of the subsets and offsets, so a family's draws differ from the other seeded draws.
 FAMILY_DOMAIN = 0x6661_6D69_6C69_6573  # "families"
+SPARSE_FAMILY = 8  # a family with fewer keys than an eighth of the buckets is counted by its occupied buckets only
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -535,7 +536,7 @@ def neighbour_tests(
     C. E. Bonferroni (1936), see the module notes.
     """
     from hashaudit.stats.collisions import collision_tests
-    from hashaudit.stats.fit import bucket_tests
+    from hashaudit.stats.fit import occupied_bucket_tests, occupied_counts
 
     hash_seed = seed if seeded else 0
     out: list[tuple[str, FitTest]] = []
@@ -545,8 +546,13 @@ def neighbour_tests(
         values = hash_batch(family.keys, hash_seed)
         components: list[tuple[str | None, int | None, FitTest]] = []
         for scheme, buckets in tables:
-            counts = BucketCounts(name, seed, scheme, int(buckets), width).update(values).result()
-            pairs = next(t for t in bucket_tests(counts, seed=seed, with_max_load=False) if t.name == "colliding_pairs")
+            if len(values) * SPARSE_FAMILY < buckets:  # a few keys in a large table: no count per bucket
+                occupied = occupied_counts(values, scheme, int(buckets), width)
+            else:
+                counts = BucketCounts(name, seed, scheme, int(buckets), width).update(values).result()
+                occupied = counts.counts[counts.counts > 0]
+            tests = occupied_bucket_tests(occupied, len(values), int(buckets), seed=seed, with_max_load=False)
+            pairs = next(t for t in tests if t.name == "colliding_pairs")
             components.append((scheme, int(buckets), pairs))
         with FullCollisions(name, seed, width) as collisions:
             collisions.update(values)

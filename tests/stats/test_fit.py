@@ -162,3 +162,23 @@ def test_null_p_values_pass_a_kolmogorov_smirnov_test(m, n):
             assert min(values) > 1e-3, name
         else:
             assert stats.kstest(values, "uniform").pvalue > 1e-3, name
+
+
+@pytest.mark.parametrize("width", [32, 64, 128])
+@pytest.mark.parametrize("scheme", ["mask", "mod", "high", "range"])
+def test_occupied_buckets_alone_give_the_same_tests(scheme, width):
+    # the neighbour families count a few keys in a large table by their occupied buckets only: same statistics,
+    # same p-values, bit for bit, as counting every bucket
+    from hashaudit.stats.buckets import BucketCounts
+    from hashaudit.stats.fit import occupied_bucket_tests, occupied_counts
+
+    rng = np.random.default_rng(11)
+    shape = (3_000, 2) if width == 128 else (3_000,)
+    values = rng.integers(0, 2**64 - 1, size=shape, dtype=np.uint64, endpoint=True)
+    if width == 32:
+        values &= np.uint64(0xFFFFFFFF)
+    buckets = (1 << 16) if scheme in ("mask", "high") else 65_521
+    full = BucketCounts("h", 0, scheme, buckets, width).update(values).result()
+    occupied = occupied_counts(values, scheme, buckets, width)
+    assert np.array_equal(occupied, full.counts[full.counts > 0])
+    assert occupied_bucket_tests(occupied, len(values), buckets) == bucket_tests(full)
