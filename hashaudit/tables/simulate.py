@@ -34,6 +34,7 @@ import hashaudit._numba_setup  # noqa: F401
 # isort: split
 
 from dataclasses import asdict, dataclass, field
+from functools import lru_cache
 
 import numpy as np
 from numba import njit, uint64
@@ -412,21 +413,33 @@ def double_steps(values: np.ndarray, width: int, slots: int) -> np.ndarray:
     return (np.uint64(1) + upper % np.uint64(slots - 1)).astype(np.int64)
 
 
+@lru_cache(maxsize=256)
+def _starts_per_region(slots: int, stride: int, regions: int) -> np.ndarray:
+    """How many of the unsuccessful lookups' start slots (every ``stride``-th) fall in each region."""
+    starts = np.bincount(np.arange(0, slots, stride) * regions // slots, minlength=regions)
+    starts.setflags(write=False)
+    return starts
+
+
 def measure(
     kind: str,
     load: float,
     homes: np.ndarray,
     table: np.ndarray,
     cost: np.ndarray,
-    present: np.ndarray,
+    present: np.ndarray | slice,
     insert_probes: int = 0,
     insert_worst: int = 0,
+    home_regions: np.ndarray | None = None,
 ) -> ProbeCell:
-    """Lookup costs in a filled table; ``present`` are the indices of the keys in it."""
+    """Lookup costs in a filled table; ``present`` are the indices of the keys in it (a slice for the first keys
+    of ``homes``). ``home_regions``, when given, is ``homes * region_count(m) // m``, computed once for the
+    measures of one table."""
     slots = len(table)
     stride = max(1, slots // MISS_STARTS)
     regions = region_count(slots)
-    region_of_home = homes[present] * regions // slots
+    present_cost = cost[present]
+    region_of_home = home_regions[present] if home_regions is not None else homes[present] * regions // slots
     keys_per_region = np.bincount(region_of_home, minlength=regions)
     bins = min(slots + 2, HISTOGRAM_BINS)
     if kind == "robin-hood":
@@ -434,8 +447,8 @@ def measure(
         hit_sums = np.zeros(regions, dtype=np.int64)
         _robin_hood_hits(homes, table, hits, hit_sums)
     else:
-        hits = np.bincount(cost[present])
-        hit_sums = np.bincount(region_of_home, weights=cost[present], minlength=regions)
+        hits = np.bincount(present_cost)
+        hit_sums = np.bincount(region_of_home, weights=present_cost, minlength=regions)
     misses = np.zeros(bins, dtype=np.int64)
     miss_sums = np.zeros(regions, dtype=np.int64)
     if kind == "chaining":
@@ -448,12 +461,12 @@ def measure(
         miss_worst = _misses_quadratic(table, stride, misses, miss_sums)
     else:
         miss_worst = _misses_double(table, stride, is_power_of_two(slots), misses, miss_sums)
-    starts_per_region = np.bincount(np.arange(0, slots, stride) * regions // slots, minlength=regions)
+    starts_per_region = _starts_per_region(slots, stride, regions)
     if kind == "robin-hood":
         occupied = np.flatnonzero(table >= 0)
         hit_worst = float(((occupied - homes[table[occupied]]) % slots).max() + 1) if len(occupied) else 0.0
     else:
-        hit_worst = float(cost[present].max()) if len(present) else 0.0
+        hit_worst = float(present_cost.max()) if len(present_cost) else 0.0
     hit_mean, hit_p99, hit_max = _summary(hits, float(hit_sums.sum()), hit_worst)
     miss_mean, miss_p99, miss_max = _summary(misses, float(miss_sums.sum()), float(miss_worst))
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -462,7 +475,7 @@ def measure(
     return ProbeCell(
         kind,
         load,
-        len(present),
+        len(present_cost),
         slots,
         hit_mean,
         hit_p99,
@@ -527,10 +540,12 @@ def simulate(
     done = 0
     probes = 0
     worst = 0
+    regions = region_count(slots)
+    home_regions = homes * regions // slots  # once for every load's measure
     for load, n in usable:
         spent, high = insert_keys(kind, homes, steps, order, done, n, table, cost)
         done = n
         probes += spent
         worst = max(worst, high)
-        cells.append(measure(kind, load, homes, table, cost, order[:n], probes, worst))
+        cells.append(measure(kind, load, homes, table, cost, slice(0, n), probes, worst, home_regions))
     return cells
