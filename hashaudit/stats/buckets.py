@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -30,6 +31,11 @@ class BucketCountsResult:
     width: int
     keys: int
     counts: np.ndarray
+
+    @cached_property
+    def occupied(self) -> np.ndarray:
+        """The counts of the occupied buckets, in bucket order (every test of fit needs only these)."""
+        return self.counts[self.counts > 0]
 
     @property
     def load_factor(self) -> float:
@@ -68,6 +74,7 @@ class BucketCounts:
         # 4-byte counts while no bucket can pass 2^32 - 1 (half the memory of a large table), 8-byte after
         self.counts_ = np.zeros(self.buckets, dtype=np.uint32)
         self.keys_seen_ = 0
+        self._result: BucketCountsResult | None = None  # the last result(), until the counts change
 
     def settings(self) -> tuple[str, int, str, int, int]:
         """The settings two accumulators must share to be merged."""
@@ -76,6 +83,7 @@ class BucketCounts:
     def update(self, hashes: np.ndarray) -> BucketCounts:
         """Count a batch of hash values (``uint64[n]``, or ``uint64[n, 2]`` for 128-bit functions)."""
         self._widen_for(int(hashes.shape[0]))
+        self._result = None
         add_counts(hashes, self.scheme, self.buckets, self.width, self.counts_)
         self.keys_seen_ += int(hashes.shape[0])
         return self
@@ -92,6 +100,7 @@ class BucketCounts:
             theirs = other.settings() if isinstance(other, BucketCounts) else type(other).__name__
             raise MergeError(f"cannot merge bucket counts {theirs} into {mine}: settings differ")
         self._widen_for(other.keys_seen_)
+        self._result = None
         if self.counts_.dtype != other.counts_.dtype:
             self.counts_ = self.counts_.astype(np.int64)
         self.counts_ += other.counts_
@@ -106,12 +115,14 @@ class BucketCounts:
         return twin
 
     def result(self) -> BucketCountsResult:
-        """The counts so far (int64), frozen."""
-        counts = self.counts_.astype(np.int64)
-        counts.setflags(write=False)
-        return BucketCountsResult(
-            self.hash_name, self.seed, self.scheme, self.buckets, self.width, self.keys_seen_, counts
-        )
+        """The counts so far (int64), frozen (the same object until more keys are counted)."""
+        if self._result is None:
+            counts = self.counts_.astype(np.int64)
+            counts.setflags(write=False)
+            self._result = BucketCountsResult(
+                self.hash_name, self.seed, self.scheme, self.buckets, self.width, self.keys_seen_, counts
+            )
+        return self._result
 
     def __eq__(self, other: object) -> bool:
         if not isinstance(other, BucketCounts):

@@ -162,9 +162,7 @@ def bucket_tests(result: BucketCountsResult, seed: int = 0, *, with_max_load: bo
         Include ``max_load`` (its distribution is the costly part; callers that only need the other tests skip it).
     """
     # every statistic needs only the occupied buckets (n of them at most)
-    return occupied_bucket_tests(
-        result.counts[result.counts > 0], result.keys, result.buckets, seed, with_max_load=with_max_load
-    )
+    return occupied_bucket_tests(result.occupied, result.keys, result.buckets, seed, with_max_load=with_max_load)
 
 
 def occupied_counts(hashes: np.ndarray, scheme: str, buckets: int, width: int) -> np.ndarray:
@@ -283,7 +281,7 @@ def occupied_bucket_tests(
 
 def occupancy_table(result: BucketCountsResult, max_rows: int = 64) -> dict[str, Any]:
     """Buckets holding exactly k keys, observed and expected under uniform hashing (binomial)."""
-    occupied = result.counts[result.counts > 0]
+    occupied = result.occupied
     observed = np.bincount(occupied, minlength=1)
     observed[0] = result.buckets - len(occupied)
     top = min(len(observed) - 1, max_rows)
