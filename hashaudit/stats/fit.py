@@ -52,9 +52,14 @@ RARE_PAIRS = 50.0  # below this many expected colliding pairs (or empty buckets)
 WILLIAMS_MAX_BUCKETS = 1000  # above, G's chi-square approximation is off even with Williams's correction
 
 
+def _square_sum(counts: np.ndarray) -> int:
+    """Σ c² in integers: exact, and no BLAS call (whose threads cost milliseconds to wake on a busy machine)."""
+    c = counts.astype(np.int64, copy=False)
+    return int(np.dot(c, c))
+
+
 def _colliding_pairs(counts: np.ndarray) -> float:
-    c = counts.astype(np.float64)
-    return float(np.dot(c, c - 1.0) / 2.0)
+    return float((_square_sum(counts) - int(counts.sum())) / 2.0)
 
 
 def _g_statistic(counts: np.ndarray, expected_per_bucket: float) -> float:
@@ -63,9 +68,8 @@ def _g_statistic(counts: np.ndarray, expected_per_bucket: float) -> float:
 
 
 def _chi_square(counts: np.ndarray, keys: int, buckets: int) -> float:
-    # X^2 = (m/n) Σ c^2 - n: exact in float for the ranges we meet, and one pass over the counts
-    c = counts.astype(np.float64)
-    return float(buckets / keys * np.dot(c, c) - keys)
+    # X^2 = (m/n) Σ c^2 - n, with Σ c^2 exact, in one pass over the counts
+    return float(buckets / keys * float(_square_sum(counts)) - keys)
 
 
 def _lookup_cost(keys: int, pairs: float) -> float:
