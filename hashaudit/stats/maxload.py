@@ -376,6 +376,7 @@ def _pair_tail(m: int, n: int, k: int) -> float:
 # --------------------------------------------------------------------------------------------------------
 
 
+@lru_cache(maxsize=1024)  # the hash functions of an audit meet the same (m, n) and often the same maximum
 def _log_cdf(m: int, n: int, k: int, method: str) -> float:
     """log P(max <= k) for 1 <= k < n and m k >= n (so m >= 2)."""
     if m * k == n:
