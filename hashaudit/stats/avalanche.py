@@ -125,14 +125,15 @@ def _accumulate_kernel(original, flipped, parent, input_bit, keep, width, counts
             continue
         row = input_bit[f]
         slot = kept >> 6
-        mark = uint64(1) << uint64(kept & 63)
+        shift = uint64(kept & 63)
         for w in range(words):
             d = original[parent[f], w] ^ flipped[f, w]
             top = min(64, width - 64 * w)
             for j in range(top):
-                if (d >> uint64(j)) & uint64(1):
-                    counts[row, 64 * w + j] += 1
-                    columns[64 * w + j, slot] |= mark
+                # branch-free: an output bit flips about half the time, so a branch on it would mispredict often
+                bit = (d >> uint64(j)) & uint64(1)
+                counts[row, 64 * w + j] += np.int64(bit)
+                columns[64 * w + j, slot] |= bit << shift
         kept += 1
     return kept
 
