@@ -18,6 +18,7 @@ import hashaudit._numba_setup  # noqa: F401  (sets the numba cache folder before
 import numpy as np
 from numba import njit, uint64
 
+from hashaudit.hashes.murmur import _load64
 from hashaudit.keys.batch import KeyBatch
 
 _MASK64 = (1 << 64) - 1
@@ -61,17 +62,7 @@ def _siphash24_kernel(data, offsets, out, k0, k1):  # pragma: no cover - compile
         v3 = init3
         p = start
         while p < block_end:
-            # byte by byte: keys start at any alignment; LLVM fuses this into one load
-            m = (
-                uint64(data[p])
-                | (uint64(data[p + 1]) << uint64(8))
-                | (uint64(data[p + 2]) << uint64(16))
-                | (uint64(data[p + 3]) << uint64(24))
-                | (uint64(data[p + 4]) << uint64(32))
-                | (uint64(data[p + 5]) << uint64(40))
-                | (uint64(data[p + 6]) << uint64(48))
-                | (uint64(data[p + 7]) << uint64(56))
-            )
+            m = _load64(data, p)  # little-endian, at any alignment
             v3 ^= m
             v0, v1, v2, v3 = _sipround(v0, v1, v2, v3)
             v0, v1, v2, v3 = _sipround(v0, v1, v2, v3)
