@@ -46,12 +46,20 @@ def _sipround(v0, v1, v2, v3):  # pragma: no cover - compiled
 
 
 @njit(cache=True, nogil=True)
+def _sip_init(k0, k1):  # pragma: no cover - compiled
+    """The state before any message word: the key mixed with "somepseudorandomlygeneratedbytes", the paper's
+    initialisation constants."""
+    return (
+        k0 ^ uint64(0x736F6D6570736575),
+        k1 ^ uint64(0x646F72616E646F6D),
+        k0 ^ uint64(0x6C7967656E657261),
+        k1 ^ uint64(0x7465646279746573),
+    )
+
+
+@njit(cache=True, nogil=True)
 def _siphash24_kernel(data, offsets, out, k0, k1):  # pragma: no cover - compiled
-    # "somepseudorandomlygeneratedbytes", the paper's initialisation constants
-    init0 = k0 ^ uint64(0x736F6D6570736575)
-    init1 = k1 ^ uint64(0x646F72616E646F6D)
-    init2 = k0 ^ uint64(0x6C7967656E657261)
-    init3 = k1 ^ uint64(0x7465646279746573)
+    init0, init1, init2, init3 = _sip_init(k0, k1)
     for i in range(len(offsets) - 1):
         start = offsets[i]
         length = offsets[i + 1] - start

@@ -71,7 +71,7 @@ import numpy as np
 from numba import njit, uint64
 
 from hashaudit.hashes.murmur import _load64
-from hashaudit.hashes.siphash import _sipround
+from hashaudit.hashes.siphash import _sip_init, _sipround
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.placements.jvm import REPLACEMENT, _next_code_point
 from hashaudit.placements.rules import ModLayout
@@ -178,10 +178,7 @@ def _finish(v0, v1, v2, v3, word, total):  # pragma: no cover - compiled
 
 @njit(cache=True, nogil=True)
 def _py_hash_kernel(data, offsets, k0, k1, out):  # pragma: no cover - compiled
-    init0 = k0 ^ uint64(0x736F6D6570736575)
-    init1 = k1 ^ uint64(0x646F72616E646F6D)
-    init2 = k0 ^ uint64(0x6C7967656E657261)
-    init3 = k1 ^ uint64(0x7465646279746573)
+    init0, init1, init2, init3 = _sip_init(k0, k1)
     for i in range(len(offsets) - 1):
         start = offsets[i]
         stop = offsets[i + 1]
