@@ -8,10 +8,12 @@ significant upper-tail departure (``warn`` or ``fail``) in at most a share ``alp
 at most that share. :func:`calibration` runs independent null audits — random distinct keys (byte strings or
 64-bit integers), strong keyed functions under a seed drawn per audit (SipHash-2-4, XXH3, and SipHash truncated
 to 32 bits so that full-width collisions happen at all), key counts drawn log-uniformly, one power-of-two table
-(``mask``) and one prime table (``mod``) at load factors from 0.1 to 8 — and summarises every check's p-values.
+(``mask``) and one prime table (``mod``) at load factors from 0.1 to 8, the same keys also under a few systems'
+placement rules (``NULL_PLACEMENTS``) — and summarises every check's p-values.
 
 **Power.** :func:`power` plants departures of known size (keys forced into a few buckets, weak low bits, a
-biased output bit, an input bit that leaks linearly into an output bit, GF(2)-linear functions) at several
+biased output bit, an input bit that leaks linearly into an output bit, GF(2)-linear functions, a hash-tag family
+pinned to one cluster slot, keys whose ``String.hashCode`` steps in strides of the partition count) at several
 strengths and counts how often each check fails (or fails or warns). Strength 0 is the same construction with
 nothing planted: its row is the false-detection rate of that setting.
 
@@ -46,6 +48,7 @@ from hashaudit.calibration.checks import (
     NULL_GROUPS,
     NULL_LAW,
     NULL_LAW_KINDS,
+    NULL_PLACEMENTS,
     finding_label,
     law_kind,
     null_law,
@@ -110,6 +113,7 @@ __all__ = [
     "NULL_LAW",
     "NULL_LAW_KINDS",
     "NULL_LOADS",
+    "NULL_PLACEMENTS",
     "PROBE_COST_KINDS",
     "PROBE_COST_RUNS",
     "PROBE_COST_SLOTS",

@@ -48,7 +48,7 @@ COMBINED_LAWS: dict[str, str] = {
     "probe_cost": "Welch t on region means, Bonferroni over cells",
 }
 # Words of a method text whose null law is discrete, so that its p-values need only be super-uniform.
-DISCRETE_WORDS = ("Poisson", "simulated", "multinomial maximum")
+DISCRETE_WORDS = ("Poisson", "simulated", "multinomial maximum", "binomial test")
 
 # Checks with one finding per bucketing scheme: their label adds the scheme (``chi_square mask``).
 BUCKET_LABELS = GROUP_BY_NAME["buckets"].check_names
@@ -62,16 +62,36 @@ AGGREGATE_PARTS: dict[str, str] = {
     "bit_independence": "chi_square_p_upper",
 }
 AGGREGATE_LAW = "chi-square with k degrees of freedom"
+# Checks with one finding per system placement: their label adds the placement (``placement_balance
+# kafka:partitions=6``).
+PLACEMENT_LABELS = GROUP_BY_NAME["placement"].check_names
 # A second audit family leaves these checks out, so that the audit-level rates read with and without the
 # simulated tables (whose null is studied by table size on its own).
 REJUDGED_WITHOUT = ("probe_cost",)
+# A third family keeps only the placement checks: the false-failure rate of an audit of system placements alone.
+PLACEMENT_FAMILY = "placement checks alone"
 
 # Left out of the by-law calibration table: colliding_pairs shares chi_square's p-values (its statistic is an
 # affine function of chi_square's), and probe_cost has a table of its own, by simulated table size.
 BY_LAW_LEFT_OUT = ("colliding_pairs", "probe_cost")
 
 # The check groups of every null audit.
-NULL_GROUPS = ("buckets", "bits", "collisions", "avalanche", "tables")
+NULL_GROUPS = ("buckets", "bits", "collisions", "avalanche", "tables", "placement")
+# The system placements of every null audit: the broker's producer on a small and on a prime partition count, the
+# cluster's 16,384 slots on 5 nodes (unequal slot ranges), and two rings — the wide-column store's random tokens,
+# whose arcs differ by a factor of several, and ketama's 160 points per server. Their rules hash the key bytes
+# with the system's own hash (murmur2, CRC16, MurmurHash3, MD5), not the study's seeded function: the null keys
+# are i.i.d. uniform byte strings, so each value is an independent draw of that hash over uniform input — exactly
+# uniform for CRC16 (a linear map onto its 16 bits) and murmur2 (each 4-byte block mixed by a bijection and XORed
+# in), taken as uniform for MurmurHash3 and MD5 — and what the study calibrates is the rule's mapping to units
+# (shares, growth, ring arcs) and the statistics on top of it.
+NULL_PLACEMENTS = (
+    "kafka:partitions=6",
+    "kafka:partitions=31",
+    "redis-cluster:nodes=5",
+    "cassandra:nodes=8",
+    "ketama:servers=5",
+)
 
 # Per planted departure: the check groups its audits run, and the check labels its power table reports.
 DEPARTURE_GROUPS: dict[str, tuple[str, ...]] = {
@@ -80,7 +100,12 @@ DEPARTURE_GROUPS: dict[str, tuple[str, ...]] = {
     "biased_bit": ("bits",),
     "leaky_input_bit": ("avalanche",),
     "linear": ("avalanche",),
+    "tag_family": ("placement",),
+    "key_stride": ("placement",),
 }
+# The placements of the planted placement departures.
+TAG_FAMILY_PLACEMENT = "redis-cluster:nodes=6"
+STRIDE_PLACEMENTS = ("jvm-hashcode-mod:n=16", "kafka:partitions=16")
 DEPARTURE_LABELS: dict[str, tuple[str, ...]] = {
     "forced_buckets": tuple(f"{check} mask" for check in BUCKET_LABELS),
     "weak_low_bits": (
@@ -95,6 +120,8 @@ DEPARTURE_LABELS: dict[str, tuple[str, ...]] = {
     "biased_bit": ("bit_bias", "bit_correlation"),
     "leaky_input_bit": ("avalanche", "bit_independence"),
     "linear": ("avalanche", "bit_independence"),
+    "tag_family": (f"placement_balance {TAG_FAMILY_PLACEMENT}", f"hash_tag_pinning {TAG_FAMILY_PLACEMENT}"),
+    "key_stride": tuple(f"placement_balance {p}" for p in STRIDE_PLACEMENTS),
 }
 
 
@@ -114,7 +141,10 @@ def aggregate_label(check: str) -> str:
 
 
 def finding_label(finding: Finding) -> str:
-    """``chi_square mask``, ``probe_cost linear``, ``bit_bias``: a check and, where it has several, its table."""
+    """``chi_square mask``, ``probe_cost linear``, ``bit_bias``, ``placement_balance kafka:partitions=6``: a check
+    and, where it has several, its table or placement."""
+    if finding.check in PLACEMENT_LABELS:
+        return f"{finding.check} {finding.hash_name}"
     if finding.check in TABLE_LABELS:
         return f"{finding.check} {finding.details.get('table_kind')}"
     if finding.scheme is not None and finding.check in BUCKET_LABELS:

@@ -1,10 +1,12 @@
 """Power: audits of planted departures of known size, and how often each check finds them.
 
 :func:`power` plants departures (keys forced into a few buckets, weak low bits, a biased output bit, an input bit
-that leaks linearly into an output bit, GF(2)-linear functions; :mod:`hashaudit.calibration.defects`) at several
-strengths and counts how often each check fails (or fails or warns). Strength 0 is the same construction with
-nothing planted: its row is the false-detection rate of that setting. The check groups each departure runs and the
-check labels it reports are looked up in :mod:`hashaudit.calibration.checks`.
+that leaks linearly into an output bit, GF(2)-linear functions; :mod:`hashaudit.calibration.defects`; and, under
+systems' placement rules, a hash-tag family pinned to one cluster slot and keys whose ``String.hashCode`` values
+step in strides of the partition count) at several strengths and counts how often each check fails (or fails or
+warns, or is ``info``). Strength 0 is the same construction with nothing planted: its row is the false-detection
+rate of that setting. The check groups each departure runs and the check labels it reports are looked up in
+:mod:`hashaudit.calibration.checks`.
 """
 
 from __future__ import annotations
@@ -112,6 +114,51 @@ def _leaky_input_bit(share: float, rng: np.random.Generator) -> tuple[KeyBatch, 
     return batch, plan, registry_of(spec)
 
 
+_KEY_ALPHABET = np.frombuffer(b"ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789-_", dtype=np.uint8)
+
+
+def _text_keys(rng: np.random.Generator, keys: int, length: int = 16) -> list[bytes]:
+    """``keys`` distinct random keys of ``length`` characters from a 64-letter alphabet (no braces)."""
+    rows = _KEY_ALPHABET[rng.integers(0, len(_KEY_ALPHABET), size=(keys, length))]
+    return list(dict.fromkeys(bytes(row) for row in rows))
+
+
+def _tag_family(share: float, rng: np.random.Generator) -> tuple[KeyBatch, AuditPlan, HashRegistry]:
+    """Random untagged keys, a share of them replaced by keys sharing one hash tag ``{tag}`` (drawn per run), which
+    the cluster's rule hashes alone: the whole family lands on one slot."""
+    keys = _text_keys(rng, 20_000)
+    planted = int(round(share * len(keys)))
+    tag = bytes(_KEY_ALPHABET[rng.integers(0, len(_KEY_ALPHABET), size=10)])
+    family = [b"{" + tag + b"}:" + key for key in keys[:planted]]
+    plan = AuditPlan(
+        seed=int(rng.integers(1 << 63)),
+        checks=checks.DEPARTURE_GROUPS["tag_family"],
+        placements=(checks.TAG_FAMILY_PLACEMENT,),
+        avalanche_keys=len(keys),  # the key sample holds every key: the tag counts are exact
+    )
+    return KeyBatch.from_keys(family + keys[planted:]), plan, registry_of()
+
+
+def _key_stride(share: float, rng: np.random.Generator) -> tuple[KeyBatch, AuditPlan, HashRegistry]:
+    """Random keys, a share of them replaced by keys of one prefix (drawn per run) whose last three characters
+    ``a b c`` satisfy ``a - b + c ≡ 0 (mod 16)``: as 31 ≡ -1 (mod 16), their ``String.hashCode`` values then step in
+    strides of 16, and ``abs(h % 16)`` sends the family to at most two of 16 partitions."""
+    keys = _text_keys(rng, 20_000)
+    planted = int(round(share * len(keys)))
+    prefix = bytes(_KEY_ALPHABET[rng.integers(0, len(_KEY_ALPHABET), size=10)])
+    codes = _KEY_ALPHABET.astype(np.int64)
+    a, b, c = np.meshgrid(codes, codes, codes, indexing="ij")
+    triples = np.stack([a.ravel(), b.ravel(), c.ravel()], axis=1)[(a - b + c).ravel() % 16 == 0]
+    chosen = triples[rng.choice(len(triples), size=planted, replace=False)]
+    family = [prefix + bytes(int(x) for x in row) for row in chosen]
+    plan = AuditPlan(
+        seed=int(rng.integers(1 << 63)),
+        checks=checks.DEPARTURE_GROUPS["key_stride"],
+        placements=checks.STRIDE_PLACEMENTS,
+    )
+    return KeyBatch.from_keys(family + keys[planted:]), plan, registry_of()
+
+
 def _linear(name: str, rng: np.random.Generator) -> tuple[KeyBatch, AuditPlan, HashRegistry]:
     batch = random_keys(rng, 4_096, "bytes", 16)
     registry = registry_of(xor_rotations()) if name == "xor_rotations" else registry_of(builtins=(name,))
@@ -172,6 +219,27 @@ DEPARTURES: dict[str, Departure] = {
             _linear,
             "random 16-byte keys, avalanche sample of 256 keys",
         ),
+        Departure(
+            "tag_family",
+            "share of keys in one hash-tag family",
+            (0.0, 0.005, 0.01, 0.02, 0.05, 0.1),
+            20_000,
+            checks.DEPARTURE_LABELS["tag_family"],
+            _tag_family,
+            f"random 16-character keys (no braces) under `{checks.TAG_FAMILY_PLACEMENT}`; a share of them replaced "
+            "by keys `{tag}:…` sharing one hash tag, drawn per run",
+        ),
+        Departure(
+            "key_stride",
+            "share of keys whose String.hashCode steps in strides of 16",
+            (0.0, 0.005, 0.01, 0.02, 0.05, 0.1),
+            20_000,
+            checks.DEPARTURE_LABELS["key_stride"],
+            _key_stride,
+            f"random 16-character keys under `{'` and `'.join(checks.STRIDE_PLACEMENTS)}`; a share of them replaced "
+            "by keys of one 10-character prefix whose last three characters a, b, c have a − b + c ≡ 0 (mod 16), so "
+            "that their String.hashCode values (31 ≡ −1 mod 16) step in strides of 16",
+        ),
     )
 }
 
@@ -221,8 +289,8 @@ def power(
     Returns
     -------
     dict
-        ``rows``: one per (departure, strength, check label) with ``keys``, ``runs``, ``fail`` and
-        ``warn_or_fail`` counts, their rates and the median effect; ``departures``: the description of each;
+        ``rows``: one per (departure, strength, check label) with ``keys``, ``runs``, ``fail``, ``warn_or_fail``
+        and ``info`` counts, their rates and the median effect; ``departures``: the description of each;
         ``seconds``.
     """
     started = time.perf_counter()
@@ -244,6 +312,7 @@ def power(
                 effects = [r["effects"][label] for r in mine if label in r["effects"]]
                 fail = sum(v == "fail" for v in verdicts)
                 either = sum(v in ("warn", "fail") for v in verdicts)
+                info = sum(v == "info" for v in verdicts)
                 rows.append(
                     {
                         "departure": name,
@@ -253,8 +322,10 @@ def power(
                         "runs": len(mine),
                         "fail": fail,
                         "warn_or_fail": either,
+                        "info": info,
                         "fail_rate": fail / len(mine),
                         "detection_rate": either / len(mine),
+                        "info_rate": info / len(mine),
                         "median_effect": float(np.median(effects)) if effects else None,
                     }
                 )

@@ -3,7 +3,8 @@
 :func:`calibration` runs independent null audits — random distinct keys (byte strings or 64-bit integers), strong
 keyed functions under a seed drawn per audit (SipHash-2-4, XXH3, and SipHash truncated to 32 bits so that
 full-width collisions happen at all), key counts drawn log-uniformly, one power-of-two table (``mask``) and one
-prime table (``mod``) at load factors from 0.1 to 8 — and summarises every check's p-values
+prime table (``mod``) at load factors from 0.1 to 8, and the same keys under a few systems' placement rules
+(``NULL_PLACEMENTS``: their own hashes of uniform random key bytes) — and summarises every check's p-values
 (:mod:`hashaudit.calibration.rates`). :func:`probe_cost_null` does the same for ``probe_cost`` alone, by simulated
 table size. Which checks are combined, which are facts and how findings are labelled is looked up in
 :mod:`hashaudit.calibration.checks`.
@@ -124,8 +125,16 @@ def null_configs(
     return configs
 
 
-def null_run(config: dict, *, avalanche_keys: int = 256, threads: int = 0) -> dict:
-    """One null audit (see :func:`null_configs`).
+def null_run(
+    config: dict,
+    *,
+    avalanche_keys: int = 256,
+    threads: int = 0,
+    groups: Sequence[str] = checks.NULL_GROUPS,
+    placements: Sequence[str] = checks.NULL_PLACEMENTS,
+) -> dict:
+    """One null audit (see :func:`null_configs`) of the check ``groups``, with the system ``placements`` when the
+    ``placement`` group is among them.
 
     Returns
     -------
@@ -135,8 +144,8 @@ def null_run(config: dict, *, avalanche_keys: int = 256, threads: int = 0) -> di
         :func:`~hashaudit.calibration.checks.null_law`; the combined checks with an aggregate chi-square part,
         ``avalanche`` and ``bit_independence``, add it as ``avalanche aggregate`` and ``bit_independence
         aggregate``, whose law is continuous), ``fails`` (labels failing), and ``audit``: per family (``all``
-        checks, and ``without probe_cost``, judged again by :func:`rejudge`) whether the audit failed, had an
-        upper-tail rejection (``warn`` or ``fail``) or a lower-tail one (``info``).
+        checks, and, judged again by :func:`rejudge`, ``without probe_cost`` and ``placement checks alone``)
+        whether the audit failed, had an upper-tail rejection (``warn`` or ``fail``) or a lower-tail one (``info``).
     """
     rng = np.random.default_rng([config["seed"], 0xC0FFEE])
     batch = random_keys(rng, config["keys"], config["key_kind"], config["key_bytes"])
@@ -144,8 +153,9 @@ def null_run(config: dict, *, avalanche_keys: int = 256, threads: int = 0) -> di
         hashes=(config["hash"],),
         buckets=(config["mask_buckets"], config["mod_buckets"]),
         seed=config["seed"],
-        checks=checks.NULL_GROUPS,
+        checks=tuple(groups),
         avalanche_keys=avalanche_keys,
+        placements=tuple(placements) if "placement" in groups else (),
     )
     registry = registry_of(siphash24_low32(), builtins=NULL_HASHES[:2])
     started = time.perf_counter()
@@ -170,6 +180,8 @@ def null_run(config: dict, *, avalanche_keys: int = 256, threads: int = 0) -> di
     audit[f"without {', '.join(checks.REJUDGED_WITHOUT)}"] = _outcome(
         rejudge(findings, plan.thresholds, checks.REJUDGED_WITHOUT)
     )
+    others = sorted({f.check for f in findings} - set(checks.PLACEMENT_LABELS))
+    audit[checks.PLACEMENT_FAMILY] = _outcome(rejudge(findings, plan.thresholds, others))
     return {
         **config,
         "keys": result.keys,
@@ -251,6 +263,8 @@ def calibration(
     avalanche_keys: int = 256,
     alpha: float = 0.01,
     workers: int = 1,
+    groups: Sequence[str] = checks.NULL_GROUPS,
+    placements: Sequence[str] = checks.NULL_PLACEMENTS,
 ) -> dict:
     """Run ``runs`` independent null audits and summarise them (:func:`null_configs`, :func:`null_run`,
     :func:`summarise_null_runs`).
@@ -270,6 +284,10 @@ def calibration(
         Family-wise alpha of each audit (the default of ``Thresholds``).
     workers : int
         Processes; 1 runs in this process with an audit's own threads. The numbers do not depend on it.
+    groups : sequence of str
+        The check groups of every audit (default: ``NULL_GROUPS``, every group the study calibrates).
+    placements : sequence of str
+        The system placements of every audit, when ``groups`` has ``placement`` (default: ``NULL_PLACEMENTS``).
 
     Returns
     -------
@@ -279,7 +297,13 @@ def calibration(
     """
     started = time.perf_counter()
     configs = null_configs(runs, seed, min_keys=min_keys, max_keys=max_keys, key_counts=key_counts)
-    task = functools.partial(null_run, avalanche_keys=avalanche_keys, threads=1 if workers > 1 else 0)
+    task = functools.partial(
+        null_run,
+        avalanche_keys=avalanche_keys,
+        threads=1 if workers > 1 else 0,
+        groups=tuple(groups),
+        placements=tuple(placements),
+    )
     rows = parallel_map(task, configs, workers)
     settings = {
         "runs": runs,
@@ -291,7 +315,8 @@ def calibration(
         "alpha": alpha,
         "loads": list(NULL_LOADS),
         "hashes": list(NULL_HASHES),
-        "groups": list(checks.NULL_GROUPS),
+        "groups": list(groups),
+        "placements": list(placements) if "placement" in groups else [],
     }
     summary = summarise_null_runs(rows, alpha)
     return {"settings": settings, **summary, "runs": rows, "seconds": round(time.perf_counter() - started, 2)}

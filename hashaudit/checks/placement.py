@@ -2,6 +2,11 @@
 nodes — under that system's exact placement rule (``hashaudit.placements.rules``), against an ideal hash placed by
 the same rule, and how many keys move when the system grows. Each placement is a subject of its own in the reports.
 
+``placement_balance`` also gives, as the shard checks' ``hot_keys`` and ``load_attribution`` do, the unit with the
+most load (occurrences, or a weight column) over its fair share: how much of it its heaviest keys carry, and those
+keys by handle (fingerprint, the system's hash value, load, unit; the key only with ``--show-keys``); its message says
+it when a few keys make that unit hot (``hashaudit.checks._hot``).
+
 Two facts that inform and never fail: ``placement_agreement`` (two rules with the same units, such as a JVM and a
 C-client producer of one topic, compared key by key: the share of distinct keys they place on different units,
 which is the share whose per-key order mixed producers break) and ``hash_tag_pinning`` (keys sharing a cluster hash
@@ -22,11 +27,17 @@ from hashaudit.verdict.words import count, excess, num, pct
 def _balance(test: Any) -> str:
     d, e = test.details, test.effect
     unit = d.get("unit", "unit")
-    return (
+    sentence = (
         f"the hottest {unit} {d.get('hottest_shard')} holds {num(d.get('hottest_keys', 0))} distinct keys, "
         f"{e.observed:.3f}× its share against an expected maximum of {e.ideal:.3f}× for an ideal hash under the same "
         f"rule ({excess(e.value)}; χ² = {num(test.statistic)} on {num(test.expected)} df)"
     )
+    hot = d.get("load_attribution", {}).get("hot_message")
+    if not hot:
+        return sentence
+    # where the shard checks would say hot_keys (a few keys make a unit hot), the finding says it too; whether the
+    # rule is to blame for the distinct keys is this finding's own verdict, so the load part leaves that out
+    return f"{sentence}; by load, {hot.removesuffix('; the hash is not to blame')}"
 
 
 def _movement(test: Any) -> str:
@@ -90,7 +101,30 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
             resized = getattr(counts.layout, "resized", None)
             if test.name == "shard_movement" and resized is not None:
                 details["grown_to"] = resized(units + 1).shards  # how the system grows: a unit more, or a doubling
+            if test.name == "shard_balance":
+                details.update(_hot_unit(ctx, state.spec, counts))
             yield None, None, keys, replace(test, name=named[test.name], details=details)
+
+
+def _hot_unit(ctx: Conclusion, spec: Any, counts: Any) -> dict:
+    """The shard checks' hot keys and attribution for the unit with the most load over its fair share: the heavy
+    keys there by handle (``heavy_keys``; the key only with ``--show-keys``) and ``load_attribution``, with the
+    sentences of ``hot_keys`` and ``load_attribution`` in the unit's own word."""
+    import re
+
+    from hashaudit.checks._hot import attribution_findings
+
+    found = {f.check: f for f in attribution_findings(ctx, spec, [counts])}
+    if not found:  # no heavy-key summary, or no load at all
+        return {}
+    hot, attribution = found["hot_keys"], found["load_attribution"]
+    worded = {k: re.sub(r"\bshard\b", spec.unit, f.message) for k, f in found.items()}  # "shard 4" → "partition 4"
+    summary = {k: v for k, v in attribution.details.items() if k not in ("shards", "shard_scheme", "heavy_keys")}
+    summary["hot"] = hot.verdict == "info"  # a few keys carry most of the excess: ``hot_keys`` would be info
+    summary["message"] = worded["load_attribution"]
+    if summary["hot"]:
+        summary["hot_message"] = worded["hot_keys"]
+    return {"heavy_keys": attribution.details.get("heavy_keys", []), "load_attribution": summary}
 
 
 def _facts(ctx: Conclusion) -> list:
@@ -269,14 +303,14 @@ GROUP = CheckGroup(
         Check(
             "placement_balance",
             _balance,
-            null_law="not_studied",
+            null_law="uniform_p",
             help="distinct keys per unit (partition, node) under the system's rule",
             figure="shards",
         ),
         Check(
             "placement_movement",
             _movement,
-            null_law="not_studied",
+            null_law="uniform_p",
             help="keys moving when the system gains a unit",
         ),
         Check(
@@ -314,4 +348,5 @@ GROUP = CheckGroup(
     conclude=_conclude,
     facts=_facts,
     needs_sample=True,
+    needs_heavy=True,
 )

@@ -12,8 +12,6 @@ from hashaudit.verdict.words import count, excess, num, pct
 
 SHARD_SCHEMES = ("mod", "jump", "rendezvous", "ring")
 MAX_SHARDS = 1 << 16
-HEAVY_SHOWN = 20  # the heaviest keys placed on shards for the attribution
-HEAVY_HANDLES = 5  # of them, the ones on the hottest shard named by fingerprint and hash value
 
 
 def _balance(test: Any) -> str:
@@ -61,58 +59,12 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
 
 def _facts(ctx: Conclusion) -> list:
     """``hot_keys`` and ``load_attribution``: the heaviest keys placed on each layout's shards by each hash."""
-    import numpy as np
+    from hashaudit.checks._hot import attribution_findings
 
-    from hashaudit.keys.batch import KeyBatch
-    from hashaudit.verdict.attribution import load_findings
-
-    if ctx.heavy is None:
-        return []
-    from hashaudit.hashes.fingerprint import heavy_fingerprints
-
-    top = ctx.heavy.top(HEAVY_SHOWN)
-    handles = heavy_fingerprints(KeyBatch.from_keys([k for k, _ in top])) if top else None
     findings = []
     for state in ctx.states:
-        layouts = state.get("shards")
-        if not layouts:
-            continue
-        spec, seed = state.spec, ctx.plan.seed
-        batch = KeyBatch.from_keys([k for k, _ in top])
-        values = spec.hash_batch(batch, seed if spec.seeded else 0) if top else None
-        placed = []
-        for counts in layouts:
-            where = counts.layout.assign(values, spec.width) if values is not None else np.zeros(0, np.int64)
-            placed.append((counts, [(key, load, int(s)) for (key, load), s in zip(top, where.tolist(), strict=True)]))
-        found = load_findings(spec.name, placed, ctx.heavy, ctx.plan.thresholds.shard_imbalance)
-        _add_handles(found, placed, handles, values, spec.width)
-        findings += found
+        findings += attribution_findings(ctx, state.spec, state.get("shards"))
     return findings
-
-
-def _add_handles(findings: list, placed: list, handles: Any, values: Any, width: int) -> None:
-    """Give each finding the heavy keys on its hottest shard as handles a user can act on: the key's 64-bit
-    fingerprint (the one ``--show-keys`` and the heavy-key summary use) and its value under this hash; never the
-    key itself (``--show-keys`` adds it)."""
-    from hashaudit.stats.shards import HEAVY_SHARE
-
-    for finding in findings:
-        d = finding.details
-        for counts, keys in placed:
-            if (counts.layout.shards, counts.layout.scheme) != (d.get("shards"), d.get("shard_scheme")):
-                continue
-            floor = HEAVY_SHARE * float(d.get("total_load", 0)) * float(counts.layout.shares(counts.width).min())
-            d["heavy_keys"] = [
-                {
-                    "fingerprint": f"{int(handles[i]):016x}",
-                    "hash": f"{int(values[i] if values.ndim == 1 else values[i, 0]):0{min(width, 64) // 4}x}",
-                    "load": load,
-                    "shard": shard,
-                }
-                for i, (_, load, shard) in enumerate(keys)
-                if shard == d.get("hottest_shard") and load >= floor
-            ][:HEAVY_HANDLES]
-            break
 
 
 def _prepare(values: dict) -> None:
