@@ -2,12 +2,15 @@
 
 Runs :func:`hashaudit.calibration.study`: 2,000 independent null audits (random distinct keys, 2,000 to 200,000 of
 them, through SipHash-2-4, XXH3 or SipHash truncated to 32 bits under a seed drawn per audit; one ``mask`` and one
-``mod`` table at load factors 0.1 to 8; bucket, bit, full-width collision, avalanche and simulated-table checks),
-40 audits per strength of five planted departures, and 200 null runs of ``probe_cost`` per table size and kind.
-Everything derives from one seed; the numbers do not depend on ``--workers``.
+``mod`` table at load factors 0.1 to 8; bucket, bit, full-width collision, avalanche and simulated-table checks,
+and the same keys under five systems' placement rules), 40 audits per strength of the planted departures (among
+them a hash-tag family and a key stride for the placement checks), and 200 null runs of ``probe_cost`` per table
+size and kind. Everything derives from one seed; the numbers do not depend on ``--workers``.
 
-Run time: 666 s (calibration 460 s, power 173 s, ``probe_cost`` by table size 33 s) on this machine's 2 cores with
-``--workers 2``, measured while other jobs shared the cores; peak memory 0.5 GiB. Usage:
+Run time before the placement checks joined: 666 s (calibration 460 s, power 173 s, ``probe_cost`` by table size
+33 s) on this machine's 2 cores with ``--workers 2``, measured while other jobs shared the cores; peak memory
+0.5 GiB. With the placements, the null audits alone took 2,412 s on 2 shared cores (2026-12-03); the whole script
+was not timed again. Usage:
 ``python bench/validation.py [--workers N] [--null-runs N] [--power-runs N] [--seed S]``, or
 ``--render bench/data/validation.json`` to print the tables of an earlier run.
 """
