@@ -104,6 +104,7 @@ def test_every_check_group_gives_the_local_engines_report(tmp_path):
     assert dist.run["partitions"] > 5 and _same(local, dist)
 
 
+@pytest.mark.slow  # 8 s; the Dask engine's other tests stay fast
 def test_normalised_row_groups_and_skipped_lines_are_counted_as_the_local_engine_counts_them(tmp_path):
     """Source stats (records, keys, skipped) are part of the report: byte ranges with bad lines skipped, and Parquet
     row groups with a normalisation, must count as the local reader does."""

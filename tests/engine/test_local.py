@@ -33,8 +33,11 @@ def stable(result) -> str:
     return json.dumps(doc, sort_keys=True)
 
 
-# batches of one key are slow by nature (a dozen seconds): with the slow tests; two keys cover the same edge
-@pytest.mark.parametrize("size", [pytest.param(1, marks=pytest.mark.slow), 2, 50, len(KEYS), len(KEYS) + 42])
+# batches of one or two keys are slow by nature (a dozen seconds): with the slow tests; 50 keys stay in the fast ones
+@pytest.mark.parametrize(
+    "size",
+    [pytest.param(1, marks=pytest.mark.slow), pytest.param(2, marks=pytest.mark.slow), 50, len(KEYS), len(KEYS) + 42],
+)
 def test_result_does_not_depend_on_batch_size(size):
     reference = stable(audit_batches(batches_of(1000), PLAN))
     assert stable(audit_batches(batches_of(size), PLAN)) == reference
@@ -139,7 +142,7 @@ def test_report_shows_no_raw_key():
 
 
 @pytest.mark.parametrize("hashes", [("murmur3_32",), ("murmur3_32", "fnv1a_64", "xxh3_64")])
-@pytest.mark.parametrize("threads", [2, 3])
+@pytest.mark.parametrize("threads", [2, pytest.param(3, marks=pytest.mark.slow)])
 def test_threads_give_identical_results(hashes, threads):
     plan = AuditPlan(hashes=hashes, buckets=(1024, 1021), schemes=("mod", "range"))
     one = stable(audit_batches(batches_of(700), plan, threads=1))

@@ -8,6 +8,8 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+
 SAMPLE = Path(__file__).resolve().parents[2] / "sample_keys" / "tracking_lookups.csv"
 
 
@@ -23,6 +25,8 @@ def _result(tmp_path: Path, name: str, *extra: str) -> str:
     return json.dumps(doc, sort_keys=True)
 
 
+# about 17 s; the thread counts are also compared in tests/engine/test_local.py and tests/properties/test_batching.py
+@pytest.mark.slow
 def test_repeated_runs_and_thread_counts_give_identical_results(tmp_path):
     first = _result(tmp_path, "a.json")
     assert _result(tmp_path, "b.json") == first

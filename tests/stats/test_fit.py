@@ -28,7 +28,7 @@ def by_name(tests):
     ("m", "n"),
     [
         (16, 40),  # small table, sparse: simulated null
-        (200, 300),  # small sparse: simulated null
+        pytest.param(200, 300, marks=pytest.mark.slow),  # small sparse: simulated null (7 s; (16, 40) stays fast)
         (4096, 2048),  # large sparse: exact moments / Morris
         (4096, 40_000),  # dense: chi-square(m-1)
         (65536, 30_000),  # very sparse: Poisson for pairs
