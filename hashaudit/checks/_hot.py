@@ -31,10 +31,11 @@ def heaviest(ctx: Conclusion) -> tuple[list[tuple[bytes, float]], Any]:
     return ctx.shared[_SHARED]
 
 
-def attribution_findings(ctx: Conclusion, spec: Any, layouts: list) -> list:
+def attribution_findings(ctx: Conclusion, spec: Any, layouts: list, unit: str = "shard") -> list:
     """The ``hot_keys`` and ``load_attribution`` findings of ``spec`` (a hash function or a placement) for each of
     its ``layouts`` (``ShardCounts``), the heavy keys on the hottest unit in their details (``heavy_keys``); none
-    when the audit keeps no heavy-key summary."""
+    when the audit keeps no heavy-key summary. ``unit`` is what the sentences call a shard (a placement's
+    ``partition``, ``node``, ``slot``)."""
     import numpy as np
 
     from hashaudit.keys.batch import KeyBatch
@@ -51,7 +52,7 @@ def attribution_findings(ctx: Conclusion, spec: Any, layouts: list) -> list:
     for counts in layouts:
         where = counts.layout.assign(values, spec.width) if values is not None else np.zeros(0, np.int64)
         placed.append((counts, [(key, load, int(s)) for (key, load), s in zip(top, where.tolist(), strict=True)]))
-    found = load_findings(spec.name, placed, ctx.heavy, ctx.plan.thresholds.shard_imbalance)
+    found = load_findings(spec.name, placed, ctx.heavy, ctx.plan.thresholds.shard_imbalance, unit)
     _add_handles(found, placed, handles, values, spec.width)
     return found
 

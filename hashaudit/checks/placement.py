@@ -110,20 +110,17 @@ def _hot_unit(ctx: Conclusion, spec: Any, counts: Any) -> dict:
     """The shard checks' hot keys and attribution for the unit with the most load over its fair share: the heavy
     keys there by handle (``heavy_keys``; the key only with ``--show-keys``) and ``load_attribution``, with the
     sentences of ``hot_keys`` and ``load_attribution`` in the unit's own word."""
-    import re
-
     from hashaudit.checks._hot import attribution_findings
 
-    found = {f.check: f for f in attribution_findings(ctx, spec, [counts])}
+    found = {f.check: f for f in attribution_findings(ctx, spec, [counts], spec.unit)}
     if not found:  # no heavy-key summary, or no load at all
         return {}
     hot, attribution = found["hot_keys"], found["load_attribution"]
-    worded = {k: re.sub(r"\bshard\b", spec.unit, f.message) for k, f in found.items()}  # "shard 4" → "partition 4"
     summary = {k: v for k, v in attribution.details.items() if k not in ("shards", "shard_scheme", "heavy_keys")}
     summary["hot"] = hot.verdict == "info"  # a few keys carry most of the excess: ``hot_keys`` would be info
-    summary["message"] = worded["load_attribution"]
+    summary["message"] = attribution.message
     if summary["hot"]:
-        summary["hot_message"] = worded["hot_keys"]
+        summary["hot_message"] = hot.message
     return {"heavy_keys": attribution.details.get("heavy_keys", []), "load_attribution": summary}
 
 

@@ -24,7 +24,11 @@ def _pct(x: float) -> str:
 
 
 def load_findings(
-    hash_name: str, placed: list[tuple[Any, list[tuple[bytes, float, int]]]], heavy: HeavyKeys, shard_imbalance: float
+    hash_name: str,
+    placed: list[tuple[Any, list[tuple[bytes, float, int]]]],
+    heavy: HeavyKeys,
+    shard_imbalance: float,
+    unit: str = "shard",
 ) -> list[Finding]:
     """The ``hot_keys`` and ``load_attribution`` findings of one hash function.
 
@@ -37,6 +41,8 @@ def load_findings(
         The summary the keys come from (whether their loads are exact, its error bound and floor).
     shard_imbalance : float
         The threshold above which the hottest shard's excess counts as hot.
+    unit : str, default "shard"
+        What the sentences call a shard (a placement's ``partition``, ``node``, ``slot``).
     """
     findings = []
     for counts, keys in placed:
@@ -46,11 +52,11 @@ def load_findings(
         a["heavy_keys_exact"] = heavy.exact
         a["heavy_count_error"] = rounded(heavy.error_)
         a["heavy_keys_above"] = rounded(heavy.floor_)  # settled: every key heavier than this is listed, exactly
-        findings += _findings(hash_name, int(counts.distinct_.sum()), a, shard_imbalance)
+        findings += _findings(hash_name, int(counts.distinct_.sum()), a, shard_imbalance, unit)
     return findings
 
 
-def _findings(hash_name: str, keys: int, a: dict, shard_imbalance: float) -> list[Finding]:
+def _findings(hash_name: str, keys: int, a: dict, shard_imbalance: float, unit: str) -> list[Finding]:
     shard, share, fair = a["hottest_shard"], a["load_share"], a["fair_share"]
     excess = share - fair
     points = a["points_from_heavy_keys"]
@@ -70,19 +76,19 @@ def _findings(hash_name: str, keys: int, a: dict, shard_imbalance: float) -> lis
     hash_heavy = a["distinct_share"] > a["ideal_max_distinct_share"]
     hash_part = (
         f"by distinct keys it holds {_pct(a['distinct_share'])}, more than the {_pct(a['ideal_max_distinct_share'])} an "
-        "ideal hash gives its fullest shard in 99 cases out of 100: the hash places too many keys there"
+        f"ideal hash gives its fullest {unit} in 99 cases out of 100: the hash places too many keys there"
         if hash_heavy
-        else f"by distinct keys it holds {_pct(a['distinct_share'])} (an ideal hash gives its fullest shard up to "
+        else f"by distinct keys it holds {_pct(a['distinct_share'])} (an ideal hash gives its fullest {unit} up to "
         f"{_pct(a['ideal_max_distinct_share'])} in 99 cases out of 100): the hash itself is balanced"
     )
     above = f"{100 * excess:.1f} points above"
     sentence = (
-        f"shard {shard} carries {_pct(share)} of the load against a fair {_pct(fair)} ({above}); "
+        f"{unit} {shard} carries {_pct(share)} of the load against a fair {_pct(fair)} ({above}); "
         + (
-            f"{count(many, 'heavy key')} there: {carried}, and without {'it' if many == 1 else 'them'} the shard would carry "
+            f"{count(many, 'heavy key')} there: {carried}, and without {'it' if many == 1 else 'them'} the {unit} would carry "
             f"{_pct(without)} of the rest; "
             if many
-            else "no key there carries even 1 % of a shard's fair load; "
+            else f"no key there carries even 1 % of a {unit}'s fair load; "
         )
         + hash_part
     )
@@ -93,12 +99,12 @@ def _findings(hash_name: str, keys: int, a: dict, shard_imbalance: float) -> lis
         else f"{100 * left:.1f} of the {100 * excess:.1f} points above a fair share stay"
     )
     hot_sentence = (
-        f"{keys_word} {'makes' if many == 1 else 'make'} shard {shard} hot ({_pct(share)} of the load against a fair "
-        f"{_pct(fair)}): {carried}; without {'it' if many == 1 else 'them'} the shard would carry {_pct(without)} "
+        f"{keys_word} {'makes' if many == 1 else 'make'} {unit} {shard} hot ({_pct(share)} of the load against a fair "
+        f"{_pct(fair)}): {carried}; without {'it' if many == 1 else 'them'} the {unit} would carry {_pct(without)} "
         f"of the rest, so {gone} — split or cache {'that key' if many == 1 else 'those keys'}; the hash is not to "
         "blame"
         if hot
-        else f"no few keys explain shard {shard}'s load ({_pct(share)} against a fair {_pct(fair)})"
+        else f"no few keys explain {unit} {shard}'s load ({_pct(share)} against a fair {_pct(fair)})"
     )
     where = {k: a[k] for k in ("shards", "shard_scheme")}
     common = dict(a)
