@@ -102,4 +102,23 @@ def configure_numba_cache() -> str | None:
     return str(base / _versions())
 
 
+def skip_blas_probe() -> None:
+    """Import numba's array functions with scipy's BLAS hidden, unless one of them is imported already.
+
+    When numba first compiles or loads a kernel it imports ``numba.np.arraymath``, which imports
+    ``scipy.linalg.cython_blas`` to learn whether ``np.convolve`` and ``np.correlate`` of floats inside a kernel
+    may call BLAS; that import of ``scipy.linalg`` was measured at 0.14-0.34 s of every audit. hashaudit's kernels
+    call neither function (nor ``np.dot``, which asks again when it is compiled), so the probe is made to fail
+    once: numba then takes its own loop for those two functions, and ``scipy.linalg`` imports as usual afterwards.
+    """
+    if "numba.np.arraymath" in sys.modules or "scipy.linalg.cython_blas" in sys.modules:
+        return
+    sys.modules["scipy.linalg.cython_blas"] = None  # type: ignore[assignment]  # an import of it raises ImportError
+    try:
+        import numba.np.arraymath  # noqa: F401
+    finally:
+        del sys.modules["scipy.linalg.cython_blas"]
+
+
 configure_numba_cache()
+skip_blas_probe()

@@ -5,8 +5,9 @@ Light to import (no numpy): ``hashaudit --help`` reads the groups' settings from
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Callable, Iterable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, Any
 
 from hashaudit.settings import Setting
@@ -149,7 +150,8 @@ class Conclusion:
     plots : dict
         Figure data by hash name, for the HTML page (groups add theirs).
     shared : dict
-        Work shared by the hashes of one audit (e.g. neighbour key families), by a group's own key.
+        Work shared by the hashes of one audit (e.g. neighbour key families), by a group's own key; fill it
+        through ``once``, since groups may conclude on several threads at a time.
     figures : bool
         Whether the HTML page's figures are asked for: a group computes figure data only then (see ``plot``).
     """
@@ -165,7 +167,28 @@ class Conclusion:
     shared: dict = field(default_factory=dict)
     figures: bool = True
 
+    guard: threading.Lock = field(default_factory=threading.Lock, repr=False, compare=False)
+    building: dict = field(default_factory=dict, repr=False, compare=False)
+
     def plot(self, hash_name: str, name: str, data: Any) -> None:
         """Keep figure data of one hash (when the figures are asked for)."""
         if self.figures:
             self.plots.setdefault(hash_name, {})[name] = data
+
+    def once(self, key: Any, build: Callable[[], Any]) -> Any:
+        """``shared[key]``, made by ``build()`` the first time it is asked for; a group concluding on another
+        thread that asks meanwhile waits for that one build instead of making its own."""
+        with self.guard:
+            if key in self.shared:
+                return self.shared[key]
+            lock = self.building.setdefault(key, threading.Lock())
+        with lock:
+            if key not in self.shared:
+                self.shared[key] = build()
+            return self.shared[key]
+
+    def for_one_group(self) -> Conclusion:
+        """A view for one group's conclusion: the same accumulators, ``shared`` and ``once``, with figure data of
+        its own (merged into ``plots`` by the engine in the groups' order, so the page does not depend on which
+        group finished first)."""
+        return replace(self, plots={})

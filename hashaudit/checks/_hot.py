@@ -21,14 +21,15 @@ _SHARED = "heaviest keys"  # the key of the top keys and their fingerprints in `
 def heaviest(ctx: Conclusion) -> tuple[list[tuple[bytes, float]], Any]:
     """The ``HEAVY_SHOWN`` heaviest keys with their loads, and their fingerprints (None without keys): computed once
     per audit, whichever group asks first."""
-    if _SHARED not in ctx.shared:
+
+    def build() -> tuple[list[tuple[bytes, float]], Any]:
         from hashaudit.hashes.fingerprint import heavy_fingerprints
         from hashaudit.keys.batch import KeyBatch
 
         top = ctx.heavy.top(HEAVY_SHOWN)
-        handles = heavy_fingerprints(KeyBatch.from_keys([k for k, _ in top])) if top else None
-        ctx.shared[_SHARED] = (top, handles)
-    return ctx.shared[_SHARED]
+        return top, heavy_fingerprints(KeyBatch.from_keys([k for k, _ in top])) if top else None
+
+    return ctx.once(_SHARED, build)
 
 
 def attribution_findings(ctx: Conclusion, spec: Any, layouts: list, unit: str = "shard") -> list:

@@ -46,15 +46,16 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
 
     if ctx.sample is None or not len(ctx.sample):
         return
-    if "neighbour_families" not in ctx.shared:  # built once, hashed by every function
-        integers = ctx.plan.neighbour_keys == "integers"
-        ctx.shared["neighbour_families"] = neighbour_families(ctx.sample, seed=ctx.plan.seed, integers=integers)
+    integers = ctx.plan.neighbour_keys == "integers"
+    families = ctx.once(  # built once, hashed by every function
+        "neighbour_families", lambda: neighbour_families(ctx.sample, seed=ctx.plan.seed, integers=integers)
+    )
     tables = ctx.tables
     spec = state.spec
     for _family, test in neighbour_tests(
         spec.hash_batch,
         spec.width,
-        ctx.shared["neighbour_families"],
+        families,
         tables,
         seed=ctx.plan.seed,
         seeded=spec.seeded,

@@ -48,17 +48,17 @@ def simulated(ctx: Conclusion, state: Any) -> tuple[Any, int, str] | None:
     kept = state.get("first_values")
     if not kept:
         return None
-    key = ("simulated", state.spec.name)
-    if key not in ctx.shared:
+
+    def build() -> tuple[Any, int, str] | None:
         values = kept[0].values()
         slots = simulated_slots(ctx.plan, len(values))
         if slots is None:
-            ctx.shared[key] = None
-        else:
-            power = is_power_of_two(slots)
-            scheme = next((s for s in ctx.plan.schemes if s in ("mod", "range") or power), "mask" if power else "mod")
-            ctx.shared[key] = (values, slots, scheme)
-    return ctx.shared[key]
+            return None
+        power = is_power_of_two(slots)
+        scheme = next((s for s in ctx.plan.schemes if s in ("mod", "range") or power), "mask" if power else "mod")
+        return values, slots, scheme
+
+    return ctx.once(("simulated", state.spec.name), build)
 
 
 def simulated_schemes(ctx: Conclusion, state: Any) -> list[str]:

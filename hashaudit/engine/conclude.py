@@ -7,10 +7,12 @@ and the table summaries. Nothing here names a check.
 
 from __future__ import annotations
 
+import contextlib
 import platform
 import sys
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Generator, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from typing import Any
 
 import numpy as np
@@ -39,6 +41,7 @@ def conclude(
     passes: int = 1,
     figures: bool = True,
     phase: Callable[[str], None] | None = None,
+    workers: int = 1,
 ) -> AuditResult:
     """Turn merged accumulators into the audit's result.
 
@@ -66,6 +69,9 @@ def conclude(
         simulation) and the flip matrices. Without it nothing is drawn and the JSON is the same.
     phase : callable, optional
         Told the step under way (``"avalanche checks of xxh3_64"``) before each one, for a progress line.
+    workers : int
+        Threads that conclude check groups at the same time (each group of each hash is one task; the kernels
+        release the GIL). The result does not depend on it: tests, findings and figures are gathered in order.
     """
     cut = 0
     whole_sample = sample.keys() if sample is not None else None  # the input's key lengths, for the kernel timings
@@ -73,22 +79,24 @@ def conclude(
         sample, cut = sample.cut_long_keys()
     ctx = Conclusion(plan, states, tables, keys, occurrences, sample, heavy, figures=figures)
     family: list[tuple[str, str | None, int | None, int, Any]] = []
-    for state in states:
-        for group in state.groups:
-            if group.conclude is not None:
+    units = [(state, group) for state in states for group in state.groups if group.conclude is not None]
+    with contextlib.closing(_conclude_groups(ctx, units, workers, phase)) as concluded:
+        for state in states:
+            for _ in (group for group in state.groups if group.conclude is not None):
+                plots, tested = next(concluded)
+                family += tested
+                for hash_name, named in plots.items():  # in the groups' order, whichever thread finished first
+                    ctx.plots.setdefault(hash_name, {}).update(named)
+            if figures and sample is not None and len(sample) >= CURVE_MIN_SAMPLE and state.spec.path != "placement":
                 if phase is not None:
-                    phase(f"{group.name} checks of {state.spec.name}")
-                family += [(state.spec.name, *tested) for tested in group.conclude(ctx, state)]
-        if figures and sample is not None and len(sample) >= CURVE_MIN_SAMPLE and state.spec.path != "placement":
-            if phase is not None:
-                phase(f"the no-collision curve of {state.spec.name} for the page")
-            from hashaudit.stats.curves import no_collision_curve
+                    phase(f"the no-collision curve of {state.spec.name} for the page")
+                from hashaudit.stats.curves import no_collision_curve
 
-            spec = state.spec
-            curve = no_collision_curve(
-                spec.hash_batch, spec.width, sample.keys(), tables, plan.seed, plan.seed if spec.seeded else 0
-            )
-            ctx.plot(spec.name, "no_collision", curve)
+                spec = state.spec
+                curve = no_collision_curve(
+                    spec.hash_batch, spec.width, sample.keys(), tables, plan.seed, plan.seed if spec.seeded else 0
+                )
+                ctx.plot(spec.name, "no_collision", curve)
     findings = judge(family, plan.thresholds)
     for group in plan.groups():
         if group.facts is not None:
@@ -130,6 +138,35 @@ def conclude(
     return AuditResult(
         overall, keys, tuple(hash_audits), tuple(sources), settings, run, occurrences, ctx.plots, tuple(tables), cut
     )
+
+
+def _conclude_groups(
+    ctx: Conclusion, units: list[tuple[Any, Any]], workers: int, phase: Callable[[str], None] | None
+) -> Generator[tuple[dict, list], None, None]:
+    """The figure data and tests of each (state, group) of ``units``, in that order, concluded on up to ``workers``
+    threads. A failure is raised here, in the unit's turn; the units not started by then are dropped."""
+
+    def run(state: Any, group: Any) -> tuple[dict, list]:
+        view = ctx.for_one_group()
+        tested = [(state.spec.name, *t) for t in group.conclude(view, state)]
+        return view.plots, tested
+
+    if workers <= 1 or len(units) <= 1:
+        for state, group in units:
+            if phase is not None:
+                phase(f"{group.name} checks of {state.spec.name}")
+            yield run(state, group)
+        return
+    pool = ThreadPoolExecutor(max_workers=min(workers, len(units)), thread_name_prefix="hashaudit-conclude")
+    try:
+        futures = [pool.submit(run, state, group) for state, group in units]
+        for (state, group), future in zip(units, futures, strict=True):
+            if phase is not None:
+                phase(f"{group.name} checks of {state.spec.name}")
+            yield future.result()
+    finally:
+        # on an error, a signal or Ctrl-C: the groups under way finish, the others never start
+        pool.shutdown(wait=False, cancel_futures=True)
 
 
 def _summary(table: Any, loads: list[Any]) -> TableSummary:

@@ -278,6 +278,7 @@ def audit_batches(
         passes=parts + extra_reads,
         figures=figures,
         phase=phase,
+        workers=_lane_count(threads, len(specs)),
     )
 
 

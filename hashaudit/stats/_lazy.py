@@ -18,3 +18,5 @@ class LazyModule:
 
 
 special = LazyModule("scipy.special")
+optimize = LazyModule("scipy.optimize")  # 0.2 s to import, for one root finder of the max-load law
+fft = LazyModule("scipy.fft")

@@ -54,10 +54,10 @@ from functools import lru_cache
 
 import numpy as np
 from numpy.polynomial import hermite_e
-from scipy import optimize, special
-from scipy.fft import next_fast_len, rfft
+from scipy import special
 
 from hashaudit.errors import UsageError
+from hashaudit.stats._lazy import fft, optimize
 
 # The numerics shared with the closed forms; hashaudit.stats.theory imports this module, never the reverse.
 from hashaudit.stats._numeric import (
@@ -545,10 +545,10 @@ def _log_point_direct(weights: np.ndarray, offsets: np.ndarray, mean_shift: floa
 
 def _log_point_fft(weights: np.ndarray, support: np.ndarray, load: float, m: int, n: int, period: int) -> float:
     """log P(W = n) by the exact inversion sum, with φ at all frequencies from one FFT (small m only)."""
-    period = next_fast_len(period)
+    period = fft.next_fast_len(period)
     anchor = round(load)
     folded = np.bincount(((support - anchor) % period).astype(np.int64), weights=weights, minlength=period)
-    spectrum = np.conj(rfft(folded))  # φ of Y - anchor at θ_t = 2πt/period
+    spectrum = np.conj(fft.rfft(folded))  # φ of Y - anchor at θ_t = 2πt/period
     modulus = np.abs(spectrum)
     # Frequencies where |φ|^m < e^-60 add nothing visible; skip their exp and cos.
     kept = np.flatnonzero(modulus > math.exp(-60.0 / m))
