@@ -8,7 +8,8 @@ nearly Poisson distributed; ``collision_tests`` compares the observed count with
 How the values are kept
 -----------------------
 The accumulator stores every hash value it is given (the engine passes only those of first occurrences, so one
-value per distinct key: 8 bytes per key, 16 for 128-bit functions) in slabs of at most 64 MiB. While the slabs
+value per distinct key: 4 bytes per key for 32-bit functions, 8 for 64-bit ones, 16 for 128-bit ones) in slabs of
+at most 16 MiB. While the slabs
 stay within ``memory_bytes`` everything is sorted in memory at the end. Past the budget the slabs are
 *spilled*: each is split into 256 partitions (a counting sort) and appended to one file per partition (raw
 little-endian ``uint64``; ``(low, high)`` word pairs for 128-bit values) in a private folder (``hashaudit-spill-``
@@ -28,8 +29,9 @@ line turns it into ``SystemExit``; only SIGKILL or a crash leaves a folder behin
 disk space), keeps the result, and returns the same result when called again; ``update`` and ``merge`` then
 refuse. Take a ``copy()`` first to keep accumulating.
 
-Memory: with the default 1 GiB budget, 10^8 distinct 64-bit values (800 MB) stay in memory; at the end each
-slab is replaced by its partitioned copy, so the peak is about the values plus one slab plus one partition. Larger
+Memory: with the default 1 GiB budget, 10^8 distinct 64-bit values (800 MB) stay in memory, or 2 x 10^8 32-bit
+ones; at the end each slab is replaced by its partitioned copy (in the slab's width), so the peak is about the
+values plus one slab plus one partition. Larger
 sets spill, and the final peak is one partition plus its sort workspace (a 64-bit partition is sorted in place;
 for 128-bit values only the high words are sorted, and the few rows whose high word repeats are then sorted in
 full). Only a hash that gives many keys the same value defeats the partitions: all of them land in one.
@@ -335,7 +337,10 @@ class FullCollisions:
         self.spilled_bytes_ = 0
         self.result_: FullCollisionsResult | None = None
         self._words = 2 if self.width == 128 else 1
-        row_bytes = 8 * self._words
+        # 32-bit values are kept in 4 bytes in memory (half the memory, so twice the keys before a spill); they
+        # are widened to 8 wherever they are partitioned, written or counted, so results and spill files are the same
+        self._dtype = np.dtype(np.uint32 if self.width == 32 else np.uint64)
+        row_bytes = self._row_bytes = self._dtype.itemsize * self._words
         self._slab_rows = max(1, min(SLAB_BYTES, max(MIN_SLAB_BYTES, self.memory_bytes)) // row_bytes)
         self._slabs: list[np.ndarray] = []  # all full except the last, which holds _fill rows
         self._fill = 0
@@ -354,7 +359,7 @@ class FullCollisions:
     @property
     def memory_bytes_used(self) -> int:
         """Bytes of hash values held in memory now."""
-        return self._memory_rows * 8 * self._words
+        return self._memory_rows * self._row_bytes
 
     @property
     def spilled(self) -> bool:
@@ -383,6 +388,8 @@ class FullCollisions:
         if not shape_ok:
             wanted = "uint64[n, 2] (low, high words)" if self._words == 2 else "uint64[n]"
             raise UsageError(f"{self.width}-bit hash values must be {wanted}, not an array of shape {values.shape}")
+        if self.width == 32 and values.size and int(values.max()) >> 32:
+            raise UsageError(f"hash {self.hash_name!r} is declared 32-bit but gave a value of 2^32 or more")
         self._add_rows(values.reshape(-1, self._words))
         self.keys_seen_ += int(values.shape[0])
         return self
@@ -392,9 +399,9 @@ class FullCollisions:
         start, n = 0, rows.shape[0]
         while start < n:
             if not self._slabs or self._fill == self._slabs[-1].shape[0]:
-                last = self._slabs[-1].shape[0] if self._slabs else FIRST_SLAB_BYTES // (8 * self._words) // 2
+                last = self._slabs[-1].shape[0] if self._slabs else FIRST_SLAB_BYTES // self._row_bytes // 2
                 rows_next = min(self._slab_rows, 2 * last)
-                self._slabs.append(np.empty((rows_next, self._words), dtype=np.uint64))
+                self._slabs.append(np.empty((rows_next, self._words), dtype=self._dtype))
                 self._fill = 0
             slab = self._slabs[-1]
             take = min(n - start, slab.shape[0] - self._fill)
@@ -406,8 +413,18 @@ class FullCollisions:
                 self._spill()
 
     def _memory_parts(self) -> list[np.ndarray]:
-        """Views of the rows held in memory."""
+        """Views of the rows held in memory (``uint32`` rows for 32-bit values; see ``_wide``)."""
         return [slab if i < len(self._slabs) - 1 else slab[: self._fill] for i, slab in enumerate(self._slabs)]
+
+    @staticmethod
+    def _wide(rows: np.ndarray) -> np.ndarray:
+        """``rows`` as ``uint64`` (a new array for 32-bit rows, the same one otherwise)."""
+        return rows if rows.dtype == np.uint64 else rows.astype(np.uint64)
+
+    def _partitioned(self, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """A copy of the memory rows ``rows`` grouped by partition, in the rows' own width, with the bounds."""
+        out, bounds = _partitioned(self._wide(rows))
+        return (out if out.dtype == rows.dtype else out.astype(rows.dtype)), bounds
 
     # ---- disk ---------------------------------------------------------------------------------------------
 
@@ -434,7 +451,7 @@ class FullCollisions:
         parts = self._memory_parts()
         self._slabs, self._fill, self._memory_rows = [], 0, 0
         while parts:
-            self._append_partitioned(parts.pop(0))  # the slab is freed as soon as it is written
+            self._append_partitioned(self._wide(parts.pop(0)))  # the slab is freed as soon as it is written
 
     def _append_partitioned(self, rows: np.ndarray) -> None:
         out, bounds = _partitioned(rows)
@@ -543,16 +560,16 @@ class FullCollisions:
             return
         parts = self._memory_parts()
         self._slabs, self._fill, self._memory_rows = [], 0, 0
-        if len(parts) == 1:  # one slab (at most 64 MiB): sorted as a whole, partitions would only cost time
-            yield parts.pop()
+        if len(parts) == 1:  # one slab (at most 16 MiB): sorted as a whole, partitions would only cost time
+            yield self._wide(parts.pop())
             return
         pieces = []
         while parts:
-            pieces.append(_partitioned(parts.pop(0)))  # each slab is freed once partitioned
+            pieces.append(self._partitioned(parts.pop(0)))  # each slab is freed once partitioned
         for p in range(PARTITIONS):
             chunks = [rows[bounds[p] : bounds[p + 1]] for rows, bounds in pieces if bounds[p + 1] > bounds[p]]
             if chunks:
-                yield chunks[0] if len(chunks) == 1 else np.concatenate(chunks)
+                yield self._wide(chunks[0] if len(chunks) == 1 else np.concatenate(chunks))
 
     def _read_and_remove(self, partition: int) -> np.ndarray:
         rows = self._read(partition)
@@ -565,12 +582,13 @@ class FullCollisions:
         ``whole`` (leaves the state as it is)."""
         if whole:
             disk = [self._read(int(p)) for p in np.flatnonzero(self._disk_rows)]
-            yield np.concatenate([np.empty((0, self._words), dtype=np.uint64), *disk, *self._memory_parts()])
+            memory = [self._wide(part) for part in self._memory_parts()]
+            yield np.concatenate([np.empty((0, self._words), dtype=np.uint64), *disk, *memory])
             return
-        pieces = [_partitioned(part) for part in self._memory_parts()]
+        pieces = [self._partitioned(part) for part in self._memory_parts()]
         for p in range(PARTITIONS):
             chunks = [self._read(p)] if self._disk_rows[p] else []
-            chunks += [rows[bounds[p] : bounds[p + 1]] for rows, bounds in pieces]
+            chunks += [self._wide(rows[bounds[p] : bounds[p + 1]]) for rows, bounds in pieces]
             yield np.concatenate([np.empty((0, self._words), dtype=np.uint64), *chunks])
 
     def _summarize(self, partitions: Iterator[np.ndarray]) -> FullCollisionsResult:

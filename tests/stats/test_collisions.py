@@ -7,6 +7,7 @@ digits. The 4.66 pairs of 200 000 keys in 32 bits is C(200000, 2) / 2^32 = 19 99
 
 from __future__ import annotations
 
+import dataclasses
 import gc
 import math
 import os
@@ -197,21 +198,44 @@ class TestFullCollisionsSmallSlabs(TestFullCollisions):
 
     def test_values_fill_several_slabs(self):
         acc = self.whole()
-        assert len(acc._slabs) == -(-N * 8 * acc._words // 8192) > 1
+        assert len(acc._slabs) == -(-N * acc._row_bytes // 8192) > 1
+        assert acc.memory_bytes_used == N * (4 if self.width == 32 else 8 * acc._words)  # 32-bit values in 4 bytes
 
 
 class TestFullCollisions128SmallSlabs(TestFullCollisionsSmallSlabs):
     width = 128
 
 
+class TestFullCollisions32SmallSlabs(TestFullCollisionsSmallSlabs):
+    # 32-bit values are kept in 4 bytes and widened to 8 where they are partitioned and counted
+    width = 32
+
+
 class TestFullCollisionsSpilled(TestFullCollisions):
-    # 32-bit values spill through the same code as 64-bit ones: test_spilled_and_in_memory_results_are_identical
     memory_bytes = 512
     spilled = True
 
 
+class TestFullCollisions32Spilled(TestFullCollisionsSpilled):
+    width = 32
+
+
 class TestFullCollisions128Spilled(TestFullCollisionsSpilled):
     width = 128
+
+
+def test_32_bit_values_take_half_the_memory_so_twice_as_many_stay_before_a_spill(tmp_path):
+    values = planted_values(32, 10_000, seed=3)
+    narrow = FullCollisions("h", 0, 32, memory_bytes=48_000, spill_dir=str(tmp_path)).update(values)
+    wide = FullCollisions("h", 0, 64, memory_bytes=48_000, spill_dir=str(tmp_path)).update(values)
+    assert not narrow.spilled and narrow.memory_bytes_used == 40_000
+    assert wide.spilled  # 80,000 bytes in 8-byte rows
+    assert narrow.result() == dataclasses.replace(wide.result(), width=32)
+
+
+def test_a_32_bit_store_refuses_a_value_of_2_to_the_32():
+    with pytest.raises(UsageError, match="declared 32-bit"):
+        FullCollisions("h", 0, 32).update(np.array([1, 1 << 32], dtype=np.uint64))
 
 
 # ------------------------------------------------------------------------------------------------------------
