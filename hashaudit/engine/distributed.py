@@ -20,8 +20,8 @@ fingerprint — and the client settles the summary with the sums (``HeavyKeys.se
 a second read; so the heavy-key figures do not depend on the order partial summaries merged in, and the input is
 read once.
 
-Where a check needs one machine: the full-width collision values of each hash (8 bytes per distinct key; 16 for
-128-bit functions) and the values kept for the simulated tables (at most ``AUTO_TABLE_SLOTS`` or
+Where a check needs one machine: the full-width collision values of each hash (4 bytes per distinct key for 32-bit
+functions, 8 for 64-bit, 16 for 128-bit) and the values kept for the simulated tables (at most ``AUTO_TABLE_SLOTS`` or
 ``--table-slots``) are merged on the client. The rows of stage 1 — 24 + 8·h bytes per key read for h hash functions
 (8 more with weights) — wait in the workers' memory (Dask spills them to disk when it fills) until stage 2 takes
 them, one prefix group per task: about a ``prefix_parts``-th of them at a time.

@@ -2,9 +2,9 @@
 
 Three things grow with the input: the distinct-key fingerprint store (about 20 bytes per distinct key; what does
 not fit is read in more passes, one per part of the fingerprint space), the full-width hash values of the collision
-check (8 or 16 bytes per key and hash function; what does not fit is spilled to disk) and the tables' counts
-(4 bytes per bucket, per table and hash function; automatic sizes stop at 2^22 buckets). ``--memory`` bounds them
-together: the counts and the process's own footprint come off the top, the distinct-key store takes its share of
+check (4, 8 or 16 bytes per key and hash function, by its width; what does not fit is spilled to disk) and the
+tables' counts (4 bytes per bucket, per table and hash function; automatic sizes stop at 2^22 buckets).
+``--memory`` bounds them together: the counts and the process's own footprint come off the top, the distinct-key store takes its share of
 the rest first (another pass over the input costs more than spilling), and the hash functions' collision stores
 share what is left. ``--distinct-memory`` and ``--collision-memory`` still set a store's budget outright.
 """
