@@ -6,9 +6,9 @@ default audit), and a read-only install cannot cache at all. hashaudit's kernels
 
     $HASHAUDIT_CACHE_DIR/numba/py<X.Y>-numba<version>/hashaudit/<subpackage>/
 
-(``$HASHAUDIT_CACHE_DIR`` defaults to ``$XDG_CACHE_HOME/hashaudit``, that is ``~/.cache/hashaudit``; a temporary
-folder of the user's when that cannot be written), named by the module's place *inside* the package rather than by
-where the package is installed. numba stamps each cached kernel with a hash of its module's source and the CPU it
+(``$HASHAUDIT_CACHE_DIR`` defaults to ``$XDG_CACHE_HOME/hashaudit``, that is ``~/.cache/hashaudit``;
+``hashaudit-<uid>`` in the temporary folder when that cannot be written), named by the module's place *inside*
+the package rather than by where the package is installed. numba stamps each cached kernel with a hash of its module's source and the CPU it
 was compiled for, so any install of the same source on the same machine loads the kernels the first one compiled,
 and a changed module compiles anew. Kernels of other packages keep numba's usual folders; a ``NUMBA_CACHE_DIR``
 set by the user wins for every package, ours included.
@@ -35,16 +35,23 @@ def _writable(path: Path) -> bool:
         return False
 
 
-def cache_base() -> Path | None:
-    """The folder that holds the kernel cache: ``$HASHAUDIT_CACHE_DIR/numba`` (default
-    ``$XDG_CACHE_HOME/hashaudit/numba``), else a temporary folder of the user's; None when neither can be written."""
+def cache_root() -> Path | None:
+    """hashaudit's cache folder: ``$HASHAUDIT_CACHE_DIR`` (default ``$XDG_CACHE_HOME/hashaudit``), else
+    ``hashaudit-<uid>`` in the temporary folder; None when neither can be written. The kernels go to its
+    ``numba`` folder, the null results of :mod:`hashaudit.stats._memo` to its ``nulls`` folder."""
     base = os.environ.get("HASHAUDIT_CACHE_DIR") or os.path.join(
         os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache"), "hashaudit"
     )
-    for candidate in (Path(base) / "numba", Path(tempfile.gettempdir()) / f"hashaudit-numba-{os.getuid()}"):
+    for candidate in (Path(base), Path(tempfile.gettempdir()) / f"hashaudit-{os.getuid()}"):
         if _writable(candidate):
             return candidate
     return None
+
+
+def cache_base() -> Path | None:
+    """The folder that holds the kernel cache: ``numba`` in :func:`cache_root`; None when none can be written."""
+    root = cache_root()
+    return None if root is None else root / "numba"
 
 
 def _versions() -> str:

@@ -218,7 +218,9 @@ def expected_max_load(m: int | float, n: int | float) -> float:
         return 0.0
     if buckets == 1:
         return float(keys)
-    return _expected_max_load(buckets, keys, step=None)
+    from hashaudit.stats._memo import remembered  # kept on disk: it depends on (m, n) only
+
+    return remembered("expected_max_load", (buckets, keys), lambda: _expected_max_load(buckets, keys, step=None))
 
 
 def max_load_quantile(m: int | float, n: int | float, q: float) -> int:

@@ -23,12 +23,12 @@ A. M. Law, W. D. Kelton, Simulation Modeling and Analysis, 3rd ed., §9.5.3 (bat
 
 from __future__ import annotations
 
-import functools
 import math
 
 import numpy as np
 
 from hashaudit.stats._lazy import special
+from hashaudit.stats._memo import remembered
 from hashaudit.stats.outcome import Effect, FitTest
 from hashaudit.tables.growth import GrowthPolicy, GrowthResult, insertion_orders, replay_growth
 from hashaudit.tables.simulate import ProbeCell, simulate
@@ -37,8 +37,7 @@ MIN_MOMENT_SLOTS = 1 << 10
 THEORY_KIND = {"chaining": "chaining", "linear": "linear", "quadratic": "quadratic", "double": "double"}
 
 
-@functools.lru_cache(maxsize=64)
-def _ideal_cached(width: int, kind: str, slots: int, scheme: str, loads: tuple[float, ...], seed: int) -> tuple:
+def _ideal(width: int, kind: str, slots: int, scheme: str, loads: tuple[float, ...], seed: int) -> tuple:
     bits = min(width, 64)
     needed = int(max(loads) * slots)
     rng = np.random.default_rng([seed, bits, slots, len(kind), sum(map(ord, kind)), 0x9E0BE])
@@ -47,15 +46,13 @@ def _ideal_cached(width: int, kind: str, slots: int, scheme: str, loads: tuple[f
 
 
 def ideal_cells(width: int, kind: str, slots: int, scheme: str, loads: tuple[float, ...], seed: int) -> list[ProbeCell]:
-    """The same simulation with uniformly random values (seeded; cached, so several hash functions of one width
-    share it)."""
-    return list(_ideal_cached(int(width), kind, int(slots), scheme, tuple(loads), int(seed)))
+    """The same simulation with uniformly random values (seeded; computed once per machine, so several hash
+    functions of one width, and later audits of the same sizes, share it: :mod:`hashaudit.stats._memo`)."""
+    key = (int(width), kind, int(slots), scheme, tuple(loads), int(seed))
+    return list(remembered("ideal_cells", key, lambda: _ideal(*key)))
 
 
-@functools.lru_cache(maxsize=64)
-def _ideal_replay_cached(
-    width: int, kind: str, policy: GrowthPolicy, scheme: str, keys: int, seed: int
-) -> GrowthResult:
+def _ideal_replay(width: int, kind: str, policy: GrowthPolicy, scheme: str, keys: int, seed: int) -> GrowthResult:
     bits = min(width, 64)
     rng = np.random.default_rng([seed, bits, keys, sum(map(ord, kind + policy.label)), 0x6E0])
     values = rng.integers(0, (1 << bits) - 1, size=keys, dtype=np.uint64, endpoint=True)
@@ -63,8 +60,9 @@ def _ideal_replay_cached(
 
 
 def ideal_replay(width: int, kind: str, policy: GrowthPolicy, scheme: str, keys: int, seed: int) -> GrowthResult:
-    """``replay_growth`` of as many random values (seeded; cached across hash functions of one width)."""
-    return _ideal_replay_cached(int(width), kind, policy, scheme, int(keys), int(seed))
+    """``replay_growth`` of as many random values (seeded; computed once per machine, like ``ideal_cells``)."""
+    key = (int(width), kind, policy, scheme, int(keys), int(seed))
+    return remembered("ideal_replay", key, lambda: _ideal_replay(*key))
 
 
 def _theory(kind: str, load: float) -> dict[str, float | None]:
