@@ -4,9 +4,10 @@ Three things grow with the input: the distinct-key fingerprint store (about 20 b
 not fit is read in more passes, one per part of the fingerprint space), the full-width hash values of the collision
 check (4, 8 or 16 bytes per key and hash function, by its width; what does not fit is spilled to disk) and the
 tables' counts (4 bytes per bucket, per table and hash function; automatic sizes stop at 2^22 buckets).
-``--memory`` bounds them together: the counts and the process's own footprint come off the top, the distinct-key store takes its share of
-the rest first (another pass over the input costs more than spilling), and the hash functions' collision stores
-share what is left. ``--distinct-memory`` and ``--collision-memory`` still set a store's budget outright.
+``--memory`` bounds them together: the counts and the process's own footprint come off the top, the distinct-key
+store takes its share of the rest first (another pass over the input costs more than spilling; all of it when the
+collision check does not run), and the hash functions' collision stores share what is left. ``--distinct-memory``
+and ``--collision-memory`` still set a store's budget outright.
 """
 
 from __future__ import annotations
@@ -23,7 +24,8 @@ compiled kernels (a 3-key audit peaks near 220 MiB), the read buffers and the ar
 values, positions, a spill's partitioned copy): measured with ``bench/bench_memory.py``."""
 
 DISTINCT_SHARE = 0.6
-"""Of the stores' memory, the share the distinct-key store may take."""
+"""Of the stores' memory, the share the distinct-key store may take when the collision check runs (all of it
+otherwise)."""
 
 MIN_STORES = 32 << 20
 MIN_DISTINCT = 4 << 20
@@ -80,9 +82,11 @@ def share_memory(values: dict[str, Any]) -> None:
     """
     total = values["memory"] if values["memory"] is not None else default_memory()
     stores = max(MIN_STORES, total - BASE_BYTES - count_bytes(values))
+    collisions = "collisions" in values["checks"]  # the only other store: without it the distinct keys take all
     distinct = values["distinct_memory"]
     if distinct is None:
-        distinct = 0 if values["all_keys"] else max(MIN_DISTINCT, int(stores * DISTINCT_SHARE))
+        share = DISTINCT_SHARE if collisions else 1.0
+        distinct = 0 if values["all_keys"] else max(MIN_DISTINCT, int(stores * share))
         values["distinct_memory"] = max(distinct, MIN_DISTINCT)
     if values["collision_memory"] is None:
         left = max(MIN_COLLISIONS, stores - distinct)

@@ -11,8 +11,8 @@ The fingerprints sit in an ordered hash table (Amble & Knuth, "Ordered hash tabl
 position in the table's range (``high half × m / 2^64``), which is monotone — so the whole table is sorted, a
 lookup stops at the first larger fingerprint, and the table can grow by any factor in place: growing moves every
 fingerprint forward, never back, so it is done from the end of a ``realloc``-ed array (which the C library serves
-with ``mremap`` at these sizes) without a second copy. The table grows by half when seven eighths full, so it holds
-16 bytes per slot at load 0.58 to 0.875: 18 to 27 bytes per distinct key; sized up front when the key count is
+with ``mremap`` at these sizes) without a second copy. The table grows by half when four fifths full, so it holds
+16 bytes per slot at load 0.53 to 0.8: 20 to 30 bytes per distinct key; sized up front when the key count is
 known (``reserve``).
 
 A memory budget stops the audit with a clear message rather than exhausting the machine (``--all-keys`` counts

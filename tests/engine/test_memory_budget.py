@@ -45,6 +45,14 @@ def test_a_store_given_outright_keeps_its_budget_and_the_others_share_the_rest()
     assert AuditPlan(collision_memory="5m").collision_memory == 5 << 20
 
 
+def test_without_the_collision_check_the_distinct_keys_take_every_store_byte():
+    both, alone = AuditPlan(memory="1g"), AuditPlan(memory="1g", checks="buckets")
+    tables = count_bytes({"checks": alone.checks, "buckets": alone.buckets, "schemes": alone.schemes,
+                          "hashes": alone.hashes})  # fmt: skip
+    assert alone.distinct_memory == (1 << 30) - BASE_BYTES - tables  # 20 M distinct keys fit in one read
+    assert alone.distinct_memory > both.distinct_memory
+
+
 def test_every_occurrence_counted_leaves_the_distinct_share_to_the_collisions():
     assert AuditPlan(memory="2g", all_keys=True).collision_memory > AuditPlan(memory="2g").collision_memory
 
