@@ -216,7 +216,7 @@ def test_full_collisions_merge_in_any_order_equals_one_pass(width, memory_bytes,
         merged = merge_orders(parts, build, data)
         single = merged["single"]
         values = concat_values(parts, width)
-        if memory_bytes < 8 * len(values) * (2 if width == 128 else 1):
+        if memory_bytes < {32: 4, 64: 8, 128: 16}[width] * len(values):  # 32-bit values are kept in 4 bytes
             assert single.spilled
         for way, acc in merged.items():
             assert acc == single, way
