@@ -54,7 +54,7 @@ def cache_base() -> Path | None:
     return None if root is None else root / "numba"
 
 
-def _versions() -> str:
+def versions() -> str:
     import numba
 
     return f"py{sys.version_info[0]}.{sys.version_info[1]}-numba{numba.__version__}"
@@ -64,7 +64,7 @@ def _locator_class(base: Path) -> Any:
     """A numba cache locator for the modules of this package, rooted at ``base``."""
     from numba.core import caching
 
-    root = base / _versions()
+    root = base / versions()
 
     class PackageCacheLocator(caching._SourceFileBackedLocatorMixin, caching._CacheLocator):  # type: ignore[misc,name-defined]
         """Caches a hashaudit kernel under ``root`` by its module's path inside the package."""
@@ -106,7 +106,7 @@ def configure_numba_cache() -> str | None:
         return None
     classes[:] = [c for c in classes if getattr(c, "__name__", "") != "PackageCacheLocator"]
     classes.insert(0, _locator_class(base))
-    return str(base / _versions())
+    return str(base / versions())
 
 
 def skip_blas_probe() -> None:

@@ -167,9 +167,11 @@ def audit(sources, databases, show_keys, show_all, quiet, color, debug, engine, 
             list(sources), plan, options_, scheduler=scheduler, workers=workers, figures=bool(outputs.get("html"))
         )
     else:
+        from hashaudit.engine import warmup
         from hashaudit.engine.sources import audit as run_audit
 
         progress = _progress(quiet)
+        helper = warmup.start(plan)  # an empty kernel cache: a second process compiles half the kernels
         try:
             result = run_audit(
                 list(sources),
@@ -181,6 +183,7 @@ def audit(sources, databases, show_keys, show_all, quiet, color, debug, engine, 
                 figures=bool(outputs.get("html")),  # the page's figures are computed only for the page
             )
         finally:
+            warmup.stop(helper)
             if progress is not None:
                 progress.close()
     write_reports(result, outputs, show_keys=show_keys, markdown_detail=markdown_detail)
@@ -200,6 +203,7 @@ def gate(config_path, baseline, tolerance, show_all, quiet, color, debug, thread
 
     Exit code 0: every check passed and nothing regressed; 1: a check failed or regressed; 2: bad usage or input.
     """
+    from hashaudit.engine import warmup
     from hashaudit.engine.sources import audit as run_audit
     from hashaudit.gate import load_config
     from hashaudit.report.baseline import Comparison, compare, read_baseline
@@ -213,6 +217,7 @@ def gate(config_path, baseline, tolerance, show_all, quiet, color, debug, thread
     check_outputs(outputs, [*config.sources, str(config.path), *([base_path] if base_path else [])])
     old = read_baseline(base_path) if base_path else None  # read before the audit: a bad baseline fails fast
     progress = _progress(quiet)
+    helper = warmup.start(config.plan)  # an empty kernel cache (a fresh CI runner): a second process compiles too
     try:
         result = run_audit(
             config.sources,
@@ -223,6 +228,7 @@ def gate(config_path, baseline, tolerance, show_all, quiet, color, debug, thread
             figures=bool(outputs["html"]),
         )
     finally:
+        warmup.stop(helper)
         if progress is not None:
             progress.close()
     comparison = None

@@ -1,0 +1,216 @@
+"""The first audit on a machine compiles its kernels on two cores: a helper process compiles the same audit's
+kernels in the opposite order.
+
+numba compiles one kernel at a time in a process (a global lock), and the first audit with an empty kernel cache
+spends most of its time compiling (about 20 s for the default audit on this project's 2-core machine, against
+under 4 s once cached). When the cache is empty and a second core is free, :func:`start` launches
+``python -m hashaudit.engine.warmup`` with the audit's plan: it audits 20,000 invented keys with the same check
+groups, schemes and options but the hash functions in reverse order, into the same kernel cache
+(:mod:`hashaudit._numba_setup`). While the audit compiles the kernels of its first hash function, the helper
+compiles those of the last one; a kernel that either of them has finished and saved, the other loads from the cache
+(numba looks there before compiling, and saves each kernel by writing a new file and renaming it into place), so
+the two split the work. The helper reports nothing and is stopped when the audit ends, whatever it has reached.
+
+Only the command line starts a helper (a library call never spawns a process), only when the cache looks empty
+(the fingerprint kernel every audit that tells repeats apart uses was never saved) and only with two cores or more.
+``HASHAUDIT_WARM_UP=0`` turns it off. The helper changes nothing but the cache: results are the same with or
+without it.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import pickle
+import subprocess
+import sys
+import tempfile
+from pathlib import Path
+from typing import Any
+
+HELPER_KEYS = 20_000
+SMALL_TABLE = 1 << 16  # the helper's tables: kernels do not depend on sizes, memory does
+SMALL_PRIME = 65521
+SENTINEL = ("hashes", "murmur._murmur3_128_kernel")  # the distinct keys' fingerprints: compiled by nearly every audit
+
+
+def cache_is_cold() -> bool:
+    """Whether the kernel cache has never saved the sentinel kernel (for this Python and numba)."""
+    from hashaudit._numba_setup import cache_base, versions
+
+    base = cache_base()
+    if base is None or os.environ.get("NUMBA_CACHE_DIR"):
+        return False  # kernels not cached where we look: nothing to learn, nothing to share
+    folder = base / versions() / "hashaudit" / SENTINEL[0]
+    tag = f"py{sys.version_info[0]}{sys.version_info[1]}"
+    return not any(folder.glob(f"{SENTINEL[1]}-*.{tag}.nbi"))
+
+
+def start(plan: Any) -> subprocess.Popen | None:
+    """Launch the helper for ``plan`` when the cache is empty and a second core is there; None otherwise."""
+    if os.environ.get("HASHAUDIT_WARM_UP", "1") == "0" or (os.cpu_count() or 1) < 2:
+        return None
+    if os.environ.get("NUMBA_DISABLE_JIT", "0") not in ("", "0"):
+        return None
+    try:
+        if not cache_is_cold():
+            return None
+        handle, path = tempfile.mkstemp(prefix="hashaudit-warm-", suffix=".plan")
+        with os.fdopen(handle, "wb") as f:
+            pickle.dump(plan, f)
+        package_parent = str(Path(__file__).resolve().parents[2])  # the same hashaudit as this one
+        code = f"import sys; sys.path.insert(0, {package_parent!r}); from hashaudit.engine.warmup import main; main()"
+        return subprocess.Popen(
+            [sys.executable, "-c", code, path],
+            stdin=subprocess.DEVNULL,
+            stdout=subprocess.DEVNULL,
+            stderr=subprocess.DEVNULL,
+        )
+    except (OSError, pickle.PicklingError, TypeError, AttributeError):
+        return None  # no helper: the audit compiles everything itself, as without one
+
+
+def stop(helper: subprocess.Popen | None) -> None:
+    """End the helper (it is only ever useful while the audit runs) and remove its plan file if it had not yet."""
+    if helper is None:
+        return
+    if helper.poll() is None:
+        helper.kill()
+    helper.wait()
+    with contextlib.suppress(OSError, IndexError):
+        os.unlink(str(helper.args[-1]))  # type: ignore[index]
+
+
+def helper_plan(plan: Any) -> Any:
+    """``plan`` for the helper: the built-in hash functions in reverse order, small tables and stores, no spill
+    folder of the user's."""
+    from hashaudit.hashes.registry import REGISTRY
+
+    known = set(REGISTRY.names())
+    hashes = tuple(reversed([h for h in plan.hashes if h in known]))
+    if plan.hashes and not hashes:
+        return None
+    buckets = tuple(dict.fromkeys(SMALL_TABLE if m & (m - 1) == 0 else SMALL_PRIME for m in plan.buckets))
+    # every occurrence counted: the audit compiles the distinct-key kernels first, the helper leaves them to it
+    return plan.replace(hashes=hashes, buckets=buckets, memory="512m", spill_dir=None, all_keys=True)
+
+
+def helper_keys(count: int = HELPER_KEYS) -> list[bytes]:
+    """Invented keys of a few shapes (counters, codes, paths), enough to reach every check's statistics."""
+    import numpy as np
+
+    rng = np.random.default_rng(20261203)
+    codes = rng.integers(0, 1 << 40, size=count)
+    shapes = (b"w%07d", b"crate-%d-%x", b"/dock/%d/bay/%x")
+    return [shapes[i % 3] % ((i,) if i % 3 == 0 else (i, int(c))) for i, c in enumerate(codes.tolist())]
+
+
+def stand_in(width: int) -> Any:
+    """A batch hash of ``width`` bits written in numpy alone (no kernel to compile): the helper's check groups
+    run on it, so that it reaches their kernels without first compiling the hash functions the audit needs."""
+    import numpy as np
+
+    def hash_batch(batch: Any, seed: int = 0) -> np.ndarray:
+        data = batch.data.astype(np.uint64) + np.uint64(1)
+        starts = batch.offsets[:-1]
+        position = (np.arange(len(data)) - np.repeat(starts, np.diff(batch.offsets))).astype(np.uint64)
+        with np.errstate(over="ignore"):
+            mixed = _splitmix(data + position * np.uint64(0x9E3779B97F4A7C15))  # a random word per (place, byte)
+            sums = np.zeros(len(batch), dtype=np.uint64)
+            filled = starts < batch.offsets[1:]
+            sums[filled] = np.add.reduceat(mixed, starts[filled]) if len(mixed) else 0
+            words = [_splitmix(sums + np.uint64(seed) + np.uint64(i)) for i in range(2 if width == 128 else 1)]
+        if width == 32:
+            return words[0] >> np.uint64(32)
+        return words[0] if width == 64 else np.ascontiguousarray(np.stack(words, axis=1))
+
+    return hash_batch
+
+
+def _splitmix(values: Any) -> Any:
+    import numpy as np
+
+    values = (values ^ (values >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
+    values = (values ^ (values >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
+    return values ^ (values >> np.uint64(31))
+
+
+def _sample(plan: Any, batch: Any) -> Any:
+    from hashaudit.stats.sample import KeySample
+
+    sample = KeySample(plan.avalanche_keys, plan.seed)
+    sample.update(batch)
+    return sample
+
+
+def _tables(plan: Any, batch: Any, specs: list) -> None:
+    """The simulated tables' kernels, one table of each kind (the ideal hash's tables, as the audit builds them)."""
+    if "tables" not in plan.checks and "growth" not in plan.checks:
+        return
+    from hashaudit.stats.probes import _ideal
+    from hashaudit.tables.simulate import kind_fits
+
+    for kind in plan.table_kinds:
+        if kind_fits(kind, 1 << 12) is None:
+            _ideal(64, kind, 1 << 12, "mask", plan.loads, plan.seed)
+
+
+def _neighbours(plan: Any, batch: Any, specs: list) -> None:
+    """The neighbour families' kernels and their tests (hashed with stand-ins)."""
+    if "neighbours" not in plan.checks:
+        return
+    from hashaudit.stats.neighbours import neighbour_families, neighbour_tests
+
+    families = neighbour_families(_sample(plan, batch), seed=plan.seed, integers=plan.neighbour_keys == "integers")
+    for width in sorted({s.width for s in specs}):
+        list(neighbour_tests(stand_in(width), width, families, plan.tables(len(batch)), seed=plan.seed))
+
+
+def _avalanche(plan: Any, batch: Any, specs: list) -> None:
+    """The avalanche kernels (flips, membership, counts), hashed with stand-ins."""
+    if "avalanche" not in plan.checks:
+        return
+    from hashaudit.stats.avalanche import avalanche_matrix
+
+    sample = _sample(plan, batch)
+    for width in sorted({s.width for s in specs}):
+        avalanche_matrix(stand_in(width), width, sample, seed=plan.seed, max_bytes=plan.avalanche_bytes)
+
+
+def main() -> None:
+    """The helper: audit invented keys under the plan pickled in ``sys.argv[1]`` (removed once read) with
+    stand-in hash functions, then hash them with the plan's own functions, last first."""
+    path = sys.argv[1]
+    try:
+        with open(path, "rb") as f:
+            plan = pickle.load(f)
+    finally:
+        with contextlib.suppress(OSError):
+            os.unlink(path)
+    from hashaudit.engine.runner import audit_batches
+    from hashaudit.hashes.registry import REGISTRY, HashRegistry, HashSpec
+    from hashaudit.keys.batch import KeyBatch
+
+    small = helper_plan(plan)
+    if small is None:
+        return
+    batch = KeyBatch.from_keys(helper_keys())
+    real = [REGISTRY.get(name) for name in small.hashes]
+    stand_ins = HashRegistry(
+        HashSpec(s.name, s.width, s.seeded, "kernel", stand_in(s.width), "stand-in", s.integer_keys) for s in real
+    )
+    for warm in (_avalanche, _neighbours, _tables):  # what the audit concludes with, before the reading kernels
+        try:
+            warm(small, batch, real)
+        except Exception:  # noqa: BLE001 - best effort: the audit compiles what the helper could not
+            continue
+    audit_batches([batch], small, keys=len(batch), registry=stand_ins, threads=1, read_ahead=False, figures=False)
+    for spec in real:  # already reversed: the audit compiles the first ones itself
+        try:
+            spec.hash_batch(batch, plan.seed if spec.seeded else 0)
+        except Exception:  # noqa: BLE001 - a function that refuses these keys: the audit compiles it
+            continue
+
+
+if __name__ == "__main__":
+    main()
