@@ -7,12 +7,6 @@ compiles no kernel.
 from __future__ import annotations
 
 import importlib
-from importlib.metadata import PackageNotFoundError, version
-
-try:
-    __version__ = version("hashaudit")
-except PackageNotFoundError:  # pragma: no cover - running from a source tree without installing
-    __version__ = "0+unknown"
 
 _EXPORTS = {
     "REGISTRY": "hashaudit.hashes.registry",
@@ -46,7 +40,20 @@ _EXPORTS = {
 __all__ = sorted([*_EXPORTS, "__version__"])
 
 
+def _version() -> str:
+    """The installed distribution's version (importlib.metadata takes 50 ms to import: only when asked)."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("hashaudit")
+    except PackageNotFoundError:  # pragma: no cover - running from a source tree without installing
+        return "0+unknown"
+
+
 def __getattr__(name: str):  # type: ignore[no-untyped-def]
+    if name == "__version__":
+        value = globals()["__version__"] = _version()
+        return value
     if name in _EXPORTS:
         importlib.import_module("hashaudit.hashes")  # registers the statistics' default key fingerprints
         value = getattr(importlib.import_module(_EXPORTS[name]), name)

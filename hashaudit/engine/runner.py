@@ -26,9 +26,9 @@ from hashaudit.errors import UsageError
 from hashaudit.hashes.registry import REGISTRY, HashRegistry
 from hashaudit.keys.batch import KeyBatch
 from hashaudit.settings import SettingError
-from hashaudit.stats.avalanche import KeySample
 from hashaudit.stats.distinct import BYTES_PER_DISTINCT, DistinctBudgetError, DistinctKeys
 from hashaudit.stats.heavy import HeavyCounts, HeavyKeys
+from hashaudit.stats.sample import KeySample
 from hashaudit.verdict.result import AuditResult
 
 LANE_COPY_BYTES = 256 << 20  # largest table memory a hashing thread may copy for itself
