@@ -2,14 +2,17 @@
 kernels in the opposite order.
 
 numba compiles one kernel at a time in a process (a global lock), and the first audit with an empty kernel cache
-spends most of its time compiling (about 20 s for the default audit on this project's 2-core machine, against
-under 4 s once cached). When the cache is empty and a second core is free, :func:`start` launches
-``python -m hashaudit.engine.warmup`` with the audit's plan: it audits 20,000 invented keys with the same check
-groups, schemes and options but the hash functions in reverse order, into the same kernel cache
-(:mod:`hashaudit._numba_setup`). While the audit compiles the kernels of its first hash function, the helper
-compiles those of the last one; a kernel that either of them has finished and saved, the other loads from the cache
-(numba looks there before compiling, and saves each kernel by writing a new file and renaming it into place), so
-the two split the work. The helper reports nothing and is stopped when the audit ends, whatever it has reached.
+spends most of its time compiling (22 to 29 s without a helper for the default audit of the sample keys on this
+project's 2-core machine, 17 s with one, 3.3 s once cached: measured 2026-12-03, see docs/speed.md). When the cache is empty and a second core is free, :func:`start` launches
+``python -m hashaudit.engine.warmup`` with the audit's plan, into the same kernel cache
+(:mod:`hashaudit._numba_setup`). The helper starts with what the audit needs last: the kernels of the simulated
+tables, the neighbour families and the avalanche flips, reached through the statistics themselves on 20,000
+invented keys hashed by numpy stand-ins (so it compiles no hash function yet); then it audits those keys under the
+plan with the stand-ins (the remaining kernels of the check groups), and last it hashes them with the plan's own
+functions in reverse order, while the audit compiles them from the first. A kernel that either process has finished
+and saved, the other loads from the cache (numba looks there before compiling, and saves each kernel by writing a
+new file and renaming it into place), so the two split the work. The helper reports nothing and is stopped when the
+audit ends, whatever it has reached.
 
 Only the command line starts a helper (a library call never spawns a process), only when the cache looks empty
 (the fingerprint kernel every audit that tells repeats apart uses was never saved) and only with two cores or more.
@@ -136,11 +139,9 @@ def _splitmix(values: Any) -> Any:
 
 
 def _sample(plan: Any, batch: Any) -> Any:
-    from hashaudit.stats.sample import KeySample
-
-    sample = KeySample(plan.avalanche_keys, plan.seed)
-    sample.update(batch)
-    return sample
+    """The first keys, as many as the audit's sample holds (a plain batch: the sampling kernels are the audit's
+    own first ones, so the helper leaves them to it)."""
+    return batch.slice(0, min(len(batch), plan.avalanche_keys))
 
 
 def _tables(plan: Any, batch: Any, specs: list) -> None:
@@ -199,7 +200,9 @@ def main() -> None:
     stand_ins = HashRegistry(
         HashSpec(s.name, s.width, s.seeded, "kernel", stand_in(s.width), "stand-in", s.integer_keys) for s in real
     )
-    for warm in (_avalanche, _neighbours, _tables):  # what the audit concludes with, before the reading kernels
+    # what the audit concludes with, before the reading kernels; the avalanche last, as it fingerprints the sample
+    # with the audit's first kernel (loaded from the cache by then)
+    for warm in (_tables, _neighbours, _avalanche):
         try:
             warm(small, batch, real)
         except Exception:  # noqa: BLE001 - best effort: the audit compiles what the helper could not
