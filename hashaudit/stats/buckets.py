@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass
 from functools import cached_property
 
@@ -74,7 +75,9 @@ class BucketCounts:
         # 4-byte counts while no bucket can pass 2^32 - 1 (half the memory of a large table), 8-byte after
         self.counts_ = np.zeros(self.buckets, dtype=np.uint32)
         self.keys_seen_ = 0
-        self._result: BucketCountsResult | None = None  # the last result(), until the counts change
+        # the last result() while something still holds it (an int64 copy of the counts: a table of 2^22 buckets
+        # is 32 MiB, which the memory budget does not count), and until the counts change
+        self._result: weakref.ReferenceType[BucketCountsResult] | None = None
 
     def settings(self) -> tuple[str, int, str, int, int]:
         """The settings two accumulators must share to be merged."""
@@ -115,14 +118,20 @@ class BucketCounts:
         return twin
 
     def result(self) -> BucketCountsResult:
-        """The counts so far (int64), frozen (the same object until more keys are counted)."""
-        if self._result is None:
+        """The counts so far (int64), frozen: the same object while it is in use and no more keys were counted
+        (every check of a table shares one copy; once none holds it, its memory is given back)."""
+        kept = self._result() if self._result is not None else None
+        if kept is None:
             counts = self.counts_.astype(np.int64)
             counts.setflags(write=False)
-            self._result = BucketCountsResult(
+            kept = BucketCountsResult(
                 self.hash_name, self.seed, self.scheme, self.buckets, self.width, self.keys_seen_, counts
             )
-        return self._result
+            self._result = weakref.ref(kept)
+        return kept
+
+    def __getstate__(self) -> dict:
+        return {**self.__dict__, "_result": None}  # a weak reference does not pickle; the result is made again
 
     def __eq__(self, other: object) -> bool:
         if not isinstance(other, BucketCounts):
