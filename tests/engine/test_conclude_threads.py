@@ -152,3 +152,54 @@ def test_sigterm_while_groups_conclude_on_threads_ends_promptly_with_143(tmp_pat
     assert waited < 5, waited  # the two groups under way finish (0.5 s each), no more
     units = log.read_text().count("unit")
     assert units <= 4, units  # of the audit's 18 groups of three hashes, the rest never started
+
+
+_SPILL_CHILD = """
+import dataclasses, sys, time
+from pathlib import Path
+import hashaudit.engine.plan as plan_module
+from hashaudit import cli
+
+marker = Path(sys.argv[1])
+
+def marked(conclude):
+    def run(ctx, state):
+        marker.touch()  # the collision values of this hash are read back from the spill files now
+        return conclude(ctx, state)
+    return run
+
+plan_module.GROUPS = tuple(
+    dataclasses.replace(g, conclude=marked(g.conclude)) if g.name == "collisions" else g for g in plan_module.GROUPS
+)
+cli.main(sys.argv[2:])
+"""
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="POSIX signals")
+@pytest.mark.parametrize("delay", [0.0, 0.05, 0.2])
+def test_sigterm_while_spilled_values_are_read_back_on_threads_leaves_no_spill_file(tmp_path: Path, delay: float):
+    rng = np.random.default_rng(20261203)
+    keys = tmp_path / "keys.txt"
+    keys.write_text("".join(f"parcel-{v:016x}\n" for v in rng.integers(0, 2**63, size=300_000).tolist()))
+    spill = tmp_path / "spill"
+    spill.mkdir()
+    marker = tmp_path / "concluding"
+    args = ["audit", str(keys), "-H", "xxh3_64", "-H", "murmur3_128", "-H", "fnv1a_64", "--checks", "collisions",
+            "--collision-memory", "64k", "--spill-dir", str(spill), "--threads", "2", "-q"]  # fmt: skip
+    child = subprocess.Popen([sys.executable, "-c", _SPILL_CHILD, str(marker), *args], stderr=subprocess.PIPE)
+    try:
+        deadline = time.monotonic() + 120
+        while not marker.exists():
+            assert child.poll() is None, child.stderr.read() if child.stderr else b""
+            assert time.monotonic() < deadline, "the conclusion step never started"
+            time.sleep(0.002)
+        time.sleep(delay)
+        child.send_signal(signal.SIGTERM)
+        _, err = child.communicate(timeout=60)
+    finally:
+        if child.poll() is None:
+            child.kill()
+            child.wait()
+    assert child.returncode == 143, err
+    assert err == b"", err
+    assert list(spill.iterdir()) == [], "spill files left behind"
