@@ -2,8 +2,9 @@
 kernels in the opposite order.
 
 numba compiles one kernel at a time in a process (a global lock), and the first audit with an empty kernel cache
-spends most of its time compiling (22 to 29 s without a helper for the default audit of the sample keys on this
-project's 2-core machine, 17 s with one, 3.3 s once cached: measured 2026-12-03, see docs/speed.md). When the cache is empty and a second core is free, :func:`start` launches
+spends most of its time compiling (16.9 s without a helper for the default audit of the sample keys on this
+project's 2-core machine, 11.3 s with one, 2.5 s once cached: ``bench/speed_table.py`` rows 11, 1 and 2,
+2026-12-03). When the cache is empty and a second core is free, :func:`start` launches
 ``python -m hashaudit.engine.warmup`` with the audit's plan, into the same kernel cache
 (:mod:`hashaudit._numba_setup`). The helper starts with what the audit needs last: the kernels of the simulated
 tables, the neighbour families and the avalanche flips, reached through the statistics themselves on 20,000
