@@ -100,6 +100,27 @@ def test_a_failing_group_reaches_the_caller_and_the_groups_not_started_never_run
     assert 0 in ran and len(ran) < 10, ran
 
 
+def _sigterm_once_marked(argv: list[str], marker: Path, delay: float) -> tuple[int, bytes, float]:
+    """Run ``argv`` in a child, send SIGTERM ``delay`` seconds after ``marker`` appears; (exit code, stderr, seconds
+    from the signal to the end)."""
+    child = subprocess.Popen(argv, stderr=subprocess.PIPE)
+    try:
+        deadline = time.monotonic() + 120
+        while not marker.exists():
+            assert child.poll() is None, child.stderr.read() if child.stderr else b""
+            assert time.monotonic() < deadline, "the conclusion step never started"
+            time.sleep(0.002)
+        time.sleep(delay)
+        sent = time.monotonic()
+        child.send_signal(signal.SIGTERM)
+        _, err = child.communicate(timeout=60)
+        return child.returncode, err, time.monotonic() - sent
+    finally:
+        if child.poll() is None:
+            child.kill()
+            child.wait()
+
+
 _CHILD = """
 import dataclasses, sys, time
 from pathlib import Path
@@ -131,23 +152,12 @@ def test_sigterm_while_groups_conclude_on_threads_ends_promptly_with_143(tmp_pat
     keys.write_text("".join(f"order-{i:07d}\n" for i in range(3000)))
     marker, log = tmp_path / "concluding", tmp_path / "units"
     args = ["audit", str(keys), "-H", "murmur3_32", "-H", "fnv1a_32", "-H", "xxh3_64", "--threads", "2", "-q"]
-    child = subprocess.Popen([sys.executable, "-c", _CHILD, str(marker), str(log), *args], stderr=subprocess.PIPE)
-    try:
-        deadline = time.monotonic() + 120
-        while not marker.exists():
-            assert child.poll() is None, child.stderr.read() if child.stderr else b""
-            assert time.monotonic() < deadline, "the conclusion step never started"
-            time.sleep(0.01)
-        time.sleep(0.05 * attempt)  # the signal lands at different moments of the step
-        sent = time.monotonic()
-        child.send_signal(signal.SIGTERM)
-        _, err = child.communicate(timeout=60)
-        waited = time.monotonic() - sent
-    finally:
-        if child.poll() is None:
-            child.kill()
-            child.wait()
-    assert child.returncode == 143, err
+    code, err, waited = _sigterm_once_marked(
+        [sys.executable, "-c", _CHILD, str(marker), str(log), *args],
+        marker,
+        0.05 * attempt,  # several moments
+    )
+    assert code == 143, err
     assert err == b"", err
     assert waited < 5, waited  # the two groups under way finish (0.5 s each), no more
     units = log.read_text().count("unit")
@@ -176,7 +186,7 @@ cli.main(sys.argv[2:])
 
 
 @pytest.mark.skipif(sys.platform == "win32", reason="POSIX signals")
-@pytest.mark.parametrize("delay", [0.0, 0.05, 0.2])
+@pytest.mark.parametrize("delay", [0.0, 0.02, 0.06])
 def test_sigterm_while_spilled_values_are_read_back_on_threads_leaves_no_spill_file(tmp_path: Path, delay: float):
     rng = np.random.default_rng(20261203)
     keys = tmp_path / "keys.txt"
@@ -186,20 +196,7 @@ def test_sigterm_while_spilled_values_are_read_back_on_threads_leaves_no_spill_f
     marker = tmp_path / "concluding"
     args = ["audit", str(keys), "-H", "xxh3_64", "-H", "murmur3_128", "-H", "fnv1a_64", "--checks", "collisions",
             "--collision-memory", "64k", "--spill-dir", str(spill), "--threads", "2", "-q"]  # fmt: skip
-    child = subprocess.Popen([sys.executable, "-c", _SPILL_CHILD, str(marker), *args], stderr=subprocess.PIPE)
-    try:
-        deadline = time.monotonic() + 120
-        while not marker.exists():
-            assert child.poll() is None, child.stderr.read() if child.stderr else b""
-            assert time.monotonic() < deadline, "the conclusion step never started"
-            time.sleep(0.002)
-        time.sleep(delay)
-        child.send_signal(signal.SIGTERM)
-        _, err = child.communicate(timeout=60)
-    finally:
-        if child.poll() is None:
-            child.kill()
-            child.wait()
-    assert child.returncode == 143, err
+    code, err, _ = _sigterm_once_marked([sys.executable, "-c", _SPILL_CHILD, str(marker), *args], marker, delay)
+    assert code == 143, err
     assert err == b"", err
     assert list(spill.iterdir()) == [], "spill files left behind"
