@@ -109,6 +109,14 @@ def configure_numba_cache() -> str | None:
     return str(base / versions())
 
 
+def is_saved(kernel: Any) -> bool:
+    """Whether numba's cache holds an index for ``kernel`` (a ``cache=True`` dispatcher), wherever it is kept."""
+    try:
+        return os.path.exists(kernel._cache._cache_file._index_path)
+    except AttributeError:  # a numba that keeps its cache some other way: take it as kept, and guess nothing
+        return True
+
+
 def skip_blas_probe() -> None:
     """Import numba's array functions with scipy's BLAS hidden, unless one of them is imported already.
 

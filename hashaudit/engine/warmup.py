@@ -35,19 +35,18 @@ from typing import Any
 HELPER_KEYS = 20_000
 SMALL_TABLE = 1 << 16  # the helper's tables: kernels do not depend on sizes, memory does
 SMALL_PRIME = 65521
-SENTINEL = ("hashes", "murmur._murmur3_128_kernel")  # the distinct keys' fingerprints: compiled by nearly every audit
 
 
 def cache_is_cold() -> bool:
-    """Whether the kernel cache has never saved the sentinel kernel (for this Python and numba)."""
-    from hashaudit._numba_setup import cache_base, versions
+    """Whether the kernel cache has never saved the distinct keys' fingerprint kernel, which nearly every audit
+    compiles first (for this Python and numba)."""
+    from hashaudit._numba_setup import cache_base, is_saved
 
-    base = cache_base()
-    if base is None or os.environ.get("NUMBA_CACHE_DIR"):
+    if cache_base() is None or os.environ.get("NUMBA_CACHE_DIR"):
         return False  # kernels not cached where we look: nothing to learn, nothing to share
-    folder = base / versions() / "hashaudit" / SENTINEL[0]
-    tag = f"py{sys.version_info[0]}{sys.version_info[1]}"
-    return not any(folder.glob(f"{SENTINEL[1]}-*.{tag}.nbi"))
+    from hashaudit.hashes.murmur import _murmur3_128_kernel
+
+    return not is_saved(_murmur3_128_kernel)
 
 
 def start(plan: Any) -> subprocess.Popen | None:
@@ -94,7 +93,9 @@ def helper_plan(plan: Any) -> Any:
     hashes = tuple(reversed([h for h in plan.hashes if h in known]))
     if plan.hashes and not hashes:
         return None
-    buckets = tuple(dict.fromkeys(SMALL_TABLE if m & (m - 1) == 0 else SMALL_PRIME for m in plan.buckets))
+    from hashaudit.tables.schemes import is_power_of_two
+
+    buckets = tuple(dict.fromkeys(SMALL_TABLE if is_power_of_two(m) else SMALL_PRIME for m in plan.buckets))
     # every occurrence counted: the audit compiles the distinct-key kernels first, the helper leaves them to it
     return plan.replace(hashes=hashes, buckets=buckets, memory="512m", spill_dir=None, all_keys=True)
 
@@ -115,28 +116,22 @@ def stand_in(width: int) -> Any:
     import numpy as np
 
     def hash_batch(batch: Any, seed: int = 0) -> np.ndarray:
+        from hashaudit.placements.agreement import position_priorities as mix  # splitmix64's output function
+
         data = batch.data.astype(np.uint64) + np.uint64(1)
         starts = batch.offsets[:-1]
         position = (np.arange(len(data)) - np.repeat(starts, np.diff(batch.offsets))).astype(np.uint64)
         with np.errstate(over="ignore"):
-            mixed = _splitmix(data + position * np.uint64(0x9E3779B97F4A7C15))  # a random word per (place, byte)
+            mixed = mix(data + position * np.uint64(0x9E3779B97F4A7C15))  # a random word per (place, byte)
             sums = np.zeros(len(batch), dtype=np.uint64)
             filled = starts < batch.offsets[1:]
             sums[filled] = np.add.reduceat(mixed, starts[filled]) if len(mixed) else 0
-            words = [_splitmix(sums + np.uint64(seed) + np.uint64(i)) for i in range(2 if width == 128 else 1)]
+            words = [mix(sums + np.uint64(seed) + np.uint64(i)) for i in range(2 if width == 128 else 1)]
         if width == 32:
             return words[0] >> np.uint64(32)
         return words[0] if width == 64 else np.ascontiguousarray(np.stack(words, axis=1))
 
     return hash_batch
-
-
-def _splitmix(values: Any) -> Any:
-    import numpy as np
-
-    values = (values ^ (values >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
-    values = (values ^ (values >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
-    return values ^ (values >> np.uint64(31))
 
 
 def _sample(plan: Any, batch: Any) -> Any:

@@ -42,25 +42,47 @@ def test_the_stand_in_hashes_have_the_width_and_shape_of_real_ones():
         np.testing.assert_array_equal(values, warmup.stand_in(width)(batch, 7))
 
 
+_COLD = """
+import sys
+from hashaudit.engine.warmup import cache_is_cold
+print(cache_is_cold())
+if sys.argv[1] == "compile":
+    from hashaudit.hashes.fingerprint import key_fingerprints_128
+    from hashaudit.keys.batch import KeyBatch
+    key_fingerprints_128(KeyBatch.from_keys([b"a", b"bc"]))
+    print(cache_is_cold())
+"""
+
+
+def test_the_cache_is_cold_until_the_fingerprint_kernel_is_saved(tmp_path):
+    env = {k: v for k, v in os.environ.items() if k != "NUMBA_CACHE_DIR"}
+    env["HASHAUDIT_CACHE_DIR"] = str(tmp_path / "cache")  # read when the kernels are defined: in a child
+    run = [sys.executable, "-c", _COLD]
+    out = subprocess.run([*run, "compile"], env=env, capture_output=True, text=True, check=True, timeout=300)
+    assert out.stdout.split() == ["True", "False"]
+    out = subprocess.run([*run, "look"], env=env, capture_output=True, text=True, check=True, timeout=300)
+    assert out.stdout.split() == ["False"]  # another process finds it saved
+
+
 def test_no_helper_when_turned_off_when_the_cache_is_warm_or_numba_caches_elsewhere(monkeypatch, tmp_path):
     plan = AuditPlan(hashes=("fnv1a_32",))
-    monkeypatch.setenv("HASHAUDIT_CACHE_DIR", str(tmp_path / "empty"))
     monkeypatch.delenv("NUMBA_CACHE_DIR", raising=False)
-    assert warmup.cache_is_cold()
+    monkeypatch.setattr(os, "cpu_count", lambda: 2)
+    monkeypatch.setattr(warmup, "cache_is_cold", lambda: True)
     monkeypatch.setenv("HASHAUDIT_WARM_UP", "0")
     assert warmup.start(plan) is None
-    monkeypatch.delenv("HASHAUDIT_WARM_UP")
+    monkeypatch.setenv("HASHAUDIT_WARM_UP", "1")
+    monkeypatch.setattr(os, "cpu_count", lambda: 1)
+    assert warmup.start(plan) is None  # no second core
+    monkeypatch.undo()
+    monkeypatch.delenv("HASHAUDIT_WARM_UP", raising=False)
     monkeypatch.setenv("NUMBA_CACHE_DIR", str(tmp_path / "numba"))
-    assert warmup.start(plan) is None and not warmup.cache_is_cold()
+    assert not warmup.cache_is_cold() and warmup.start(plan) is None
     monkeypatch.delenv("NUMBA_CACHE_DIR")
-    from hashaudit._numba_setup import cache_base, versions
+    from hashaudit.hashes.fingerprint import key_fingerprints_128
 
-    folder = cache_base() / versions() / "hashaudit" / "hashes"
-    folder.mkdir(parents=True)
-    tag = f"py{sys.version_info[0]}{sys.version_info[1]}"
-    (folder / f"murmur._murmur3_128_kernel-183.{tag}.nbi").write_bytes(b"")
-    assert not warmup.cache_is_cold()
-    assert warmup.start(plan) is None
+    key_fingerprints_128(KeyBatch.from_keys([b"a"]))  # compiled and saved, if no audit of this process did it yet
+    assert not warmup.cache_is_cold() and warmup.start(plan) is None
 
 
 def test_a_helper_is_stopped_and_leaves_no_plan_file(monkeypatch, tmp_path):
@@ -68,6 +90,7 @@ def test_a_helper_is_stopped_and_leaves_no_plan_file(monkeypatch, tmp_path):
     monkeypatch.delenv("NUMBA_CACHE_DIR", raising=False)
     monkeypatch.delenv("HASHAUDIT_WARM_UP", raising=False)
     monkeypatch.setattr(os, "cpu_count", lambda: 2)
+    monkeypatch.setattr(warmup, "cache_is_cold", lambda: True)
     helper = warmup.start(AuditPlan(hashes=("fnv1a_32",)))
     assert helper is not None
     plan_file = Path(helper.args[-1])
