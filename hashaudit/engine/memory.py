@@ -82,7 +82,10 @@ def share_memory(values: dict[str, Any]) -> None:
     """
     total = values["memory"] if values["memory"] is not None else default_memory()
     stores = max(MIN_STORES, total - BASE_BYTES - count_bytes(values))
-    collisions = "collisions" in values["checks"]  # the only other store: without it the distinct keys take all
+    from hashaudit.checks import GROUP_BY_NAME
+
+    # the collision stores exist when a running group declares their budget; without them the distinct keys take all
+    collisions = any(s.name == "collision_memory" for g in values["checks"] for s in GROUP_BY_NAME[g].settings)
     distinct = values["distinct_memory"]
     if distinct is None:
         share = DISTINCT_SHARE if collisions else 1.0
