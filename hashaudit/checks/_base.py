@@ -106,6 +106,10 @@ class CheckGroup:
     subjects : str
         What the group audits: ``hashes`` (the hash functions asked for) or ``placements`` (systems' placement
         rules, each a subject of its own; ``hashaudit.placements.rules``).
+    warm_up : callable, optional
+        ``(plan, sample: KeyBatch, widths, stand_in) -> None``: compiles the group's conclusion kernels through its
+        statistics, hashing with ``stand_in(width)`` (numpy only), for the helper process of a first audit
+        (``hashaudit.engine.warmup``); worth it for groups whose kernels take seconds to compile.
     """
 
     name: str
@@ -123,6 +127,7 @@ class CheckGroup:
     needs_sample: bool = False
     needs_heavy: bool = False
     subjects: str = "hashes"
+    warm_up: Callable[[Any, Any, tuple[int, ...], Callable[[int], Any]], None] | None = None
 
     @property
     def check_names(self) -> tuple[str, ...]:

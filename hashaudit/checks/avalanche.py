@@ -44,6 +44,14 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
         ctx.plot(spec.name, "avalanche", matrix.flip_probability())
 
 
+def _warm_up(plan: Any, sample: Any, widths: tuple[int, ...], stand_in: Any) -> None:
+    """The avalanche kernels: flips, membership, counts."""
+    from hashaudit.stats.avalanche import avalanche_matrix
+
+    for width in widths:
+        avalanche_matrix(stand_in(width), width, sample, seed=plan.seed, max_bytes=plan.avalanche_bytes)
+
+
 GROUP = CheckGroup(
     "avalanche",
     "strict avalanche criterion and output-bit independence on a key sample",
@@ -97,5 +105,6 @@ GROUP = CheckGroup(
         ),
     ),
     conclude=_conclude,
+    warm_up=_warm_up,
     needs_sample=True,
 )

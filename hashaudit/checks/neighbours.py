@@ -66,6 +66,15 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
         yield d.get("worst_scheme"), d.get("worst_buckets"), d["family_keys"], test
 
 
+def _warm_up(plan: Any, sample: Any, widths: tuple[int, ...], stand_in: Any) -> None:
+    """The neighbour families' kernels and their tests."""
+    from hashaudit.stats.neighbours import neighbour_families, neighbour_tests
+
+    families = neighbour_families(sample, seed=plan.seed, integers=plan.neighbour_keys == "integers")
+    for width in widths:
+        list(neighbour_tests(stand_in(width), width, families, plan.tables(len(sample)), seed=plan.seed))
+
+
 GROUP = CheckGroup(
     "neighbours",
     "families of similar keys made from the sample (counters, one changed character, case, prefixes)",
@@ -85,5 +94,6 @@ GROUP = CheckGroup(
         ),
     ),
     conclude=_conclude,
+    warm_up=_warm_up,
     needs_sample=True,
 )

@@ -126,6 +126,16 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
                 yield scheme, slots, cells[-1].keys, test
 
 
+def _warm_up(plan: Any, sample: Any, widths: tuple[int, ...], stand_in: Any) -> None:
+    """The simulated tables' kernels: one small table of each kind, built as the ideal hash's are."""
+    from hashaudit.stats.probes import _ideal
+    from hashaudit.tables.simulate import kind_fits
+
+    for kind in plan.table_kinds:
+        if kind_fits(kind, 1 << 12) is None:
+            _ideal(64, kind, 1 << 12, "mask", plan.loads, plan.seed)
+
+
 def _prepare(values: dict) -> None:
     from hashaudit.settings import SettingError
 
@@ -192,5 +202,6 @@ GROUP = CheckGroup(
     ),
     accumulators=first_values,
     conclude=_conclude,
+    warm_up=_warm_up,
     prepare=_prepare,
 )

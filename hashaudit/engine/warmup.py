@@ -6,9 +6,9 @@ spends most of its time compiling (16.9 s without a helper for the default audit
 project's 2-core machine, 11.3 s with one, 2.5 s once cached: ``bench/speed_table.py`` rows 11, 1 and 2,
 2026-12-03). When the cache is empty and a second core is free, :func:`start` launches
 ``python -m hashaudit.engine.warmup`` with the audit's plan, into the same kernel cache
-(:mod:`hashaudit._numba_setup`). The helper starts with what the audit needs last: the kernels of the simulated
-tables, the neighbour families and the avalanche flips, reached through the statistics themselves on 20,000
-invented keys hashed by numpy stand-ins (so it compiles no hash function yet); then it audits those keys under the
+(:mod:`hashaudit._numba_setup`). The helper starts with what the audit needs last: each running check group's
+declared ``warm_up`` (``CheckGroup.warm_up``: the simulated tables, the neighbour families, the avalanche flips),
+last group first, on 20,000 invented keys hashed by numpy stand-ins (so it compiles no hash function yet); then it audits those keys under the
 plan with the stand-ins (the remaining kernels of the check groups), and last it hashes them with the plan's own
 functions in reverse order, while the audit compiles them from the first. A kernel that either process has finished
 and saved, the other loads from the cache (numba looks there before compiling, and saves each kernel by writing a
@@ -134,46 +134,6 @@ def stand_in(width: int) -> Any:
     return hash_batch
 
 
-def _sample(plan: Any, batch: Any) -> Any:
-    """The first keys, as many as the audit's sample holds (a plain batch: the sampling kernels are the audit's
-    own first ones, so the helper leaves them to it)."""
-    return batch.slice(0, min(len(batch), plan.avalanche_keys))
-
-
-def _tables(plan: Any, batch: Any, specs: list) -> None:
-    """The simulated tables' kernels, one table of each kind (the ideal hash's tables, as the audit builds them)."""
-    if "tables" not in plan.checks and "growth" not in plan.checks:
-        return
-    from hashaudit.stats.probes import _ideal
-    from hashaudit.tables.simulate import kind_fits
-
-    for kind in plan.table_kinds:
-        if kind_fits(kind, 1 << 12) is None:
-            _ideal(64, kind, 1 << 12, "mask", plan.loads, plan.seed)
-
-
-def _neighbours(plan: Any, batch: Any, specs: list) -> None:
-    """The neighbour families' kernels and their tests (hashed with stand-ins)."""
-    if "neighbours" not in plan.checks:
-        return
-    from hashaudit.stats.neighbours import neighbour_families, neighbour_tests
-
-    families = neighbour_families(_sample(plan, batch), seed=plan.seed, integers=plan.neighbour_keys == "integers")
-    for width in sorted({s.width for s in specs}):
-        list(neighbour_tests(stand_in(width), width, families, plan.tables(len(batch)), seed=plan.seed))
-
-
-def _avalanche(plan: Any, batch: Any, specs: list) -> None:
-    """The avalanche kernels (flips, membership, counts), hashed with stand-ins."""
-    if "avalanche" not in plan.checks:
-        return
-    from hashaudit.stats.avalanche import avalanche_matrix
-
-    sample = _sample(plan, batch)
-    for width in sorted({s.width for s in specs}):
-        avalanche_matrix(stand_in(width), width, sample, seed=plan.seed, max_bytes=plan.avalanche_bytes)
-
-
 def main() -> None:
     """The helper: audit invented keys under the plan pickled in ``sys.argv[1]`` (removed once read) with
     stand-in hash functions, then hash them with the plan's own functions, last first."""
@@ -196,11 +156,15 @@ def main() -> None:
     stand_ins = HashRegistry(
         HashSpec(s.name, s.width, s.seeded, "kernel", stand_in(s.width), "stand-in", s.integer_keys) for s in real
     )
-    # what the audit concludes with, before the reading kernels; the avalanche last, as it fingerprints the sample
-    # with the audit's first kernel (loaded from the cache by then)
-    for warm in (_tables, _neighbours, _avalanche):
+    # the groups' own warm-ups, last group first (the audit concludes in registry order); the sample is the first
+    # keys, as many as the audit's sample holds (a plain batch: the sampling kernels are the audit's own first ones)
+    sample = batch.slice(0, min(len(batch), small.avalanche_keys))
+    widths = tuple(sorted({s.width for s in real}))
+    for group in reversed(small.groups()):
+        if group.warm_up is None:
+            continue
         try:
-            warm(small, batch, real)
+            group.warm_up(small, sample, widths, stand_in)
         except Exception:  # noqa: BLE001 - best effort: the audit compiles what the helper could not
             continue
     audit_batches([batch], small, keys=len(batch), registry=stand_ins, threads=1, read_ahead=False, figures=False)
