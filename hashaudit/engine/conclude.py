@@ -79,10 +79,11 @@ def conclude(
         sample, cut = sample.cut_long_keys()
     ctx = Conclusion(plan, states, tables, keys, occurrences, sample, heavy, figures=figures)
     family: list[tuple[str, str | None, int | None, int, Any]] = []
-    units = [(state, group) for state in states for group in state.groups if group.conclude is not None]
+    concluding = [[group for group in state.groups if group.conclude is not None] for state in states]
+    units = [(state, group) for state, groups in zip(states, concluding, strict=True) for group in groups]
     with contextlib.closing(_conclude_groups(ctx, units, workers, phase)) as concluded:
-        for state in states:
-            for _ in (group for group in state.groups if group.conclude is not None):
+        for state, groups in zip(states, concluding, strict=True):
+            for _ in groups:
                 plots, tested = next(concluded)
                 family += tested
                 for hash_name, named in plots.items():  # in the groups' order, whichever thread finished first

@@ -421,7 +421,7 @@ class FullCollisions:
         """``rows`` as ``uint64`` (a new array for 32-bit rows, the same one otherwise)."""
         return rows if rows.dtype == np.uint64 else rows.astype(np.uint64)
 
-    def _partitioned(self, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def _partitioned_rows(self, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """A copy of the memory rows ``rows`` grouped by partition, in the rows' own width, with the bounds."""
         out, bounds = _partitioned(self._wide(rows))
         return (out if out.dtype == rows.dtype else out.astype(rows.dtype)), bounds
@@ -565,7 +565,7 @@ class FullCollisions:
             return
         pieces = []
         while parts:
-            pieces.append(self._partitioned(parts.pop(0)))  # each slab is freed once partitioned
+            pieces.append(self._partitioned_rows(parts.pop(0)))  # each slab is freed once partitioned
         for p in range(PARTITIONS):
             chunks = [rows[bounds[p] : bounds[p + 1]] for rows, bounds in pieces if bounds[p + 1] > bounds[p]]
             if chunks:
@@ -585,7 +585,7 @@ class FullCollisions:
             memory = [self._wide(part) for part in self._memory_parts()]
             yield np.concatenate([np.empty((0, self._words), dtype=np.uint64), *disk, *memory])
             return
-        pieces = [self._partitioned(part) for part in self._memory_parts()]
+        pieces = [self._partitioned_rows(part) for part in self._memory_parts()]
         for p in range(PARTITIONS):
             chunks = [self._read(p)] if self._disk_rows[p] else []
             chunks += [self._wide(rows[bounds[p] : bounds[p + 1]]) for rows, bounds in pieces]
