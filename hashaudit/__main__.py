@@ -1,3 +1,3 @@
-from hashaudit.cli import main
+from hashaudit.cli import run
 
-main()
+run()
