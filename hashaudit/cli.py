@@ -492,10 +492,13 @@ def run() -> NoReturn:
 
 def _leave(code: int) -> NoReturn:
     """Exit with ``code`` once the exit hooks have run and the standard streams are flushed, skipping the teardown
-    of the modules. While a thread that is not a daemon still runs, the interpreter's usual exit waits for it."""
+    of the modules. While a thread that is not a daemon still runs, the interpreter's usual exit waits for it; under a
+    profiler or a tracer, the usual exit lets it write what it measured."""
     main_thread = threading.main_thread()
     if any(t is not main_thread and not t.daemon and t.is_alive() for t in threading.enumerate()):
         sys.exit(code)
+    if sys.getprofile() is not None or sys.gettrace() is not None:
+        sys.exit(code)  # a profiler or a tracer (python -m cProfile) writes its figures after the command returns
     atexit._run_exitfuncs()
     for stream in (sys.stdout, sys.stderr):
         try:

@@ -5,6 +5,7 @@ child process, as a user runs the command."""
 from __future__ import annotations
 
 import json
+import pstats
 import subprocess
 import sys
 import textwrap
@@ -81,3 +82,17 @@ def test_leave_runs_the_exit_hooks_flushes_and_waits_for_threads(tmp_path: Path,
     assert done.stdout == "buffered line"
     assert (tmp_path / "hook").read_text() == "ran"
     assert (tmp_path / "thread").exists() == (thread == "thread")
+
+
+def test_a_profiler_still_writes_its_figures(keys: Path, tmp_path: Path) -> None:
+    """``python -m cProfile`` writes its file after the command returns: the quick exit must leave it the time."""
+    out = tmp_path / "audit.prof"
+    done = subprocess.run(
+        [sys.executable, "-m", "cProfile", "-o", str(out), "-m", "hashaudit", "audit", str(keys), *QUICK, "-q"],
+        capture_output=True,
+        cwd=ROOT,
+        timeout=300,
+        check=False,
+    )
+    assert done.returncode in (0, 1), done.stderr
+    assert pstats.Stats(str(out)).total_calls > 0
