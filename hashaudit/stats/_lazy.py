@@ -18,5 +18,4 @@ class LazyModule:
 
 
 special = LazyModule("scipy.special")
-optimize = LazyModule("scipy.optimize")  # 0.2 s to import, for one root finder of the max-load law
 fft = LazyModule("scipy.fft")

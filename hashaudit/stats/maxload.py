@@ -57,7 +57,8 @@ from numpy.polynomial import hermite_e
 from scipy import special
 
 from hashaudit.errors import UsageError
-from hashaudit.stats._lazy import fft, optimize
+from hashaudit.stats._lazy import fft
+from hashaudit.stats._roots import brent_root
 
 # The numerics shared with the closed forms; hashaudit.stats.theory imports this module, never the reverse.
 from hashaudit.stats._numeric import (
@@ -437,7 +438,7 @@ def _tilt(load: float, k: int, gap: float) -> float:
     upper = max(2.0 * load, load + 1.0, 2.0 * k / gap)
     while _truncated_mean(upper, k) <= load:
         upper *= 2.0
-    log_mu = optimize.brentq(
+    log_mu = brent_root(
         lambda x: _truncated_mean(math.exp(x), k) - load,
         math.log(load),
         math.log(upper),

@@ -538,7 +538,7 @@ def plan_capacity(
     :func:`expected_colliding_pairs`, :func:`expected_probes` and
     :func:`hashaudit.stats.maxload.expected_max_load`.
     """
-    # the fullest-bucket law loads scipy.optimize and scipy.fft, which only this function needs
+    # imported here, the one function of this module that needs the fullest-bucket law
     from hashaudit.stats.maxload import expected_max_load
 
     keys = _as_count(n_keys, "n_keys", 0)
