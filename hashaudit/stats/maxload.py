@@ -58,7 +58,6 @@ from scipy import special
 
 from hashaudit.errors import UsageError
 from hashaudit.stats._lazy import fft
-from hashaudit.stats._roots import brent_root
 
 # The numerics shared with the closed forms; hashaudit.stats.theory imports this module, never the reverse.
 from hashaudit.stats._numeric import (
@@ -69,6 +68,7 @@ from hashaudit.stats._numeric import (
     _x_minus_log1p,
     log_p_no_collision,
 )
+from hashaudit.stats._roots import brent_root
 
 __all__ = ["METHODS", "expected_max_load", "max_load_cdf", "max_load_quantile", "max_load_sf"]
 
