@@ -29,14 +29,24 @@ def _independence(test: Any) -> str:
 
 
 def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
-    from hashaudit.stats.avalanche import avalanche_matrix, avalanche_tests
+    from hashaudit.stats.avalanche import avalanche_flips, avalanche_matrix, avalanche_tests
 
     if ctx.sample is None or not len(ctx.sample):
         return
     spec, plan = state.spec, ctx.plan
     hash_seed = plan.seed if spec.seeded else 0
+    # the flipped keys and which of them are sample keys do not depend on the hash: made once for all
+    flips = ctx.once(
+        ("avalanche flips", plan.avalanche_bytes), lambda: avalanche_flips(ctx.sample, plan.avalanche_bytes)
+    )
     matrix = avalanche_matrix(
-        spec.hash_batch, spec.width, ctx.sample, seed=hash_seed, max_bytes=plan.avalanche_bytes, name=spec.name
+        spec.hash_batch,
+        spec.width,
+        ctx.sample,
+        seed=hash_seed,
+        max_bytes=plan.avalanche_bytes,
+        name=spec.name,
+        flips=flips,
     )
     for test in avalanche_tests(matrix):
         yield None, None, matrix.keys, test

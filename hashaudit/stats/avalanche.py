@@ -38,6 +38,7 @@ import hashaudit._numba_setup  # noqa: F401
 # isort: split
 
 import math
+from collections.abc import Iterator
 from dataclasses import dataclass
 from typing import Any
 
@@ -318,6 +319,107 @@ def _as_words(hashes: np.ndarray) -> np.ndarray:
     return np.ascontiguousarray(hashes.reshape(len(hashes), -1), dtype=np.uint64)
 
 
+@dataclass(frozen=True, eq=False)
+class _FlipChunk:
+    """One chunk of flipped keys: the flips, which input bit each flips and of which sample key, which are counted
+    (``keep``: not a pair already counted from the other end) and, for a small sample, the sample key each lands on
+    (or -1) with its 64-bit fingerprint."""
+
+    flips: KeyBatch
+    input_bit: np.ndarray
+    parent: np.ndarray
+    keep: np.ndarray
+    trials: np.ndarray
+    landing: np.ndarray | None
+    fingerprints: np.ndarray | None
+
+
+@dataclass(frozen=True, eq=False)
+class AvalancheFlips:
+    """The flipped keys of a sample, which of them land on sample keys, and which are counted: the work of an
+    avalanche matrix that does not depend on the hash function (``avalanche_flips``), made once and shared by every
+    hash of an audit when it fits ``SHARED_FLIPS_BYTES``, else made again chunk by chunk for each."""
+
+    keys: KeyBatch
+    sample_seed: int | None
+    max_bytes: int
+    small: bool
+    member: Fingerprint
+    kept: tuple[_FlipChunk, ...] | None
+
+    def chunks(self) -> Iterator[_FlipChunk]:
+        """The chunks, kept or made now."""
+        if self.kept is not None:
+            yield from self.kept
+        else:
+            yield from _flip_chunks(self.keys, self.max_bytes, self.small, self.member)
+
+
+SHARED_FLIPS_BYTES = 48 << 20  # flips kept for every hash up to this size (4,096 16-byte keys: about 21 MiB)
+
+
+def avalanche_flips(
+    sample: KeySample | KeyBatch,
+    max_bytes: int = DEFAULT_MAX_BYTES,
+    *,
+    fingerprint: Fingerprint | None = None,
+    share: bool = True,
+) -> AvalancheFlips:
+    """The hash-independent part of ``avalanche_matrix`` for ``sample``: pass it to several calls (one per hash
+    function) to make it once. With ``share`` (and within ``SHARED_FLIPS_BYTES``) the flips are made now and kept;
+    otherwise each use makes them again, chunk by chunk."""
+    max_bytes = _check_max_bytes(max_bytes)
+    member = _hooks.resolve(_hooks.MEMBER, fingerprint)
+    sample_seed = sample.seed if isinstance(sample, KeySample) else None
+    keys = sample.keys() if isinstance(sample, KeySample) else _distinct(sample, member)
+    flipped_bits = 8 * np.minimum(keys.lengths(), max_bytes)
+    small = 0 < int(np.sum(flipped_bits)) <= EXACT_BELOW_FLIPS
+    size = int(np.dot(flipped_bits, keys.lengths())) + 33 * int(np.sum(flipped_bits))  # key bytes, 4 arrays
+    kept = None
+    if share and size <= SHARED_FLIPS_BYTES:
+        kept = tuple(_flip_chunks(keys, max_bytes, small, member))
+    return AvalancheFlips(keys, sample_seed, max_bytes, small, member, kept)
+
+
+def _flip_chunks(keys: KeyBatch, max_bytes: int, small: bool, member: Fingerprint) -> Iterator[_FlipChunk]:
+    if not len(keys):
+        return
+    input_bits = 8 * max_bytes
+    fingerprints = member(keys)
+    member_order = np.argsort(fingerprints, kind="stable").astype(np.int64)
+    member_sorted = fingerprints[member_order]
+    for start, stop in _chunks(keys, max_bytes):
+        part = keys.slice(start, stop)
+        flips, input_bit, parent = _flips(part, max_bytes)
+        if len(flips) == 0:
+            continue
+        parent += start
+        flip_fingerprints = member(flips)
+        position = np.searchsorted(member_sorted, flip_fingerprints, side="left").astype(np.int64)
+        in_sample = np.empty(len(flips), dtype=np.bool_)
+        _member_kernel(
+            keys.data,
+            keys.offsets,
+            member_order,
+            member_sorted,
+            flips.data,
+            flips.offsets,
+            flip_fingerprints,
+            position,
+            in_sample,
+        )
+        # bit value of the flipped input bit in the original key: 1 means the neighbour owns the pair
+        byte = keys.data[keys.offsets[parent] + input_bit // 8]
+        bit_was_set = ((byte >> (input_bit % 8).astype(np.uint8)) & 1).astype(np.bool_)
+        keep = ~(in_sample & bit_was_set)
+        trials = np.bincount(input_bit[keep], minlength=input_bits)
+        landing = None
+        if small:
+            # the sample key a flip lands on (a fingerprint match, confirmed bytewise above), or -1
+            landing = np.where(in_sample, member_order[np.minimum(position, len(keys) - 1)], -1)
+        yield _FlipChunk(flips, input_bit, parent, keep, trials, landing, flip_fingerprints if small else None)
+
+
 def avalanche_matrix(
     hash_batch: HashBatch,
     width: int,
@@ -327,6 +429,7 @@ def avalanche_matrix(
     name: str = "",
     *,
     fingerprint: Fingerprint | None = None,
+    flips: AvalancheFlips | None = None,
 ) -> AvalancheResult:
     """Flip counts of every (input bit, output bit) cell, and co-flip counts of every pair of output bits.
 
@@ -348,6 +451,9 @@ def avalanche_matrix(
     fingerprint : callable, optional
         ``batch -> uint64[n]``, a fixed-seed fingerprint telling whether a flipped key is a sample key (every
         match is confirmed bytewise); default ``hashaudit.hashes.fingerprint.member_fingerprints``.
+    flips : AvalancheFlips, optional
+        ``avalanche_flips(sample, max_bytes)``, made once for several hash functions; ``sample`` and
+        ``fingerprint`` are then its own.
 
     Returns
     -------
@@ -366,71 +472,45 @@ def avalanche_matrix(
     max_bytes = _check_max_bytes(max_bytes)
     if width not in (32, 64, 128):
         raise UsageError(f"hash {name!r}: width must be 32, 64 or 128, not {width!r}")
-    member = _hooks.resolve(_hooks.MEMBER, fingerprint)
-    sample_seed = sample.seed if isinstance(sample, KeySample) else None
-    keys = sample.keys() if isinstance(sample, KeySample) else _distinct(sample, member)
+    if flips is None:
+        flips = avalanche_flips(sample, max_bytes, fingerprint=fingerprint, share=False)
+    elif flips.max_bytes != max_bytes:
+        raise UsageError(f"flips of the first {flips.max_bytes} bytes given for max_bytes {max_bytes}")
+    keys = flips.keys
     input_bits = 8 * max_bytes
     flip_counts = np.zeros((input_bits, width), dtype=np.int64)
     pair_counts = np.zeros((width, width), dtype=np.int64)
     trials = np.zeros(input_bits, dtype=np.int64)
     counted = skipped = 0
-    small = 0 < int(np.sum(8 * np.minimum(keys.lengths(), max_bytes))) <= EXACT_BELOW_FLIPS
     kept_parts: list[tuple[np.ndarray, ...]] = []
     if len(keys):
         original = _as_words(hash_batch(keys, seed))
-        fingerprints = member(keys)
-        member_order = np.argsort(fingerprints, kind="stable").astype(np.int64)
-        member_sorted = fingerprints[member_order]
-        for start, stop in _chunks(keys, max_bytes):
-            part = keys.slice(start, stop)
-            flips, input_bit, parent = _flips(part, max_bytes)
-            if len(flips) == 0:
-                continue
-            parent += start
-            flip_fingerprints = member(flips)
-            position = np.searchsorted(member_sorted, flip_fingerprints, side="left").astype(np.int64)
-            in_sample = np.empty(len(flips), dtype=np.bool_)
-            _member_kernel(
-                keys.data,
-                keys.offsets,
-                member_order,
-                member_sorted,
-                flips.data,
-                flips.offsets,
-                flip_fingerprints,
-                position,
-                in_sample,
-            )
-            # bit value of the flipped input bit in the original key: 1 means the neighbour owns the pair
-            byte = keys.data[keys.offsets[parent] + input_bit // 8]
-            bit_was_set = ((byte >> (input_bit % 8).astype(np.uint8)) & 1).astype(np.bool_)
-            keep = ~(in_sample & bit_was_set)
-            flipped = _as_words(hash_batch(flips, seed))
-            columns = np.zeros((width, (len(flips) + 63) // 64), dtype=np.uint64)
+        for chunk in flips.chunks():
+            parent, input_bit, keep = chunk.parent, chunk.input_bit, chunk.keep
+            flipped = _as_words(hash_batch(chunk.flips, seed))
+            columns = np.zeros((width, (len(chunk.flips) + 63) // 64), dtype=np.uint64)
             kept = _accumulate_kernel(original, flipped, parent, input_bit, keep, width, flip_counts, columns)
             _pair_kernel(columns, (kept + 63) // 64, pair_counts)
-            trials += np.bincount(input_bit[keep], minlength=input_bits)
+            trials += chunk.trials
             counted += kept
-            skipped += len(flips) - kept
-            if small:
-                # the sample key a flip lands on (a fingerprint match, confirmed bytewise above), or -1
-                landing = np.where(in_sample, member_order[np.minimum(position, len(keys) - 1)], -1)
+            skipped += len(chunk.flips) - kept
+            if chunk.landing is not None and chunk.fingerprints is not None:
                 kept_parts.append(
                     (
                         (original[parent] ^ flipped)[keep],
                         parent[keep],
-                        landing[keep],
-                        flip_fingerprints[keep],
+                        chunk.landing[keep],
+                        chunk.fingerprints[keep],
                         input_bit[keep],
                     )
                 )
-    graph = _flip_graph(kept_parts, len(keys), width) if small and kept_parts else None
+    graph = _flip_graph(kept_parts, len(keys), width) if flips.small and kept_parts else None
     for array in (trials, flip_counts, pair_counts):
         array.setflags(write=False)
     return AvalancheResult(
         name,
         int(seed),
-        sample_seed,
+        flips.sample_seed,
         width,
         max_bytes,
         len(keys),

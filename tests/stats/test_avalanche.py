@@ -493,3 +493,35 @@ class TestFewFlips:
             p.append([t.details["chi_square_p_upper"] for t in avalanche_tests(result)])
         share = (np.array(p) <= 0.05).mean(axis=0)
         assert (share <= 0.05 + 3 * np.sqrt(0.05 * 0.95 / 200)).all(), share
+
+
+@pytest.mark.parametrize("kept", [True, False])
+def test_flips_made_once_give_every_hash_its_own_matrix(kept: bool, monkeypatch: pytest.MonkeyPatch) -> None:
+    """``avalanche_flips`` made once and passed to several hash functions (what an audit does) gives each the
+    matrix, counts and small-sample graph it gets alone, whether the flips are kept or made again per use."""
+    from hashaudit.stats.avalanche import avalanche_flips
+
+    if not kept:
+        monkeypatch.setattr(avalanche_module, "SHARED_FLIPS_BYTES", 0)
+    for sample in (REALISTIC_SAMPLE, KeyBatch.from_keys(SMALL_KEYS)):
+        flips = avalanche_flips(sample, 16)
+        assert (flips.kept is not None) == kept
+        for name in ("murmur3_32", "xxh3_64", "crc32"):
+            alone = avalanche_matrix(*function_of(name), sample, 3)
+            shared = avalanche_matrix(*function_of(name), sample, 3, flips=flips)
+            for field in ("flip_counts", "pair_counts", "trials"):
+                assert np.array_equal(getattr(shared, field), getattr(alone, field)), (name, field)
+            assert (shared.flips, shared.pairs_counted_once, shared.sample_seed, shared.keys) == (
+                alone.flips,
+                alone.pairs_counted_once,
+                alone.sample_seed,
+                alone.keys,
+            )
+            assert (shared.graph is None) == (alone.graph is None)
+            if alone.graph is not None:
+                assert np.array_equal(shared.graph.ends, alone.graph.ends)
+                assert np.array_equal(shared.graph.xors, alone.graph.xors)
+    with pytest.raises(UsageError, match="max_bytes 8"):
+        avalanche_matrix(
+            *function_of("crc32"), REALISTIC_SAMPLE, flips=avalanche_flips(REALISTIC_SAMPLE, 16), max_bytes=8
+        )
