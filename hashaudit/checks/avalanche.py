@@ -55,11 +55,12 @@ def _conclude(ctx: Conclusion, state: Any) -> Iterator[Tested]:
 
 
 def _warm_up(plan: Any, sample: Any, widths: tuple[int, ...], stand_in: Any) -> None:
-    """The avalanche kernels: flips, membership, counts."""
-    from hashaudit.stats.avalanche import avalanche_matrix
+    """The avalanche kernels: flips, membership (made once, as in the audit), counts."""
+    from hashaudit.stats.avalanche import avalanche_flips, avalanche_matrix
 
+    flips = avalanche_flips(sample, plan.avalanche_bytes)
     for width in widths:
-        avalanche_matrix(stand_in(width), width, sample, seed=plan.seed, max_bytes=plan.avalanche_bytes)
+        avalanche_matrix(stand_in(width), width, sample, seed=plan.seed, max_bytes=plan.avalanche_bytes, flips=flips)
 
 
 GROUP = CheckGroup(

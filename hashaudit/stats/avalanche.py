@@ -374,7 +374,8 @@ def avalanche_flips(
     keys = sample.keys() if isinstance(sample, KeySample) else _distinct(sample, member)
     flipped_bits = 8 * np.minimum(keys.lengths(), max_bytes)
     small = 0 < int(np.sum(flipped_bits)) <= EXACT_BELOW_FLIPS
-    size = int(np.dot(flipped_bits, keys.lengths())) + 33 * int(np.sum(flipped_bits))  # key bytes, 4 arrays
+    # the flipped keys' bytes, and per flip its offset, input bit, parent (8 bytes each) and mark (1 byte)
+    size = int(np.dot(flipped_bits, keys.lengths())) + 25 * int(np.sum(flipped_bits))
     kept = None
     if share and size <= SHARED_FLIPS_BYTES:
         kept = tuple(_flip_chunks(keys, max_bytes, small, member))
