@@ -110,6 +110,7 @@ def audit_batches(
     hash_seconds = {spec.name: 0.0 for spec in specs}
 
     def work(lane: int, batch: KeyBatch, first: np.ndarray | None, offset: int) -> None:
+        positions = None  # made once per batch, for every state that wants them (none changes them)
         for state in lane_states[lane]:
             t0 = time.perf_counter()
             values = state.spec.hash_batch(batch, plan.seed if state.spec.seeded else 0)
@@ -117,10 +118,9 @@ def audit_batches(
                 state.add_loads(values, batch.weights)
             if first is not None:
                 values = values[first]
-            positions = None
-            if state.wants("positions"):
-                positions = offset + (np.flatnonzero(first) if first is not None else np.arange(len(batch)))
-            state.add_values(values, positions)
+            if positions is None and state.wants("positions"):
+                positions = _positions(first, len(batch), offset)
+            state.add_values(values, positions if state.wants("positions") else None)
             hash_seconds[state.spec.name] += time.perf_counter() - t0
 
     loading = [True]
@@ -280,6 +280,15 @@ def audit_batches(
         phase=phase,
         workers=_lane_count(threads, len(specs)),
     )
+
+
+def _positions(first: np.ndarray | None, keys: int, offset: int) -> np.ndarray:
+    """Stream positions of a batch's counted keys (its first occurrences, or all ``keys`` of it), in one array."""
+    if first is None:
+        return np.arange(offset, offset + keys, dtype=np.int64)
+    positions = np.flatnonzero(first).astype(np.int64, copy=False)
+    positions += offset
+    return positions
 
 
 def _parts_for(keys: int, budget: int) -> int:

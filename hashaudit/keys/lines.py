@@ -37,6 +37,21 @@ def _fill(stream: Readable, view: memoryview) -> int:
     return total
 
 
+_COUNT_CHUNK = 1 << 18
+
+
+def _count_lf(region: np.ndarray) -> int:
+    """LF bytes in ``region``, compared a chunk at a time into one small reused mask: ``region == LF`` whole would
+    take a fresh mask as large as the block for every block, and first touch of fresh memory is what costs here."""
+    mask = np.empty(min(len(region), _COUNT_CHUNK), dtype=np.bool_)
+    total = 0
+    for start in range(0, len(region), _COUNT_CHUNK):
+        part = region[start : start + _COUNT_CHUNK]
+        np.equal(part, LF, out=mask[: len(part)])
+        total += int(np.count_nonzero(mask[: len(part)]))
+    return total
+
+
 def _find_lf(view: np.ndarray, last: bool) -> int:
     """Position of the first (or last) LF in ``view``, -1 if none; looks at a growing window from that end."""
     size = len(view)
@@ -67,7 +82,7 @@ def _fixed_width(region: np.ndarray, lines: int, drop_cr: bool) -> tuple[np.ndar
         elif ends_with_cr.any():
             return None
     data = rows[:, :width].copy().reshape(-1)  # a copy even when contiguous: the read buffer is reused
-    return data, np.arange(lines + 1, dtype=np.int64) * width
+    return data, np.arange(0, (lines + 1) * width, width, dtype=np.int64) if width else np.zeros(lines + 1, np.int64)
 
 
 class _Splitter:
@@ -304,7 +319,7 @@ def read_lines(
                     discarding = True
                 continue  # no complete line yet: read on
         region = buf[:end]
-        lines = int(np.count_nonzero(region == LF))
+        lines = _count_lf(region)
         text = True
         if checker is not None:
             if skip_bad:

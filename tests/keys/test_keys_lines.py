@@ -238,3 +238,23 @@ def test_stdin_empty_is_an_error(monkeypatch):
     monkeypatch.setattr(sys, "stdin", io.TextIOWrapper(io.BytesIO(b"")))
     with pytest.raises(InputError, match=r"^<stdin>: no keys$"):
         list(open_keys("-"))
+
+
+@pytest.mark.parametrize(
+    "size", [0, 1, lines_module._COUNT_CHUNK - 1, lines_module._COUNT_CHUNK, 3 * lines_module._COUNT_CHUNK + 7]
+)
+def test_lf_count_in_chunks_matches_whole_region_compare(size):
+    # the chunked count (one small reused mask) against numpy's whole-region comparison, across chunk ends
+    rng = np.random.default_rng(size)
+    region = rng.choice(np.array([10, 13, 65, 0], dtype=np.uint8), size=size, p=[0.2, 0.1, 0.6, 0.1])
+    assert lines_module._count_lf(region) == int(np.count_nonzero(region == 10))
+
+
+@pytest.mark.parametrize("width", [0, 1, 5])
+def test_fixed_width_offsets(width):
+    # equal-length lines take the strided path: offsets step by the width, empty lines included
+    region = np.frombuffer((b"x" * width + b"\n") * 9, dtype=np.uint8)
+    data, offsets = lines_module._fixed_width(region, 9, drop_cr=False)
+    assert offsets.dtype == np.int64
+    assert offsets.tolist() == [i * width for i in range(10)]
+    assert data.tobytes() == b"x" * (9 * width)
