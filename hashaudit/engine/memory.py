@@ -18,10 +18,12 @@ from typing import Any
 DEFAULT_CAP = 1 << 30
 """The default budget is a quarter of the machine's memory, at most this."""
 
-BASE_BYTES = 384 << 20
+BASE_BYTES = 448 << 20
 """The process's own footprint, not counted in any store: the interpreter, numpy, numba and pyarrow with the
 compiled kernels (a 3-key audit peaks near 220 MiB), the read buffers and the arrays of the batches in flight (hash
-values, positions, a spill's partitioned copy): measured with ``bench/bench_memory.py``."""
+values, positions, a spill's partitioned copy): measured with ``bench/bench_memory.py``. Raised from 384 MiB when
+the default audit of 100 M distinct keys under the default 1 GiB peaked at 1,039-1,041 MiB
+(``bench/bench_memory_budget.py``, 2026-12-03)."""
 
 DISTINCT_SHARE = 0.6
 """Of the stores' memory, the share the distinct-key store may take when the collision check runs (all of it

@@ -49,7 +49,7 @@ def test_without_the_collision_check_the_distinct_keys_take_every_store_byte():
     both, alone = AuditPlan(memory="1g"), AuditPlan(memory="1g", checks="buckets")
     tables = count_bytes({"checks": alone.checks, "buckets": alone.buckets, "schemes": alone.schemes,
                           "hashes": alone.hashes})  # fmt: skip
-    assert alone.distinct_memory == (1 << 30) - BASE_BYTES - tables  # 20 M distinct keys fit in one read
+    assert alone.distinct_memory == (1 << 30) - BASE_BYTES - tables  # 18 M distinct keys fit in one read
     assert alone.distinct_memory > both.distinct_memory
 
 
