@@ -105,9 +105,9 @@ def conclude(
                 phase(f"{group.name} facts")
             findings += group.facts(ctx)
     hash_audits = []
-    for state in states:
+    summaries_of = _table_summaries(states, workers)
+    for state, summaries in zip(states, summaries_of, strict=True):
         own = tuple(f for f in findings if f.hash_name == state.spec.name)
-        summaries = tuple(_summary(table, state.get("bucket_loads")) for table in state.get("tables"))
         spec = state.spec
         verdict = worst_verdict([f.verdict for f in own])
         hash_audits.append(HashAudit(spec.name, spec.width, spec.seeded, plan.seed, spec.path, verdict, own, summaries))
@@ -170,6 +170,24 @@ def _conclude_groups(
         pool.shutdown(wait=False, cancel_futures=True)
 
 
+def _table_summaries(states: list[HashState], workers: int) -> list[tuple[TableSummary, ...]]:
+    """The summary of every table of every state (in order), made on up to ``workers`` threads: each one reads a
+    table's counts once more (numpy lets go of the GIL for that), and a run with many large tables spent a
+    noticeable part of its end on them one after the other."""
+    jobs = [(table, state.get("bucket_loads")) for state in states for table in state.get("tables")]
+    if workers <= 1 or len(jobs) <= 1:
+        made = [_summary(table, loads) for table, loads in jobs]
+    else:
+        with ThreadPoolExecutor(max_workers=min(workers, len(jobs)), thread_name_prefix="hashaudit-summary") as pool:
+            made = list(pool.map(lambda job: _summary(*job), jobs))
+    out, start = [], 0
+    for state in states:
+        count = len(state.get("tables"))
+        out.append(tuple(made[start : start + count]))
+        start += count
+    return out
+
+
 def _summary(table: Any, loads: list[Any]) -> TableSummary:
     from hashaudit.stats.fit import occupancy_table
 
@@ -177,7 +195,8 @@ def _summary(table: Any, loads: list[Any]) -> TableSummary:
     counts = result.counts
     occupied = np.flatnonzero(counts)  # the hottest buckets are among the occupied ones (at most n of them)
     top = min(HOTTEST_SHOWN, len(occupied))
-    hottest = occupied[np.argpartition(counts[occupied], -top)[-top:]] if top else occupied
+    # result.occupied is counts[occupied], in the same order (made once, shared with the occupancy table)
+    hottest = occupied[np.argpartition(result.occupied, -top)[-top:]] if top else occupied
     hottest = hottest[np.lexsort((hottest, -counts[hottest]))]
     load = next((b for b in loads if (b.scheme, b.buckets) == (result.scheme, result.buckets)), None)
     return TableSummary(
