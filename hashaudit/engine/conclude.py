@@ -180,12 +180,8 @@ def _table_summaries(states: list[HashState], workers: int) -> list[tuple[TableS
     else:
         with ThreadPoolExecutor(max_workers=min(workers, len(jobs)), thread_name_prefix="hashaudit-summary") as pool:
             made = list(pool.map(lambda job: _summary(*job), jobs))
-    out, start = [], 0
-    for state in states:
-        count = len(state.get("tables"))
-        out.append(tuple(made[start : start + count]))
-        start += count
-    return out
+    in_order = iter(made)
+    return [tuple(next(in_order) for _ in state.get("tables")) for state in states]
 
 
 def _summary(table: Any, loads: list[Any]) -> TableSummary:

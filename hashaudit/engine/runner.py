@@ -118,9 +118,10 @@ def audit_batches(
                 state.add_loads(values, batch.weights)
             if first is not None:
                 values = values[first]
-            if positions is None and state.wants("positions"):
+            wanted = state.wants("positions")
+            if wanted and positions is None:
                 positions = _positions(first, len(batch), offset)
-            state.add_values(values, positions if state.wants("positions") else None)
+            state.add_values(values, positions if wanted else None)
             hash_seconds[state.spec.name] += time.perf_counter() - t0
 
     loading = [True]

@@ -82,7 +82,9 @@ def _fixed_width(region: np.ndarray, lines: int, drop_cr: bool) -> tuple[np.ndar
         elif ends_with_cr.any():
             return None
     data = rows[:, :width].copy().reshape(-1)  # a copy even when contiguous: the read buffer is reused
-    return data, np.arange(0, (lines + 1) * width, width, dtype=np.int64) if width else np.zeros(lines + 1, np.int64)
+    offsets = np.arange(lines + 1, dtype=np.int64)
+    offsets *= width  # in place: one array of offsets
+    return data, offsets
 
 
 class _Splitter:
@@ -134,7 +136,7 @@ class _TextCheck:
         except UnicodeDecodeError as exc:
             self.no_nul(region, stream_offset)
             line_start = _find_lf(region[: exc.start], last=True) + 1
-            line = first_line + int(np.count_nonzero(region[: exc.start] == LF))
+            line = first_line + _count_lf(region[: exc.start])
             # The position only: even one byte of a key is the key's content, which messages never show.
             raise InputError(
                 f"{self.name} line {line}: not valid UTF-8 (at byte {exc.start - line_start + 1} of the line)"
