@@ -20,11 +20,12 @@ from __future__ import annotations
 import argparse
 import json
 import os
-import subprocess
 import sys
 import tempfile
 import time
 from pathlib import Path
+
+from _timing import median_run, write_bytecode
 
 FIRST_KERNEL = (
     "import numpy as np, hashaudit.hashes.fnv as f; from hashaudit.keys.batch import KeyBatch; "
@@ -39,29 +40,19 @@ STEPS = [
 ]
 
 
-def timed(argv: list[str]) -> float:
-    start = time.perf_counter()
-    subprocess.run(argv, check=False, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    return time.perf_counter() - start
-
-
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--runs", type=int, default=7)
     parser.add_argument("--json", help="write the figures to this file")
     args = parser.parse_args()
-    subprocess.run([sys.executable, "-m", "compileall", "-q", str(Path(__file__).resolve().parents[1] / "hashaudit")])
+    write_bytecode()
     with tempfile.TemporaryDirectory(prefix="hashaudit-floor-") as folder:
         keys = Path(folder) / "keys_3.txt"
         keys.write_bytes(b"order-1\norder-2\norder-3\n")
         audit = ["-m", "hashaudit", "audit", str(keys), "--checks", "buckets", "-H", "murmur3_32", "-q"]
         steps = [*STEPS, ("the 3-key audit (row 3)", audit)]
-        for _, argv in steps:  # warm the page cache and the kernel cache
-            timed([sys.executable, *argv])
-        figures: dict[str, float] = {}
-        for name, argv in steps:
-            runs = sorted(timed([sys.executable, *argv]) for _ in range(args.runs))
-            figures[name] = round(runs[len(runs) // 2], 3)
+        # each step after a warm-up run (page cache, kernel cache); a step that fails stops the benchmark
+        figures = {name: round(median_run([sys.executable, *argv], runs=args.runs), 3) for name, argv in steps}
     load = " ".join(f"{x:.2f}" for x in os.getloadavg())
     print(f"{time.strftime('%Y-%m-%d %H:%M')}, {os.cpu_count()} cores, load average {load}, medians of {args.runs}:")
     before = 0.0

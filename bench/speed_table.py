@@ -61,6 +61,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 
 import numpy as np
+from _timing import write_bytecode
 
 HERE = Path(__file__).parent
 ORDERS = HERE.parent / "sample_keys" / "orders.txt"
@@ -501,18 +502,6 @@ def find_hashaudit() -> str:
     if not found:
         raise SystemExit("no hashaudit command beside this Python or on PATH: pip install -e . first")
     return found
-
-
-def write_bytecode() -> None:
-    """Write the bytecode of the hashaudit package the command runs, as ``pip install`` does: an editable install
-    under ``PYTHONDONTWRITEBYTECODE=1`` (this machine's shell sets it) would otherwise compile its ~80 imported
-    modules from source in every measured run."""
-    import compileall
-    import importlib.util
-
-    spec = importlib.util.find_spec("hashaudit")
-    if spec is not None and spec.origin is not None:
-        compileall.compile_dir(str(Path(spec.origin).parent), quiet=1)
 
 
 def main() -> None:
